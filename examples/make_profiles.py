@@ -1,0 +1,71 @@
+"""Regenerate the invented demo profiles under examples/*/profiles/.
+
+The scenario is made up: invented places, invented assets, invented numbers
+shaped only roughly like real days (a midday solar bell, an evening price
+peak).  Run: python examples/make_profiles.py
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+HERE = Path(__file__).resolve().parent
+
+
+def _write(df: pd.DataFrame, path: Path) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    df.to_csv(path, index=False, float_format="%.3f")
+
+
+def price_curve(index: pd.DatetimeIndex, rng, base=55.0, swing=35.0, noise=6.0) -> np.ndarray:
+    h = index.hour + index.minute / 60.0
+    shape = (-0.6 * np.exp(-((h - 13) ** 2) / 8)        # midday solar dip
+             + 1.0 * np.exp(-((h - 19) ** 2) / 4)       # evening peak
+             + 0.4 * np.exp(-((h - 8) ** 2) / 3))       # morning shoulder
+    return base + swing * shape + rng.normal(0, noise, len(index))
+
+
+def solar_curve(index: pd.DatetimeIndex, peak_mw: float, rng) -> np.ndarray:
+    h = index.hour + index.minute / 60.0
+    bell = np.clip(np.sin((h - 6) / 13 * math.pi), 0, None) ** 1.5
+    cloud = np.clip(1 - rng.gamma(1.2, 0.12, len(index)), 0.2, 1)
+    return peak_mw * bell * cloud
+
+
+def main() -> None:
+    rng = np.random.default_rng(20270301)
+    # kestrel_bay: one battery beside solar, 48 h, prices hourly, solar every 15 min.
+    hourly = pd.date_range("2027-03-01T00:00", periods=48, freq="h", tz="UTC")
+    quarter = pd.date_range("2027-03-01T00:00", periods=48 * 4, freq="15min", tz="UTC")
+    stamp = lambda idx: idx.strftime("%Y-%m-%dT%H:%M%z").str.replace(r"(\d\d)(\d\d)$", r"\1:\2", regex=True)
+    _write(pd.DataFrame({"time": stamp(hourly), "price": price_curve(hourly, rng)}),
+           HERE / "kestrel_bay/profiles/spot.csv")
+    _write(pd.DataFrame({"time": stamp(quarter), "mw": solar_curve(quarter, 18.0, rng)}),
+           HERE / "kestrel_bay/profiles/pv.csv")
+    _write(pd.DataFrame({"time": stamp(hourly), "mw": 1.5 + 0.8 * np.sin(np.arange(48) / 24 * 2 * math.pi) ** 2}),
+           HERE / "kestrel_bay/profiles/plant.csv")
+
+    # heron_flats: two sites behind one connection, 24 h at 30 min, local zone.
+    half = pd.date_range("2027-06-14T00:00", periods=48, freq="30min", tz="Europe/Lisbon")
+    _write(pd.DataFrame({"time": stamp(half), "eur_per_mwh": price_curve(half, rng, base=70, swing=50)}),
+           HERE / "heron_flats/profiles/day_ahead.csv")
+    _write(pd.DataFrame({"time": stamp(half), "kw": 1000 * solar_curve(half, 6.0, rng)}),
+           HERE / "heron_flats/profiles/roof_pv.csv")
+    _write(pd.DataFrame({"time": stamp(half), "mw": 0.8 + 0.4 * rng.random(48)}),
+           HERE / "heron_flats/profiles/cold_store.csv")
+
+    # glen_cascade: two reservoirs in cascade, 72 h hourly, river inflow after rain.
+    h72 = pd.date_range("2027-10-04T00:00", periods=72, freq="h", tz="UTC")
+    river = 6 + 10 * np.exp(-((np.arange(72) - 20) ** 2) / 60) + rng.normal(0, 0.3, 72)
+    _write(pd.DataFrame({"time": stamp(h72), "price": price_curve(h72, rng, base=60, swing=40)}),
+           HERE / "glen_cascade/profiles/prices.csv")
+    _write(pd.DataFrame({"time": stamp(h72), "mw": np.clip(river, 0, None)}),
+           HERE / "glen_cascade/profiles/river.csv")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,1 @@
+"""The portfolio language's grammar (portfolio.lark), installed as ``portfolio.grammar``."""

@@ -1,0 +1,107 @@
+"""The Python API's front door: read, lint and load portfolio files.
+
+>>> import portfolio
+>>> p = portfolio.load("examples/kestrel_bay/kestrel_bay.folio")   # doctest: +SKIP
+>>> result = p.dispatch()                                          # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import List, Optional, Union
+
+from .check import check
+from .diagnostics import Diagnostic, PortfolioError, Sink, UnreadableFile
+from .graph import build_graph, check_topology
+from .model import Portfolio
+from .spans import Span
+from .syntax import parse
+
+
+@dataclass
+class LintResult:
+    path: str
+    diagnostics: List[Diagnostic] = field(default_factory=list)
+    portfolio: Optional[Portfolio] = None
+    graph: object = None
+    unreadable: bool = False
+
+    @property
+    def errors(self) -> List[Diagnostic]:
+        return [d for d in self.diagnostics if d.severity == "error"]
+
+    @property
+    def ok(self) -> bool:
+        return not self.errors and self.portfolio is not None
+
+
+def _tidy(items: List[Diagnostic]) -> List[Diagnostic]:
+    """Drop repeats (a preset's fault is found once per storage) and order by position."""
+    seen = set()
+    out = []
+    for d in items:
+        key = (d.code, d.span)
+        if key not in seen:
+            seen.add(key)
+            out.append(d)
+    return sorted(out, key=lambda d: (d.span.path, d.span.line, d.span.col))
+
+
+def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] = None) -> LintResult:
+    """Run every stage up to the network graph on ``text``; never raises for bad input."""
+    sink = Sink()
+    base = Path(base_dir) if base_dir is not None else Path(path).resolve().parent
+    result = LintResult(path)
+    tree = parse(text, path, sink)
+    if tree is not None:
+        p = check(tree, path, base, sink)
+        if p is not None:
+            g = build_graph(p)
+            check_topology(p, g, sink)
+            result.graph = g
+            if not sink.has_errors:
+                result.portfolio = p
+    result.diagnostics = _tidy(sink.items)
+    return result
+
+
+def read_source(path: Union[str, Path]):
+    """Return (text, None) or (None, diagnostic) for an unreadable file."""
+    p = Path(path)
+    try:
+        data = p.read_bytes()
+    except IsADirectoryError:
+        why = "it is a folder, not a file"
+    except FileNotFoundError:
+        why = "no such file"
+    except PermissionError:
+        why = "permission denied"
+    except OSError as e:
+        why = e.strerror or str(e)
+    else:
+        try:
+            return data.decode("utf-8-sig"), None
+        except UnicodeDecodeError as e:
+            why = f"it is not UTF-8 text (byte {e.start})"
+        else:  # pragma: no cover
+            why = "unknown"
+    return None, UnreadableFile(Span.whole_file(str(path)), f"cannot read '{path}': {why}")
+
+
+def lint_file(path: Union[str, Path]) -> LintResult:
+    text, problem = read_source(path)
+    if problem is not None:
+        return LintResult(str(path), [problem], unreadable=True)
+    if "\x00" in text:
+        return LintResult(str(path), [UnreadableFile(Span.whole_file(str(path)),
+                                                     f"cannot read '{path}': it holds binary data")], unreadable=True)
+    return lint_text(text, str(path), Path(path).resolve().parent)
+
+
+def load(path: Union[str, Path]) -> Portfolio:
+    """Read and check a portfolio file; raise :class:`PortfolioError` if it has errors."""
+    result = lint_file(path)
+    if not result.ok:
+        raise PortfolioError(result.diagnostics)
+    return replace(result.portfolio, warnings=tuple(result.diagnostics))

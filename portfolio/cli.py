@@ -1,0 +1,307 @@
+"""The ``portfolio`` command.  The only module that prints.
+
+``main(argv)`` returns the exit code, so tests can call it directly.  Exit
+codes (docs/cli.md): 0 clean or warnings only / schedule found; 1 lint errors;
+2 usage or unreadable file; 3 infeasible; 4 unbounded; 5 no schedule within
+the limits; 6 solver failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+from typing import List, Optional
+
+from . import __version__
+from .api import lint_file
+from .diagnostics import (EXIT_ERRORS, EXIT_INFEASIBLE, EXIT_NO_SCHEDULE, EXIT_OK, EXIT_SOLVER,
+                          EXIT_UNBOUNDED, EXIT_USAGE, REGISTRY, Report)
+from .render import format_json, format_text
+
+CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
+           "operator's instructions and local codes and licensed practice always come first. Reservoir "
+           "spill affects people downstream.")
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # exit code 2, one line, no traceback
+        self.print_usage(sys.stderr)
+        self.exit(EXIT_USAGE, f"portfolio: error: {message}\n")
+
+
+def _positive_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not v > 0:
+        raise argparse.ArgumentTypeError(f"'{text}' must be above zero")
+    return v
+
+
+def _gap(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not 0 <= v < 1:
+        raise argparse.ArgumentTypeError(f"'{text}' must be a fraction from 0 to below 1 (0.0001 = 0.01 %)")
+    return v
+
+
+def _threads(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError("threads must be 1 or more")
+    return v
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = _Parser(prog="portfolio", description="Dispatch several linked energy-storage assets from a .folio file.")
+    ap.add_argument("--version", action="version", version=f"portfolio {__version__}")
+    sub = ap.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    lint = sub.add_parser("lint", help="check portfolio files and report problems")
+    lint.add_argument("files", nargs="+", metavar="FILE")
+    lint.add_argument("--format", choices=("text", "json"), default="text")
+    lint.add_argument("--quiet", "-q", action="store_true", help="print only the problems, no summary")
+
+    codes = sub.add_parser("codes", help="list every diagnostic code")
+    codes.add_argument("--format", choices=("text", "markdown"), default="text")
+
+    d = sub.add_parser("dispatch", help="find the best schedule and write it per asset")
+    d.add_argument("file", metavar="FILE")
+    d.add_argument("--out", required=True, metavar="DIR", help="output folder (replaced atomically)")
+    d.add_argument("--time-limit", type=_positive_float, metavar="S", help="stop after S seconds with the best schedule so far")
+    d.add_argument("--gap", type=_gap, metavar="R", help="relative MIP gap to stop at (default 0.0001 = 0.01 %%)")
+    d.add_argument("--threads", type=_threads, metavar="N", help="solver threads (default: HiGHS's choice)")
+    d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
+    d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
+    return ap
+
+
+def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
+    out = out or sys.stdout
+    err = err or sys.stderr
+    try:
+        args = build_parser().parse_args(argv)
+    except SystemExit as e:
+        return int(e.code) if isinstance(e.code, int) else EXIT_USAGE
+    try:
+        if args.command == "lint":
+            return cmd_lint(args, out, err)
+        if args.command == "codes":
+            return cmd_codes(args, out)
+        if args.command == "dispatch":
+            return cmd_dispatch(args, out, err)
+    except KeyboardInterrupt:
+        print("portfolio: interrupted", file=err)
+        return 130
+    return EXIT_USAGE  # pragma: no cover
+
+
+def cmd_lint(args, out, err) -> int:
+    report = Report()
+    results = []
+    for f in args.files:
+        r = lint_file(f)
+        results.append(r)
+        if r.unreadable:
+            report.add_unreadable()
+        else:
+            report.add(r.diagnostics)
+    if args.format == "json":
+        print(format_json(results), file=out)
+    else:
+        for r in results:
+            for d in r.diagnostics:
+                print(format_text(d), file=out)
+        if not args.quiet:
+            print(report.summary(), file=err)
+    return report.exit_code
+
+
+def cmd_codes(args, out) -> int:
+    if args.format == "markdown":
+        print(codes_markdown(), file=out, end="")
+    else:
+        for code, cls in sorted(REGISTRY.items()):
+            print(f"{code}  {cls.severity:<7}  {cls.__name__:<22} {cls.summary}", file=out)
+    return EXIT_OK
+
+
+def codes_markdown() -> str:
+    lines = ["| code | severity | kind | meaning |", "|---|---|---|---|"]
+    for code, cls in sorted(REGISTRY.items()):
+        lines.append(f"| {code} | {cls.severity} | {cls.__name__} | {cls.summary} |")
+    return "\n".join(lines) + "\n"
+
+
+# ---- dispatch ---------------------------------------------------------------------
+
+STATUS_EXIT = {
+    "optimal": EXIT_OK,
+    "feasible": EXIT_OK,
+    "infeasible": EXIT_INFEASIBLE,
+    "unbounded": EXIT_UNBOUNDED,
+    "no_schedule": EXIT_NO_SCHEDULE,
+    "error": EXIT_SOLVER,
+}
+
+
+def cmd_dispatch(args, out, err) -> int:
+    from .dispatch import dispatch
+    from .solve import SolveOptions
+
+    r = lint_file(args.file)
+    for d in r.diagnostics:
+        print(format_text(d), file=err)
+    if r.unreadable:
+        return EXIT_USAGE
+    if not r.ok:
+        print(f"portfolio: {len(r.errors)} error(s) in {args.file}; nothing was dispatched or written", file=err)
+        return EXIT_ERRORS
+    out_dir = Path(args.out)
+    problem = _output_problem(out_dir, Path(args.file))
+    if problem:
+        print(f"portfolio: error: {problem}", file=err)
+        return EXIT_USAGE
+    kw = {}
+    if args.time_limit is not None:
+        kw["time_limit"] = args.time_limit
+    if args.gap is not None:
+        kw["mip_gap"] = args.gap
+    if args.threads is not None:
+        kw["threads"] = args.threads
+    options = SolveOptions(**kw)
+    progress = _Progress(err, quiet=args.quiet)
+    try:
+        result = dispatch(r.portfolio, options, progress=progress)
+    finally:
+        progress.close()
+    status = result.status
+    print(_status_line(result), file=out)
+    if status in ("optimal", "feasible"):
+        formats = ("csv", "parquet") if args.parquet else ("csv",)
+        try:
+            result.write(out_dir, formats=formats)
+        except (OSError, ValueError) as e:
+            print(f"portfolio: error: cannot write '{out_dir}': {e}", file=err)
+            return EXIT_USAGE
+        if not args.quiet:
+            _print_assets(result, out)
+            print(f"schedule written to {out_dir}/", file=out)
+            print(f"caution: {CAUTION}", file=out)
+    else:
+        _explain_failure(result, err)
+    return STATUS_EXIT.get(status, EXIT_SOLVER)
+
+
+def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
+    src = source.resolve()
+    od = out_dir.resolve()
+    if od == src or od in src.parents:
+        return f"the output folder '{out_dir}' holds the portfolio file itself; choose a new folder"
+    if od.exists() and not od.is_dir():
+        return f"'{out_dir}' exists and is not a folder"
+    return None
+
+
+def _status_line(result) -> str:
+    parts = [f"status: {result.status}"]
+    if result.objective is not None:
+        parts.append(f"objective {result.objective:,.2f}")
+    if result.mip_gap is not None:
+        parts.append(f"gap {result.mip_gap * 100:.3g} %")
+    parts.append(f"build {result.build_seconds:.2f} s")
+    parts.append(f"solve {result.solve_seconds:.2f} s")
+    return " | ".join(parts)
+
+
+def _explain_failure(result, err) -> None:
+    messages = {
+        "infeasible": "the portfolio's limits cannot all hold at once; nothing was written",
+        "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); nothing was written",
+        "no_schedule": "no schedule was found within the limits (try a longer --time-limit); nothing was written",
+        "error": "the solver failed; nothing was written",
+    }
+    print(f"portfolio: {messages.get(result.status, result.status)}", file=err)
+    relaxed = getattr(result, "relaxed", None) or []
+    if relaxed:
+        print("these limits had to give for a schedule to exist (largest first):", file=err)
+        for item in relaxed[:20]:
+            span, text = item[0], item[1]
+            amount = f" (by {item[2]:.6g})" if len(item) > 2 else ""
+            print(f"  {span}: {text}{amount}", file=err)
+
+
+def _print_assets(result, out) -> None:
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console(file=out, width=120, highlight=False)
+    summary = result.summary
+    for group in ("connections", "sites", "storages", "inflows", "routes"):
+        rows = summary.get(group) or {}
+        if not rows:
+            continue
+        cols = [c for c in ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+                            "curtailed_mwh", "spilled_mwh", "in_transit_end_mwh")
+                if any(c in v for v in rows.values())]
+        table = Table(title=group, title_justify="left", show_edge=False)
+        table.add_column("name")
+        for c in cols:
+            table.add_column(c, justify="right")
+        for name, v in rows.items():
+            table.add_row(name, *[_num(v.get(c)) for c in cols])
+        console.print(table)
+
+
+def _num(x) -> str:
+    if x is None:
+        return ""
+    if isinstance(x, (int, float)):
+        return f"{x:,.3f}"
+    return str(x)
+
+
+class _Progress:
+    """Feedback on stderr while a solve runs longer than a couple of seconds."""
+
+    def __init__(self, err, quiet=False, after=2.0):
+        self.err, self.quiet, self.after = err, quiet, after
+        self.start = time.monotonic()
+        self.status = None
+
+    def __call__(self, elapsed, objective=None, bound=None, gap=None):
+        if self.quiet or elapsed < self.after:
+            return
+        text = f"solving... {elapsed:.0f} s"
+        if objective is not None:
+            text += f"  best {objective:,.2f}"
+        if gap is not None:
+            text += f"  gap {gap * 100:.3g} %"
+        if self.status is None:
+            from rich.console import Console
+            self.status = Console(file=self.err).status(text)
+            self.status.start()
+        else:
+            self.status.update(text)
+
+    def close(self):
+        if self.status is not None:
+            self.status.stop()
+
+
+def run() -> None:  # console-script entry point
+    sys.exit(main())
+
+
+if __name__ == "__main__":  # pragma: no cover
+    run()

@@ -1,0 +1,199 @@
+"""Diagnostics: one class per kind, a registry of stable codes, and a Report.
+
+Finding is separate from reporting: the stages append :class:`Diagnostic`
+objects to a :class:`Sink`; only the CLI renders them (see
+:mod:`portfolio.render`).  The :class:`Report` owns the exit-code policy.
+
+Codes are stable: never renumber one, never reuse a retired one.  The table in
+``docs/diagnostics.md`` is generated from :data:`REGISTRY` and a test checks
+that the two agree.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import ClassVar, Dict, List, Optional, Type
+
+from .spans import Span
+
+ERROR = "error"
+WARNING = "warning"
+
+REGISTRY: Dict[str, Type["Diagnostic"]] = {}
+
+
+@dataclass(frozen=True)
+class Diagnostic:
+    span: Span
+    message: str
+    notes: tuple = field(default=())   # extra lines ("note: ...")
+
+    code: ClassVar[str] = ""
+    severity: ClassVar[str] = ERROR
+    summary: ClassVar[str] = ""
+
+    def __init_subclass__(cls, **kw):
+        super().__init_subclass__(**kw)
+        if cls.code:
+            if cls.code in REGISTRY:
+                raise RuntimeError(f"duplicate diagnostic code {cls.code}")
+            REGISTRY[cls.code] = cls
+
+    def to_dict(self) -> dict:
+        return {
+            "path": self.span.path,
+            "line": self.span.line,
+            "column": self.span.col,
+            "end_line": self.span.end_line,
+            "end_column": self.span.end_col,
+            "severity": self.severity,
+            "code": self.code,
+            "message": self.message,
+            "notes": list(self.notes),
+        }
+
+
+class Sink:
+    """Collects diagnostics in the order they are found."""
+
+    def __init__(self) -> None:
+        self.items: List[Diagnostic] = []
+
+    def add(self, kind: Type[Diagnostic], span: Span, message: str, *notes: str) -> Diagnostic:
+        d = kind(span, message, tuple(notes))
+        self.items.append(d)
+        return d
+
+    @property
+    def errors(self) -> List[Diagnostic]:
+        return [d for d in self.items if d.severity == ERROR]
+
+    @property
+    def has_errors(self) -> bool:
+        return any(d.severity == ERROR for d in self.items)
+
+    def extend(self, other: "Sink") -> None:
+        self.items.extend(other.items)
+
+
+class PortfolioError(Exception):
+    """Raised by the Python API when a portfolio has errors.
+
+    ``diagnostics`` holds every finding (errors and warnings).
+    """
+
+    def __init__(self, diagnostics: List[Diagnostic]):
+        self.diagnostics = list(diagnostics)
+        first = next((d for d in self.diagnostics if d.severity == ERROR), None)
+        text = f"{first.span}: {first.code}: {first.message}" if first else "portfolio has errors"
+        more = len([d for d in self.diagnostics if d.severity == ERROR]) - 1
+        if more > 0:
+            text += f" (and {more} more error{'s' if more > 1 else ''})"
+        super().__init__(text)
+
+
+# Exit codes, owned by Report and the CLI.  Documented in docs/cli.md.
+EXIT_OK = 0            # clean, or warnings only; dispatch: optimal / within gap
+EXIT_ERRORS = 1        # lint errors found
+EXIT_USAGE = 2         # bad command line or unreadable file
+EXIT_INFEASIBLE = 3    # dispatch: the portfolio's limits cannot all hold
+EXIT_UNBOUNDED = 4     # dispatch: profit is unbounded (a missing limit)
+EXIT_NO_SCHEDULE = 5   # dispatch: time or other limit hit with no schedule found
+EXIT_SOLVER = 6        # dispatch: solver failed for another reason
+
+
+class Report:
+    """Counts what was found across files and decides the exit code."""
+
+    def __init__(self) -> None:
+        self.files = 0
+        self.errors = 0
+        self.warnings = 0
+        self.unreadable = 0
+
+    def add(self, diagnostics) -> None:
+        self.files += 1
+        for d in diagnostics:
+            if d.severity == ERROR:
+                self.errors += 1
+            else:
+                self.warnings += 1
+
+    def add_unreadable(self) -> None:
+        self.unreadable += 1
+
+    @property
+    def exit_code(self) -> int:
+        if self.unreadable:
+            return EXIT_USAGE
+        if self.errors:
+            return EXIT_ERRORS
+        return EXIT_OK
+
+    def summary(self) -> str:
+        def plural(n, word):
+            return f"{n} {word}{'' if n == 1 else 's'}"
+        parts = [plural(self.errors, "error"), plural(self.warnings, "warning")]
+        text = f"{plural(self.files, 'file')} checked: " + ", ".join(parts)
+        if self.unreadable:
+            text += f", {self.unreadable} unreadable"
+        return text
+
+
+def _kind(code: str, severity: str, summary: str, name: str) -> Type[Diagnostic]:
+    cls = type(name, (Diagnostic,), {"code": code, "severity": severity, "summary": summary,
+                                     "__module__": __name__})
+    return dataclass(frozen=True)(cls)
+
+
+# --- P0xx: files --------------------------------------------------------------
+UnreadableFile = _kind("P001", ERROR, "the portfolio file cannot be read (missing, not text, not UTF-8)", "UnreadableFile")
+
+# --- P1xx: syntax -------------------------------------------------------------
+SyntaxProblem = _kind("P101", ERROR, "the text does not follow the language's grammar", "SyntaxProblem")
+UnclosedBlock = _kind("P102", ERROR, "a '{' block is not closed before the end of the file", "UnclosedBlock")
+BadTimestamp = _kind("P103", ERROR, "a timestamp is not a valid ISO 8601 date and time", "BadTimestamp")
+
+# --- P2xx: names --------------------------------------------------------------
+UnknownName = _kind("P201", ERROR, "a name refers to nothing declared (with a suggestion when one is close)", "UnknownName")
+DuplicateName = _kind("P202", ERROR, "a name is declared twice (all names share one namespace)", "DuplicateName")
+DuplicateSetting = _kind("P203", ERROR, "the same setting is given twice in one block", "DuplicateSetting")
+MissingSetting = _kind("P204", ERROR, "a required setting or statement is missing", "MissingSetting")
+WrongNameKind = _kind("P205", ERROR, "a name refers to a declaration of the wrong kind", "WrongNameKind")
+
+# --- P3xx: units and values ---------------------------------------------------
+UnknownUnit = _kind("P301", ERROR, "a unit is not one the language knows", "UnknownUnit")
+WrongDimension = _kind("P302", ERROR, "a quantity has the wrong dimension (a power where an energy is needed, ...)", "WrongDimension")
+OutOfRange = _kind("P303", ERROR, "a value is outside its allowed range (negative capacity, efficiency above 100 %, zero step, ...)", "OutOfRange")
+SocInconsistent = _kind("P304", ERROR, "state-of-charge bounds, start and end rule contradict each other or the capacity", "SocInconsistent")
+UnknownZone = _kind("P305", ERROR, "the time zone is not an IANA zone name", "UnknownZone")
+HorizonMisfit = _kind("P306", ERROR, "the horizon length is not a whole number of steps", "HorizonMisfit")
+LimitInconsistent = _kind("P307", ERROR, "a minimum exceeds its maximum, or a rule needs a limit that is absent", "LimitInconsistent")
+UnusedSetting = _kind("P308", WARNING, "a setting has no effect as declared", "UnusedSetting")
+UnusedPreset = _kind("P309", WARNING, "a preset is declared but no storage takes it", "UnusedPreset")
+RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the horizon or not a whole number of steps", "RuleTooLong")
+
+# --- P4xx: time series --------------------------------------------------------
+SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")
+SeriesColumnMissing = _kind("P402", ERROR, "a series column (or the time column) is not in the file", "SeriesColumnMissing")
+SeriesBadValue = _kind("P403", ERROR, "a series cell is empty or not a number (the CSV row is given)", "SeriesBadValue")
+SeriesBadTime = _kind("P404", ERROR, "a timestamp in a series cannot be read (the CSV row is given)", "SeriesBadTime")
+SeriesUnsorted = _kind("P405", ERROR, "series timestamps are duplicated or not in increasing order", "SeriesUnsorted")
+SeriesDstGap = _kind("P406", ERROR, "a local timestamp falls in a daylight-saving gap or is ambiguous", "SeriesDstGap")
+SeriesCoverage = _kind("P407", ERROR, "a series does not cover the whole horizon", "SeriesCoverage")
+SeriesLength = _kind("P408", ERROR, "an inline list does not have one value per step", "SeriesLength")
+SeriesEmpty = _kind("P409", ERROR, "a series file has no data rows", "SeriesEmpty")
+SeriesNegative = _kind("P410", ERROR, "a power profile has negative values", "SeriesNegative")
+
+# --- P5xx: topology -----------------------------------------------------------
+NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection", "NoPathToGrid")
+ZeroDelayCycle = _kind("P502", ERROR, "routes form a cycle with zero total delay", "ZeroDelayCycle")
+NowhereToGo = _kind("P503", WARNING, "a non-curtailable inflow may have nowhere to go (likely infeasible)", "NowhereToGo")
+RouteKindMismatch = _kind("P504", ERROR, "a route joins storages that cannot exchange what it carries", "RouteKindMismatch")
+DelayNotWhole = _kind("P505", ERROR, "a route delay is not a whole number of steps", "DelayNotWhole")
+RouteDuplicate = _kind("P506", ERROR, "a storage has two routes of the same kind (release and spill each go one way)", "RouteDuplicate")
+SpillNotAllowed = _kind("P507", ERROR, "a spill route leaves a storage that does not allow spill", "SpillNotAllowed")
+UnusedConnection = _kind("P508", WARNING, "a connection has no site attached", "UnusedConnection")
+EmptySite = _kind("P509", WARNING, "a site has no storage, inflow or demand", "EmptySite")
+RouteToSelf = _kind("P510", ERROR, "a route leads from a storage back to itself", "RouteToSelf")
+InflowTargetElsewhere = _kind("P511", ERROR, "an inflow is sent into a storage at another site", "InflowTargetElsewhere")

@@ -1,0 +1,139 @@
+"""Stage 3: checked model -> network graph, and the topology checks.
+
+A :class:`networkx.MultiDiGraph` whose nodes are the portfolio's connections,
+sites, storages, inflows (including a reservoir's natural inflow) and demands,
+and whose edges are every path energy or water can take.  Edge keys name the
+path (``export``, ``import``, ``charge``, ``discharge``, ``supply``,
+``serve``, ``natural``, and the route kinds).  Every node and edge carries
+``span``: the declaration it came from.
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from typing import Optional
+
+import networkx as nx
+import numpy as np
+
+from . import model as M
+from .diagnostics import (EmptySite, InflowTargetElsewhere, NoPathToGrid, NowhereToGo, Sink,
+                          UnusedConnection, ZeroDelayCycle)
+
+
+def _open(limit: Optional[float]) -> bool:
+    return limit is None or limit > 0
+
+
+def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
+    g = nx.MultiDiGraph(name=p.name)
+    for c in p.connections.values():
+        g.add_node(c.name, kind="connection", span=c.span, decl=c)
+    for s in p.sites.values():
+        g.add_node(s.name, kind="site", span=s.span, decl=s)
+        c = p.connections.get(s.connection)
+        if c is None:
+            continue
+        if _open(s.export_max) and _open(c.export_max):
+            g.add_edge(s.name, c.name, key="export", span=s.where("export_max"), limit=s.export_max)
+        if _open(s.import_max) and _open(c.import_max):
+            g.add_edge(c.name, s.name, key="import", span=s.where("import_max"), limit=s.import_max)
+    for k in p.storages.values():
+        g.add_node(k.name, kind="storage", span=k.span, decl=k, storage_kind=k.kind)
+        if k.discharge_max > 0:
+            g.add_edge(k.name, k.site, key="discharge", span=k.where("discharge_max"), limit=k.discharge_max)
+        if k.charge_max > 0:
+            g.add_edge(k.site, k.name, key="charge", span=k.where("charge_max"), limit=k.charge_max)
+        if k.inflow:
+            g.add_node(k.inflow, kind="inflow", span=k.where("inflow"), decl=None, natural=True)
+            g.add_edge(k.inflow, k.name, key="natural", span=k.where("inflow"), limit=None)
+    for i in p.inflows.values():
+        g.add_node(i.name, kind="inflow", span=i.span, decl=i, natural=False)
+        for t in i.targets:
+            dest = i.site if t == "site" else t
+            limit = None if t == "site" else p.storages[t].charge_max if t in p.storages else None
+            g.add_edge(i.name, dest, key="supply", span=i.where("targets"), limit=limit)
+    for d in p.demands.values():
+        g.add_node(d.name, kind="demand", span=d.span, decl=d)
+        g.add_edge(d.site, d.name, key="serve", span=d.span, limit=None)
+    for r in p.routes:
+        g.add_edge(r.source, r.target, key=r.kind, span=r.span, limit=r.max_mw,
+                   delay=r.delay_steps, factor=r.factor, route=r)
+    return g
+
+
+def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
+    # Inflows sent into a storage at another site.
+    for i in p.inflows.values():
+        for t in i.targets:
+            if t != "site" and t in p.storages and p.storages[t].site != i.site:
+                sink.add(InflowTargetElsewhere, i.where("targets"),
+                         f"inflow '{i.name}' at site '{i.site}' cannot flow into '{t}', which is at site "
+                         f"'{p.storages[t].site}'", "note: an inflow feeds its own site or storages there; use a route between storages")
+    # Reachability: walk backwards from every connection once.
+    reach = set()
+    todo = deque(n for n, a in g.nodes(data=True) if a["kind"] == "connection")
+    reach.update(todo)
+    while todo:
+        n = todo.popleft()
+        for u in g.predecessors(n):
+            if u not in reach:
+                reach.add(u)
+                todo.append(u)
+    for k in p.storages.values():
+        if k.name not in reach:
+            sink.add(NoPathToGrid, k.span, f"storage '{k.name}' has no path to any connection: what it holds can never be sold",
+                     "note: give it a 'discharge max', a route to a storage that can discharge, or open its site's export")
+    for n, a in g.nodes(data=True):
+        if a["kind"] == "inflow" and n not in reach:
+            sink.add(NoPathToGrid, a["span"], f"inflow '{n}' has no path to any connection")
+    # Zero-delay route cycles.
+    zero = nx.DiGraph()
+    for u, v, key, a in g.edges(keys=True, data=True):
+        if "route" in a and a["delay"] == 0:
+            zero.add_edge(u, v, route=a["route"])
+    for comp in nx.strongly_connected_components(zero):
+        if len(comp) < 2:
+            continue
+        cyc = nx.find_cycle(zero.subgraph(comp))
+        routes = [zero.edges[u, v]["route"] for u, v in cyc]
+        first = min(routes, key=lambda r: r.span)
+        path = " -> ".join([routes[0].source] + [r.target for r in routes])
+        sink.add(ZeroDelayCycle, first.span, f"routes form a cycle with zero total delay: {path}",
+                 *[f"note: route at {r.span}" for r in routes],
+                 "note: give at least one route in the cycle a delay of a whole step or more")
+    # Connections and sites with nothing to do.
+    for c in p.connections.values():
+        if not p.sites_at(c.name):
+            sink.add(UnusedConnection, c.span, f"connection '{c.name}' has no site attached")
+    busy = {x.site for x in (*p.storages.values(), *p.inflows.values(), *p.demands.values())}
+    for s in p.sites.values():
+        if s.name not in busy:
+            sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, inflow or demand")
+    _check_nowhere_to_go(p, sink)
+
+
+def _check_nowhere_to_go(p: M.Portfolio, sink: Sink) -> None:
+    """Warn when a non-curtailable inflow can peak above what its targets can take."""
+    for i in p.inflows.values():
+        if i.curtail_allowed or i.profile not in p.series:
+            continue
+        peak = float(np.max(p.profile(i.profile))) if p.horizon.steps else 0.0
+        if peak <= 0:
+            continue
+        absorb = 0.0
+        site = p.sites.get(i.site)
+        for t in i.targets:
+            if t == "site" and site is not None:
+                conn = p.connections.get(site.connection)
+                limits = [x for x in (site.export_max, conn.export_max if conn else None) if x is not None]
+                absorb += min(limits) if limits else float("inf")
+                absorb += sum(k.charge_max for k in p.storages_at(site.name))
+                absorb += sum(float(np.min(p.profile(d.profile))) for d in p.demands.values() if d.site == site.name)
+            elif t in p.storages:
+                absorb += p.storages[t].charge_max
+        if peak > absorb + 1e-9:
+            sink.add(NowhereToGo, i.span,
+                     f"inflow '{i.name}' peaks at {peak:.6g} MW but its targets can take at most {absorb:.6g} MW, "
+                     "and it may not be curtailed: dispatch is likely infeasible",
+                     "note: add 'curtail allowed' to the inflow, or raise the limits it flows into")

@@ -1,0 +1,230 @@
+"""The checked, typed model: what the rest of the pipeline consumes.
+
+Everything here is already validated by :mod:`portfolio.check`; later stages
+may rely on it without re-checking.  Canonical units:
+
+* power in MW (always non-negative; direction is in the field name),
+* energy in MWh, durations in hours, fractions in 0..1,
+* money per MWh in the user's currency (the language does not name one).
+
+Each declaration keeps the :class:`~portfolio.spans.Span` of its statement in
+``span`` and, in ``spans``, the span of each setting by field name, so that a
+constraint family can point at the exact line that set its limit.  A field
+that was not set by the user (a default) has no entry in ``spans``; use
+:meth:`Decl.where` to fall back to the declaration's span.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Mapping, Optional
+
+import numpy as np
+import pandas as pd
+
+from .spans import NOWHERE, Span
+
+EMPTY: Mapping[str, Span] = MappingProxyType({})
+
+# Storage kinds with a meaning to the checks (what a route may carry).  Any
+# other kind label is accepted and treated as "other".
+KIND_BATTERY = "battery"
+KIND_RESERVOIR = "reservoir"
+KIND_THERMAL = "thermal"
+KNOWN_KINDS = (KIND_BATTERY, KIND_RESERVOIR, KIND_THERMAL)
+
+# End-of-horizon rules for state of charge.
+END_FREE = "free"          # no condition
+END_AT_LEAST = "at_least"  # soc[T] >= value
+END_EQUAL = "equal"        # soc[T] == value
+
+# Route kinds: what one storage passes to another.
+ROUTE_RELEASE = "release"    # water drawn to generate, passed downstream
+ROUTE_SPILL = "spill"        # water spilled, passed downstream
+ROUTE_TRANSFER = "transfer"  # energy moved store-to-store (e.g. heat network)
+ROUTE_KINDS = (ROUTE_RELEASE, ROUTE_SPILL, ROUTE_TRANSFER)
+
+
+@dataclass(frozen=True)
+class Decl:
+    name: str
+    span: Span = NOWHERE
+    spans: Mapping[str, Span] = field(default_factory=dict, compare=False, repr=False)
+
+    def where(self, field_name: str) -> Span:
+        """The span of one setting, or of the declaration when defaulted."""
+        return self.spans.get(field_name, self.span)
+
+
+@dataclass(frozen=True)
+class Horizon:
+    start: pd.Timestamp          # tz-aware, in ``zone``
+    steps: int
+    step_hours: float
+    zone: str
+    span: Span = NOWHERE
+
+    @property
+    def index(self) -> pd.DatetimeIndex:
+        """Step starts, tz-aware in the horizon's zone (fixed absolute steps)."""
+        start_utc = self.start.tz_convert("UTC")
+        idx = pd.date_range(start_utc, periods=self.steps,
+                            freq=pd.Timedelta(hours=self.step_hours))
+        return idx.tz_convert(self.zone)
+
+    @property
+    def end(self) -> pd.Timestamp:
+        return self.start + pd.Timedelta(hours=self.step_hours * self.steps)
+
+
+@dataclass(frozen=True, eq=False)
+class Series(Decl):
+    """A time series already resampled onto the horizon: one value a step."""
+
+    values: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    quantity: str = "power"      # "power" (MW) or "price" (money per MWh)
+    origin: str = ""             # human description, e.g. 'spot.csv column "price"'
+
+
+@dataclass(frozen=True)
+class PriceExpr:
+    """``series + adder`` per MWh, or a constant when ``series`` is None."""
+
+    series: Optional[str] = None
+    adder: float = 0.0
+    span: Span = NOWHERE
+
+
+@dataclass(frozen=True)
+class Connection(Decl):
+    export_max: Optional[float] = None   # MW, None = unlimited
+    import_max: Optional[float] = None   # MW, None = unlimited
+    sell: Optional[PriceExpr] = None     # None: export earns nothing
+    buy: Optional[PriceExpr] = None      # None: import costs nothing
+    exclusive: bool = False              # never import and export in one step
+
+
+@dataclass(frozen=True)
+class Site(Decl):
+    connection: str = ""
+    export_max: Optional[float] = None
+    import_max: Optional[float] = None
+
+
+@dataclass(frozen=True)
+class Demand(Decl):
+    site: str = ""
+    profile: str = ""                    # name of a power Series
+
+
+@dataclass(frozen=True)
+class Storage(Decl):
+    site: str = ""
+    kind: str = "other"
+    energy: float = 0.0                  # MWh capacity
+    charge_max: float = 0.0              # MW (0: cannot charge from the site)
+    discharge_max: float = 0.0           # MW
+    charge_min: float = 0.0              # MW whenever charging (needs a binary)
+    discharge_min: float = 0.0           # MW whenever discharging (needs a binary)
+    eta_charge: float = 1.0              # grid-side MW in -> stored MWh
+    eta_discharge: float = 1.0           # stored MWh -> grid-side MW out
+    soc_min: float = 0.0                 # MWh
+    soc_max: float = 0.0                 # MWh
+    soc_start: float = 0.0               # MWh at the start of the first step
+    end_rule: str = END_AT_LEAST
+    end_value: float = 0.0               # MWh, used unless end_rule is free
+    loss_per_h: float = 0.0              # fraction of content lost per hour
+    wear: float = 0.0                    # money per MWh discharged (grid side)
+    exclusive: bool = False              # no simultaneous charge and discharge
+    min_run_h: float = 0.0               # minimum length of a discharge (or charge) run
+    min_rest_h: float = 0.0              # minimum idle time between runs
+    ramp_mw_per_h: Optional[float] = None  # limit on change of net output
+    inflow: Optional[str] = None         # power Series of natural inflow (MW)
+    spill_allowed: bool = False
+    spill_max: Optional[float] = None    # MW equivalent, None = unlimited
+
+    @property
+    def needs_modes(self) -> bool:
+        return (self.exclusive or self.charge_min > 0 or self.discharge_min > 0
+                or self.min_run_h > 0 or self.min_rest_h > 0)
+
+
+@dataclass(frozen=True)
+class Inflow(Decl):
+    site: str = ""
+    profile: str = ""                    # name of a power Series (MW available)
+    targets: tuple = ()                  # storage names and/or "site"
+    curtail_allowed: bool = False
+
+
+@dataclass(frozen=True)
+class Route(Decl):
+    """``source`` passes ``kind`` flow to ``target`` after ``delay_steps``.
+
+    The flow leaving the source is measured in the source's stored MWh; it
+    arrives multiplied by ``factor`` (and, for transfers, ``efficiency``).
+    """
+
+    source: str = ""
+    kind: str = ROUTE_RELEASE
+    target: str = ""
+    delay_steps: int = 0
+    factor: float = 1.0
+    efficiency: float = 1.0
+    max_mw: Optional[float] = None
+    in_transit: float = 0.0              # MWh in transit at start, spread over the delay
+
+
+@dataclass(frozen=True)
+class Cap(Decl):
+    """A portfolio-wide limit across all connections."""
+
+    export_max: Optional[float] = None
+    import_max: Optional[float] = None
+
+
+@dataclass(frozen=True, eq=False)
+class Portfolio:
+    name: str
+    path: str
+    horizon: Horizon
+    series: Mapping[str, Series]
+    connections: Mapping[str, Connection]
+    sites: Mapping[str, Site]
+    storages: Mapping[str, Storage]
+    inflows: Mapping[str, Inflow]
+    demands: Mapping[str, Demand]
+    routes: tuple = ()
+    cap: Optional[Cap] = None
+    span: Span = NOWHERE
+    warnings: tuple = ()         # lint warnings found while loading
+
+    def price(self, expr: Optional[PriceExpr]) -> np.ndarray:
+        """A price expression evaluated on every step (zeros when absent)."""
+        n = self.horizon.steps
+        if expr is None:
+            return np.zeros(n)
+        base = self.series[expr.series].values if expr.series else np.zeros(n)
+        return np.asarray(base, dtype=float) + expr.adder
+
+    def profile(self, name: Optional[str]) -> np.ndarray:
+        if name is None:
+            return np.zeros(self.horizon.steps)
+        return np.asarray(self.series[name].values, dtype=float)
+
+    def dispatch(self, options=None, progress=None, **kwargs):
+        """Solve this portfolio; see :func:`portfolio.dispatch.dispatch`."""
+        from .dispatch import dispatch
+        return dispatch(self, options, progress=progress, **kwargs)
+
+    def graph(self):
+        """The network graph (:func:`portfolio.graph.build_graph`)."""
+        from .graph import build_graph
+        return build_graph(self)
+
+    def storages_at(self, site: str):
+        return [s for s in self.storages.values() if s.site == site]
+
+    def sites_at(self, connection: str):
+        return [s for s in self.sites.values() if s.connection == connection]

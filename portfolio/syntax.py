@@ -1,0 +1,272 @@
+"""Stage 1: source text -> syntax tree with spans.
+
+A Lark LALR parser with positions propagated: every tree node's ``meta`` and
+every token carry line and column.  Syntax errors become ``P101``/``P102``/
+``P103`` diagnostics in plain words; grammar token names never reach the user.
+"""
+
+from __future__ import annotations
+
+import difflib
+import re
+import threading
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from typing import Callable, Dict, Optional
+
+from lark import Lark, Token, Tree
+from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
+
+from .diagnostics import BadTimestamp, Sink, SyntaxProblem, UnclosedBlock
+from .spans import Span
+
+GRAMMAR_FILE = "portfolio.lark"
+
+
+def grammar_text() -> str:
+    """The grammar, from the installed package or, in a checkout, from grammar/."""
+    try:
+        return resources.files("portfolio.grammar").joinpath(GRAMMAR_FILE).read_text("utf-8")
+    except (ModuleNotFoundError, FileNotFoundError, OSError):
+        here = Path(__file__).resolve().parent.parent / "grammar" / GRAMMAR_FILE
+        return here.read_text("utf-8")
+
+
+class _GluedWord(Exception):
+    """A keyword matched only the start of a longer word ('max' in 'maximum')."""
+
+    def __init__(self, token: Token):
+        super().__init__(str(token))
+        self.token = token
+
+
+_current = threading.local()
+_WORD_CHAR = re.compile(r"[A-Za-z0-9_]")
+_WORDY = re.compile(r"^[A-Za-z_|()?:]+$")
+
+
+def _keyword_boundary(token: Token) -> Token:
+    text = getattr(_current, "text", "")
+    end = token.end_pos
+    if end is not None and end < len(text) and _WORD_CHAR.match(text[end]):
+        raise _GluedWord(token)
+    return token
+
+
+def _keyword_terminals(grammar: str) -> Dict[str, Callable]:
+    probe = Lark(grammar, parser="lalr", lexer="contextual", maybe_placeholders=False)
+    names = {}
+    for t in probe.terminals:
+        value = t.pattern.value
+        if t.pattern.type == "str" and value[:1].isalpha():
+            names[t.name] = _keyword_boundary
+        elif t.pattern.type == "re" and t.name.isupper() and _WORDY.match(value) and "|" in value:
+            names[t.name] = _keyword_boundary   # ALLOWED, MODES, SIGN, ROUTE_KIND
+    return names
+
+
+@lru_cache(maxsize=1)
+def parser() -> Lark:
+    text = grammar_text()
+    return Lark(text, parser="lalr", lexer="contextual", propagate_positions=True,
+                maybe_placeholders=False, cache=False, lexer_callbacks=_keyword_terminals(text))
+
+
+@lru_cache(maxsize=1)
+def keywords() -> frozenset:
+    """Every word the language reserves somewhere (for messages and suggestions)."""
+    words = set()
+    for t in parser().terminals:
+        if t.pattern.type == "str" and t.pattern.value[:1].isalpha():
+            words.add(t.pattern.value)
+        elif t.name in EXPECTED_WORDS and "|" in t.pattern.value and _WORDY.match(t.pattern.value):
+            words.update(w for w in re.split(r"[|()?:]+", t.pattern.value) if w)
+    return frozenset(words)
+
+
+# Plain words for the grammar's named tokens.
+EXPECTED_WORDS = {
+    "NAME": "a name",
+    "NUMBER": "a number",
+    "UNIT": "a unit (such as MW, MWh, %, h, min)",
+    "STRING": 'a quoted text such as "profiles/spot.csv"',
+    "TIMESTAMP": "a date and time such as 2027-03-01T00:00",
+    "ALLOWED": "'allowed' or 'forbidden'",
+    "MODES": "'exclusive' or 'free'",
+    "SIGN": "'plus' or 'minus'",
+    "ROUTE_KIND": "'release', 'spill' or 'transfer'",
+    "$END": "the end of the file",
+}
+
+FOUND_WORDS = {
+    "NAME": "the name '{v}'",
+    "NUMBER": "the number {v}",
+    "UNIT": "'{v}'",
+    "STRING": "the text {v}",
+    "TIMESTAMP": "the date {v}",
+    "$END": "the end of the file",
+}
+
+
+def _terminal_words(name: str) -> str:
+    if name in EXPECTED_WORDS:
+        return EXPECTED_WORDS[name]
+    term = parser().get_terminal(name) if name in _terminal_names() else None
+    if term is not None and term.pattern.type == "str":
+        return f"'{term.pattern.value}'"
+    return name.lower()
+
+
+@lru_cache(maxsize=1)
+def _terminal_names() -> frozenset:
+    return frozenset(t.name for t in parser().terminals)
+
+
+def describe_expected(names) -> str:
+    words = sorted({_terminal_words(n) for n in names if n not in ("COMMENT", "WS")},
+                   key=lambda w: (w.startswith("a ") or w.startswith("the "), w))
+    if not words:
+        return "nothing more"
+    if len(words) == 1:
+        return words[0]
+    if len(words) > 10:
+        return ", ".join(words[:10]) + f", or one of {len(words) - 10} more"
+    return ", ".join(words[:-1]) + " or " + words[-1]
+
+
+def _found(token: Token) -> str:
+    if token.type == "$END":
+        return "the end of the file"
+    template = FOUND_WORDS.get(token.type)
+    if template:
+        return template.format(v=token.value)
+    return f"'{token.value}'"
+
+
+def _span_of_token(path: str, token: Token, text: str) -> Span:
+    if token.type == "$END" or token.line is None:
+        lines = text.splitlines() or [""]
+        return Span(path, len(lines), len(lines[-1]) + 1, len(lines), len(lines[-1]) + 1)
+    end_col = token.end_column if token.end_column is not None else token.column + len(token.value)
+    return Span(path, token.line, token.column, token.end_line or token.line, end_col)
+
+
+def _open_braces(text: str) -> Optional[Span]:
+    """The position of the innermost unclosed '{', ignoring comments and strings."""
+    stack = []
+    for lineno, line in enumerate(text.splitlines(), 1):
+        in_str = False
+        for col, ch in enumerate(line, 1):
+            if ch == '"':
+                in_str = not in_str
+            elif in_str:
+                continue
+            elif ch == "#":
+                break
+            elif ch == "{":
+                stack.append((lineno, col))
+            elif ch == "}" and stack:
+                stack.pop()
+    if stack:
+        line, col = stack[-1]
+        return (line, col)
+    return None
+
+
+_TIMESTAMP_LIKE = re.compile(r"\d{4}-\d")
+_STATEMENT_WORDS = {"portfolio", "horizon", "price", "preset", "connection", "site", "route", "total"}
+_NUMBER_THEN_WORD = re.compile(r"([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s+([A-Za-z_][A-Za-z0-9_]*)\s*$")
+
+
+def _number_before_keyword(text: str, tok: Token, prev: Optional[Token]):
+    """'energy 40 charge max ...': the keyword after 40 was read as its unit."""
+    if tok.start_pos is None:
+        return None
+    m = _NUMBER_THEN_WORD.search(text[:tok.start_pos])
+    if not m or m.group(2) not in keywords():
+        return None
+    pos = m.start(1)
+    line = text.count("\n", 0, pos) + 1
+    col = pos - (text.rfind("\n", 0, pos) + 1) + 1
+    return m.group(1), pos, line, col
+
+
+def parse(text: str, path: str, sink: Sink) -> Optional[Tree]:
+    """Parse ``text``; on failure add one diagnostic and return None."""
+    _current.text = text
+    try:
+        return parser().parse(text)
+    except _GluedWord as glued:
+        tok = glued.token
+        m = re.compile(r"[A-Za-z0-9_]+").match(text, tok.start_pos)
+        word = m.group(0) if m else str(tok)
+        close = difflib.get_close_matches(word, sorted(keywords()), n=1, cutoff=0.6)
+        hint = f"; did you mean '{close[0]}'?" if close else ""
+        sink.add(SyntaxProblem, Span(path, tok.line, tok.column, tok.line, tok.column + len(word)),
+                 f"'{word}' is not a word the language knows here{hint}")
+        return None
+    except UnexpectedInput as err:
+        _report(err, text, path, sink)
+        return None
+    except RecursionError:  # pragma: no cover - absurdly deep input
+        sink.add(SyntaxProblem, Span.whole_file(path), "the file is nested too deeply to read")
+        return None
+    finally:
+        _current.text = ""
+
+
+def _report(err: UnexpectedInput, text: str, path: str, sink: Sink) -> None:
+    if isinstance(err, UnexpectedToken) and err.token.type == "$END" or isinstance(err, UnexpectedEOF):
+        brace = _open_braces(text)
+        if brace is not None:
+            line, col = brace
+            sink.add(UnclosedBlock, Span(path, line, col, line, col + 1),
+                     "this '{' is never closed", "note: add a matching '}' to end the block")
+            return
+    if isinstance(err, UnexpectedToken):
+        tok = err.token
+        span = _span_of_token(path, tok, text)
+        expected = set(err.expected) | set(getattr(err, "accepts", None) or ())
+        prev = err.token_history[-1] if getattr(err, "token_history", None) else None
+        if tok.type == "UNIT" and "UNIT" not in expected and prev is not None and prev.type == "UNIT":
+            # e.g. "40 MW MWh": a second unit
+            sink.add(SyntaxProblem, span, f"unexpected '{tok.value}' after the unit '{prev.value}'")
+            return
+        if tok.type == "NUMBER" and _TIMESTAMP_LIKE.match(str(tok.value)) and "TIMESTAMP" in expected:
+            sink.add(BadTimestamp, span, "expected a date and time such as 2027-03-01T00:00")
+            return
+        unitless = _number_before_keyword(text, tok, prev)
+        if unitless is not None:
+            num, pos, line, col = unitless
+            sink.add(SyntaxProblem, Span(path, line, col, line, col + len(num)),
+                     f"the number {num} needs a unit",
+                     "note: every quantity carries a unit: MW, kW, GW, MWh, kWh, GWh, %, h, min, or 'per MWh' for money")
+            return
+        msg = f"expected {describe_expected(expected)}, found {_found(tok)}"
+        notes = []
+        brace = _open_braces(text[:tok.start_pos]) if tok.start_pos is not None else None
+        if brace is not None and str(tok.value) in _STATEMENT_WORDS:
+            notes.append(f"note: is the '{{' at line {brace[0]}, column {brace[1]} closed?")
+        if "UNIT" in expected and prev is not None and prev.type == "NUMBER":
+            msg = f"the number {prev.value} needs a unit, found {_found(tok)}"
+            notes.append("note: every quantity carries a unit: MW, kW, GW, MWh, kWh, GWh, %, h, min, or 'per MWh' for money")
+            span = _span_of_token(path, prev, text)
+        sink.add(SyntaxProblem, span, msg, *notes)
+        return
+    if isinstance(err, UnexpectedCharacters):
+        line, col = err.line, err.column
+        ch = text[err.pos_in_stream] if 0 <= err.pos_in_stream < len(text) else "?"
+        span = Span(path, line, col, line, col + 1)
+        if ch == '"':
+            sink.add(SyntaxProblem, span, "this text is not closed with '\"' on the same line")
+            return
+        if ch.isdigit() and _TIMESTAMP_LIKE.match(text[err.pos_in_stream:err.pos_in_stream + 6]):
+            sink.add(BadTimestamp, span, "this is not a date and time in ISO 8601 form such as 2027-03-01T00:00")
+            return
+        allowed = getattr(err, "allowed", None) or ()
+        what = f", expected {describe_expected(allowed)}" if allowed else ""
+        shown = repr(ch) if ch.isprintable() else f"U+{ord(ch):04X}"
+        sink.add(SyntaxProblem, span, f"unexpected character {shown}{what}")
+        return
+    sink.add(SyntaxProblem, Span.whole_file(path), f"cannot read the file: {err}")  # pragma: no cover

@@ -51,7 +51,7 @@ def _tidy(items: List[Diagnostic]) -> List[Diagnostic]:
 def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] = None) -> LintResult:
     """Run every stage up to the network graph on ``text``; never raises for bad input."""
     sink = Sink()
-    base = Path(base_dir) if base_dir is not None else Path(path).resolve().parent
+    base = Path(base_dir) if base_dir is not None else Path(path).parent
     result = LintResult(path)
     tree = parse(text, path, sink)
     if tree is not None:
@@ -96,7 +96,7 @@ def lint_file(path: Union[str, Path]) -> LintResult:
     if "\x00" in text:
         return LintResult(str(path), [UnreadableFile(Span.whole_file(str(path)),
                                                      f"cannot read '{path}': it holds binary data")], unreadable=True)
-    return lint_text(text, str(path), Path(path).resolve().parent)
+    return lint_text(text, str(path), Path(path).parent)
 
 
 def load(path: Union[str, Path]) -> Portfolio:

@@ -83,6 +83,10 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--threads", type=_threads, metavar="N", help="solver threads (default: HiGHS's choice)")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
+
+    gr = sub.add_parser("graph", help="draw the portfolio's network (SVG, PNG or DOT)")
+    gr.add_argument("file", metavar="FILE")
+    gr.add_argument("--out", required=True, metavar="PATH", help="picture to write: .svg, .png or .dot")
     return ap
 
 
@@ -100,6 +104,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_codes(args, out)
         if args.command == "dispatch":
             return cmd_dispatch(args, out, err)
+        if args.command == "graph":
+            return cmd_graph(args, out, err)
     except KeyboardInterrupt:
         print("portfolio: interrupted", file=err)
         return 130
@@ -141,6 +147,36 @@ def codes_markdown() -> str:
     for code, cls in sorted(REGISTRY.items()):
         lines.append(f"| {code} | {cls.severity} | {cls.__name__} | {cls.summary} |")
     return "\n".join(lines) + "\n"
+
+
+def cmd_graph(args, out, err) -> int:
+    from .draw import write_picture
+
+    target = Path(args.out)
+    if target.suffix.lower() not in (".svg", ".png", ".dot", ".gv"):
+        print(f"portfolio: error: cannot draw to '{target}': use a .svg, .png or .dot file name", file=err)
+        return EXIT_USAGE
+    r = lint_file(args.file)
+    for d in r.diagnostics:
+        print(format_text(d), file=err)
+    if r.unreadable:
+        return EXIT_USAGE
+    if not r.ok:
+        print(f"portfolio: {len(r.errors)} error(s) in {args.file}; nothing was drawn", file=err)
+        return EXIT_ERRORS
+    if target.resolve() == Path(args.file).resolve():
+        print("portfolio: error: the picture would overwrite the portfolio file", file=err)
+        return EXIT_USAGE
+    if not target.parent.exists():
+        print(f"portfolio: error: the folder '{target.parent}' does not exist", file=err)
+        return EXIT_USAGE
+    try:
+        write_picture(r.graph, target)
+    except (OSError, ValueError) as e:
+        print(f"portfolio: error: cannot write '{target}': {e}", file=err)
+        return EXIT_USAGE
+    print(f"network of {r.portfolio.name} drawn to {target}", file=out)
+    return EXIT_OK
 
 
 # ---- dispatch ---------------------------------------------------------------------

@@ -250,7 +250,11 @@ def _load_inline(spec: SeriesSpec, grid: _Grid, sink: Sink) -> Optional[Series]:
                  f"series '{spec.name}': list entr{'ies' if len(bad) > 1 else 'y'} {listed} "
                  f"{'are' if len(bad) > 1 else 'is'} not a finite number")
         return None
-    values = values * spec.factor
+    with np.errstate(all="ignore"):
+        values = values * spec.factor
+    if not np.isfinite(values).all():
+        sink.add(SeriesBadValue, where, f"series '{spec.name}': the list's values are too large")
+        return None
     if spec.quantity == "power":
         neg = np.flatnonzero(values < 0)
         if neg.size:
@@ -442,7 +446,7 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
     except _Unreadable as e:
         for _, spec in group:
             sink.add(SeriesFileMissing, spec.path_span or spec.span,
-                     f"cannot read series file '{spec.path}': {e}",
+                     f"series '{spec.name}': cannot read file '{spec.path}': {e}",
                      f"looked for {resolved}")
         return {}
     specs = [spec for _, spec in group]
@@ -492,7 +496,9 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
         if key not in negative:
             users = [s for _, s, _, v in wanted
                      if v == v_idx and s.quantity == "power" and (s.factor >= 0) == key[1]]
-            negative[key] = _report_negative(table, v_idx, raw * spec.factor, users, sink)
+            with np.errstate(all="ignore"):
+                scaled = raw * spec.factor
+            negative[key] = _report_negative(table, v_idx, scaled, users, sink)
 
     out: Dict[int, Series] = {}
     for i, spec, t_idx, v_idx in wanted:
@@ -503,7 +509,13 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
             continue
         if not _covers(spec, table, t, t_idx, grid, sink):
             continue
-        values = _step_average(t.ns, raw * spec.factor, t.hold, grid)
+        with np.errstate(all="ignore"):
+            values = _step_average(t.ns, raw * spec.factor, t.hold, grid)
+        if not np.isfinite(values).all():
+            sink.add(SeriesBadValue, spec.column_span or spec.span,
+                     f"series '{spec.name}': the values in column '{table.header[v_idx]}' "
+                     "are too large to average")
+            continue
         origin = f'{shown} column "{table.header[v_idx]}"'
         out[i] = _make_series(spec, values, origin)
     return out
@@ -764,7 +776,8 @@ def _step_average(ns: np.ndarray, values: np.ndarray, hold: int, grid: _Grid) ->
     e = edges[lo:hi + 1]
     v = values[lo:hi]
     x = (e - grid.start).astype(float)                   # ns from the horizon start
-    integral = np.concatenate(([0.0], np.cumsum(v * np.diff(e).astype(float))))
     q = np.arange(grid.steps + 1, dtype=np.int64) * grid.step
-    f = np.interp(q.astype(float), x, integral)
-    return np.diff(f) / float(grid.step)
+    with np.errstate(all="ignore"):                      # huge values: caller checks finiteness
+        integral = np.concatenate(([0.0], np.cumsum(v * np.diff(e).astype(float))))
+        f = np.interp(q.astype(float), x, integral)
+        return np.diff(f) / float(grid.step)

@@ -1,0 +1,211 @@
+"""Pictures of the network graph: SVG and PNG (matplotlib), DOT text (pydot).
+
+Our own visual style, explained in docs/graph.md and in the legend drawn on
+every picture.  Layers, top to bottom: connections, sites, then each site's
+storages, inflows and demands.  Edges are labelled with their limits.
+Writing is atomic (temporary file, then rename).
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+from typing import Dict, Tuple
+
+import networkx as nx
+
+from . import model as M
+
+# kind -> (matplotlib marker, fill colour, words for the legend)
+NODE_STYLE = {
+    "connection": ("h", "#3b3b3b", "grid connection"),
+    "site": ("s", "#9aa5b1", "site (bus)"),
+    M.KIND_BATTERY: ("o", "#2f6fdf", "battery storage"),
+    M.KIND_RESERVOIR: ("o", "#1f9e89", "reservoir storage"),
+    M.KIND_THERMAL: ("o", "#e0712c", "thermal storage"),
+    "other": ("o", "#8c6bb1", "other storage"),
+    "inflow": ("^", "#f2c12e", "inflow (solar, river, heat)"),
+    "demand": ("v", "#c0392b", "demand"),
+}
+
+# edge key -> (colour, line style, words for the legend)
+EDGE_STYLE = {
+    "grid": ("#3b3b3b", "solid", "import / export"),
+    "store": ("#2f6fdf", "solid", "charge / discharge"),
+    "supply": ("#d4a017", "dashed", "inflow supply"),
+    "serve": ("#c0392b", "dotted", "demand served"),
+    "route": ("#1f9e89", "solid", "route (label: kind, delay)"),
+}
+
+_EDGE_GROUP = {"export": "grid", "import": "grid", "charge": "store", "discharge": "store",
+               "supply": "supply", "natural": "supply", "serve": "serve"}
+
+
+def _style_key(attrs) -> str:
+    kind = attrs.get("kind")
+    if kind == "storage":
+        sk = attrs.get("storage_kind", "other")
+        return sk if sk in M.KNOWN_KINDS else "other"
+    return kind
+
+
+def edge_label(key: str, attrs) -> str:
+    lim = attrs.get("limit")
+    text = key
+    if "route" in attrs:
+        r = attrs["route"]
+        text = f"{key}, {r.delay_steps} step{'s' if r.delay_steps != 1 else ''}"
+        if r.factor != 1:
+            text += f", x{r.factor:g}"
+    if lim is not None:
+        text += f" <= {lim:g} MW"
+    return text
+
+
+def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
+    """Layers: connections (top), sites, then assets grouped under their site.
+
+    Within a site: each storage with its natural inflow beside it, then the
+    site's inflows, then its demands.
+    """
+    conns = [n for n, a in g.nodes(data=True) if a["kind"] == "connection"]
+    sites = [n for n, a in g.nodes(data=True) if a["kind"] == "site"]
+    assets = []
+    placed = set()
+    for site in sites:
+        for n, a in g.nodes(data=True):
+            if a["kind"] == "storage" and getattr(a.get("decl"), "site", None) == site:
+                for u in g.predecessors(n):
+                    if g.nodes[u]["kind"] == "inflow" and g.nodes[u].get("natural") and u not in placed:
+                        assets.append(u)
+                        placed.add(u)
+                assets.append(n)
+                placed.add(n)
+        for kind in ("inflow", "demand"):
+            for n, a in g.nodes(data=True):
+                if a["kind"] == kind and n not in placed and getattr(a.get("decl"), "site", None) == site:
+                    assets.append(n)
+                    placed.add(n)
+    assets += [n for n, a in g.nodes(data=True)
+               if a["kind"] not in ("connection", "site") and n not in placed]
+    pos = {n: (i + 0.5, 0.0) for i, n in enumerate(assets)}
+
+    def centre(n, below, fallback):
+        xs = [pos[m][0] for m in below if m in pos]
+        return sum(xs) / len(xs) if xs else fallback
+
+    for i, site in enumerate(sites):
+        below = [n for n in assets if _site_of(g, n) == site]
+        pos[site] = (centre(site, below, i + 0.5), 1.6)
+    for i, c in enumerate(conns):
+        below = [s for s in sites if getattr(g.nodes[s].get("decl"), "connection", None) == c]
+        pos[c] = (centre(c, below, i + 0.5), 3.2)
+    return pos
+
+
+def _site_of(g, n):
+    a = g.nodes[n]
+    site = getattr(a.get("decl"), "site", None)
+    if site is None:  # a natural inflow: the site of its storage
+        for m in g.successors(n):
+            return getattr(g.nodes[m].get("decl"), "site", None)
+    return site
+
+
+def draw(g: nx.MultiDiGraph, path: Path, title: str = "") -> None:
+    """Write an SVG or PNG picture (by the file's suffix)."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.lines import Line2D
+
+    pos = layout(g)
+    n_assets = max(sum(1 for _, a in g.nodes(data=True) if a["kind"] not in ("connection", "site")), 3)
+    fig, ax = plt.subplots(figsize=(min(4 + 1.6 * n_assets, 40), 7))
+    for key, (marker, colour, _) in NODE_STYLE.items():
+        nodes = [n for n, a in g.nodes(data=True) if _style_key(a) == key]
+        if nodes:
+            nx.draw_networkx_nodes(g, pos, nodelist=nodes, node_shape=marker, node_color=colour,
+                                   node_size=900, edgecolors="black", linewidths=0.8, ax=ax)
+    nx.draw_networkx_labels(g, pos, labels={n: n for n in g.nodes}, font_size=8,
+                            verticalalignment="top", ax=ax,
+                            bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
+    for group, (colour, style, _) in EDGE_STYLE.items():
+        edges = [(u, v, k) for u, v, k, a in g.edges(keys=True, data=True)
+                 if ("route" in a and group == "route") or _EDGE_GROUP.get(k) == group]
+        if not edges:
+            continue
+        rad = 0.25 if group in ("route", "grid", "store") else 0.0
+        style_arc = f"arc3,rad={rad}"
+        nx.draw_networkx_edges(g, pos, edgelist=[(u, v) for u, v, _ in edges], edge_color=colour,
+                               style=style, arrows=True, arrowsize=14, node_size=900,
+                               connectionstyle=style_arc, ax=ax)
+        labels = {}
+        for u, v, k in edges:
+            labels.setdefault((u, v), []).append(edge_label(k, g.edges[u, v, k]))
+        nx.draw_networkx_edge_labels(g, pos, edge_labels={e: "\n".join(t) for e, t in labels.items()},
+                                     font_size=6, ax=ax, label_pos=0.5, rotate=False,
+                                     connectionstyle=style_arc, font_color=colour,
+                                     bbox=dict(boxstyle="round,pad=0.1", fc="white", ec="none", alpha=0.85))
+    handles = [Line2D([], [], marker=m, color="white", markerfacecolor=c, markeredgecolor="black",
+                      markersize=10, label=w) for m, c, w in NODE_STYLE.values()]
+    handles += [Line2D([], [], color=c, linestyle=s, label=w) for c, s, w in EDGE_STYLE.values()]
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
+    ax.set_title(title or g.graph.get("name", ""), loc="left")
+    ax.axis("off")
+    fig.tight_layout()
+    _atomic(path, lambda tmp: fig.savefig(tmp, format=path.suffix[1:].lower(), dpi=150))
+    plt.close(fig)
+
+
+def to_dot(g: nx.MultiDiGraph) -> str:
+    """DOT text with the same colours and shapes, for those who use graphviz."""
+    import pydot
+
+    shapes = {"h": "hexagon", "s": "box", "o": "ellipse", "^": "triangle", "v": "invtriangle"}
+    d = pydot.Dot(graph_name=_dot_id(g.graph.get("name", "portfolio")), graph_type="digraph", rankdir="TB")
+    for n, a in g.nodes(data=True):
+        marker, colour, _ = NODE_STYLE[_style_key(a)]
+        d.add_node(pydot.Node(_dot_id(n), label=_quote(n), shape=shapes[marker], style="filled",
+                              fillcolor=_quote(colour), fontcolor=_quote("white" if a["kind"] == "connection" else "black")))
+    for u, v, k, a in g.edges(keys=True, data=True):
+        group = "route" if "route" in a else _EDGE_GROUP.get(k, "grid")
+        colour, style, _ = EDGE_STYLE[group]
+        d.add_edge(pydot.Edge(_dot_id(u), _dot_id(v), label=_quote(edge_label(k, a)), color=_quote(colour),
+                              style=style))
+    return d.to_string()
+
+
+def _dot_id(name: str) -> str:
+    return _quote(str(name))
+
+
+def _quote(text: str) -> str:
+    return '"' + str(text).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def write_picture(g: nx.MultiDiGraph, path: Path) -> None:
+    suffix = path.suffix.lower()
+    if suffix in (".svg", ".png"):
+        draw(g, path)
+    elif suffix in (".dot", ".gv"):
+        text = to_dot(g)
+        _atomic(path, lambda tmp: Path(tmp).write_text(text, "utf-8"))
+    else:
+        raise ValueError(f"cannot draw to '{path.name}': use a .svg, .png or .dot file name")
+
+
+def _atomic(path: Path, write) -> None:
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=path.parent or ".")
+    os.close(fd)
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise

@@ -66,6 +66,19 @@ def main() -> None:
     _write(pd.DataFrame({"time": stamp(h72), "mw": np.clip(river, 0, None)}),
            HERE / "glen_cascade/profiles/river.csv")
 
+    # ridge_and_river: four sites on two connections, 48 h at 30 min.
+    h48 = pd.date_range("2027-11-08T00:00", periods=96, freq="30min", tz="UTC")
+    _write(pd.DataFrame({"time": stamp(h48), "north": price_curve(h48, rng, base=62, swing=45),
+                         "valley": price_curve(h48, rng, base=58, swing=30)}),
+           HERE / "ridge_and_river/profiles/prices.csv")
+    _write(pd.DataFrame({"time": stamp(h48), "mw": solar_curve(h48, 12.0, rng)}),
+           HERE / "ridge_and_river/profiles/sunfield_pv.csv")
+    stream = 4 + 3 * np.exp(-((np.arange(96) - 40) ** 2) / 200) + rng.normal(0, 0.2, 96)
+    _write(pd.DataFrame({"time": stamp(h48), "mw": np.clip(stream, 0, None)}),
+           HERE / "ridge_and_river/profiles/stream.csv")
+    _write(pd.DataFrame({"time": stamp(h48), "mw": 1.2 + 0.6 * (h48.hour.isin(range(7, 19)))}),
+           HERE / "ridge_and_river/profiles/kiln_load.csv")
+
 
 if __name__ == "__main__":
     main()

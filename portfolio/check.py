@@ -29,6 +29,13 @@ from .series import SeriesSpec, load_series
 from .spans import Span
 
 MAX_STEPS = 1_000_000
+MIN_STEP_H = 1 / 3600  # one second
+
+
+def _unit_hint(unit: str) -> str:
+    """'mw' -> did you mean 'MW'? (units are case-sensitive: 'mW' is not 'MW')."""
+    same = [u for u in U.known_units() if u.casefold() == unit.casefold()]
+    return f"; did you mean '{same[0]}'?" if same else suggest(unit, U.known_units())
 
 
 def suggest(name: str, candidates) -> str:
@@ -48,7 +55,7 @@ ROUTE_RULES = {
 @dataclass
 class _Decl:
     """A name in the one shared namespace."""
-    kind: str           # "price", "demand", "inflow", "connection", "site", "storage", "preset", "profile"
+    kind: str           # "price", "demand", "inflow", "connection", "site", "storage", "preset"
     span: Span
     node: Tree = None
     extra: dict = field(default_factory=dict)
@@ -62,6 +69,7 @@ class Checker:
         self.names: Dict[str, _Decl] = {}
         self.presets: Dict[str, Tree] = {}
         self.used_presets: set = set()
+        self.circles: set = set()   # preset circles already reported
         self.specs: List[SeriesSpec] = []
         self.horizon: Optional[M.Horizon] = None
 
@@ -81,7 +89,7 @@ class Checker:
         sp = self.span(name)
         if str(name) in self.names:
             first = self.names[str(name)]
-            self.sink.add(DuplicateName, sp, f"'{name}' is already declared (as a {first.kind})",
+            self.sink.add(DuplicateName, sp, f"'{name}' is already declared (as {_a(first.kind)})",
                           f"note: first declared at {first.span}")
             return False
         self.names[str(name)] = _Decl(kind, sp, node)
@@ -104,7 +112,7 @@ class Checker:
                                   f"the number {number} for {what} needs a unit, e.g. {dims[0].example}")
                 else:
                     self.sink.add(UnknownUnit, where,
-                                  f"unknown unit '{bad}'{suggest(bad, U.known_units())}",
+                                  f"unknown unit '{bad}'{_unit_hint(bad)}",
                                   "note: units are MW, kW, GW, MWh, kWh, GWh, %, h, min, s, d and 'per' between them")
             else:
                 want = " or ".join(d.words for d in dims)
@@ -112,7 +120,7 @@ class Checker:
                               f"{what} must be {want}, e.g. {dims[0].example}; "
                               f"'{number} {U.written(unit, per)}' is {p}")
             return None
-        if not math.isfinite(value):
+        if not math.isfinite(value) or not math.isfinite(value * f):
             self.sink.add(OutOfRange, sp, f"{what} must be a finite number")
             return None
         return dim, float(f"{value * f:.12g}")  # 95 % -> 0.95, not 0.9500000000000001
@@ -223,7 +231,7 @@ class Checker:
                     if item.data == "storage":
                         for s in item.children[1:]:
                             if isinstance(s, Tree) and s.data == "inflow":
-                                self.declare(s.children[0], "profile", s)
+                                self.declare(s.children[0], "inflow", s)  # a storage's own inflow
 
     # -- horizon --------------------------------------------------------------------
     def check_horizon(self, node: Tree) -> Optional[M.Horizon]:
@@ -267,6 +275,9 @@ class Checker:
         if step_h <= 0:
             self.sink.add(OutOfRange, self.span(parts["h_step"]), "the step must be longer than zero")
             return None
+        if step_h < MIN_STEP_H:
+            self.sink.add(OutOfRange, self.span(parts["h_step"]), "the step must be at least one second")
+            return None
         if "h_length" in parts:
             got = self.quantity(parts["h_length"].children[0], (U.TIME,), "the horizon length")
             if got is None:
@@ -283,13 +294,22 @@ class Checker:
             self.sink.add(OutOfRange, lsp, "the horizon must end after it starts")
             return None
         steps = length_h / step_h
-        if abs(steps - round(steps)) > 1e-6:
+        if not math.isfinite(steps) or steps > MAX_STEPS + 0.5:
+            shown = f"{steps:.6g} steps" if math.isfinite(steps) else "too many steps"
+            self.sink.add(OutOfRange, lsp, f"the horizon has {shown}; at most {MAX_STEPS} are supported")
+            return None
+        if steps < 1 - 1e-6:
+            self.sink.add(HorizonMisfit, lsp, f"the horizon ({_fmt(length_h)} h) is shorter than one step ({_fmt(step_h)} h)")
+            return None
+        if abs(steps - round(steps)) > max(1e-6, 1e-9 * steps):  # relative: 1 min is 0.0166666666667 h
             self.sink.add(HorizonMisfit, lsp, f"the horizon ({_fmt(length_h)} h) is not a whole number of "
                           f"{_fmt(step_h * 60)}-minute steps ({steps:.3f})")
             return None
         steps = int(round(steps))
-        if steps > MAX_STEPS:
-            self.sink.add(OutOfRange, lsp, f"the horizon has {steps} steps; at most {MAX_STEPS} are supported")
+        try:
+            start + pd.Timedelta(hours=step_h * steps)
+        except (OverflowError, ValueError):
+            self.sink.add(OutOfRange, lsp, "the horizon ends too far in the future (after the year 2262)")
             return None
         return M.Horizon(start=start, steps=steps, step_hours=step_h, zone=zone, span=hsp)
 
@@ -360,9 +380,7 @@ class Checker:
             if got is None:
                 return None
             self.specs.append(SeriesSpec(name=nm, quantity=quantity, span=sp, constant=got[1],
-                                         values_span=self.span(src)))
-            if quantity == "power" and got[1] < 0:
-                self.sink.add(OutOfRange, self.span(src), f"'{nm}' is a power and must be zero or more")
+                                         values_span=self.span(src)))  # a negative power is P410 there
         return nm
 
     def unit_factor(self, node: Tree, dims, what) -> Optional[float]:
@@ -371,7 +389,7 @@ class Checker:
             return U.factor(unit, per, dims)[1]
         except U.UnitProblem as p:
             if p.kind == "unknown":
-                self.sink.add(UnknownUnit, self.span(node), f"unknown unit '{p}'{suggest(str(p), U.known_units())}")
+                self.sink.add(UnknownUnit, self.span(node), f"unknown unit '{p}'{_unit_hint(str(p))}")
             else:
                 self.sink.add(WrongDimension, self.span(node),
                               f"{what} must be in units of {dims[0].words}, e.g. {dims[0].example}; "
@@ -386,7 +404,7 @@ class Checker:
             self.sink.add(UnknownName, self.span(tok), f"unknown {what} '{nm}'{suggest(nm, pool)}")
             return None
         if d.kind not in want:
-            self.sink.add(WrongNameKind, self.span(tok), f"'{nm}' is a {d.kind}, not a {what}",
+            self.sink.add(WrongNameKind, self.span(tok), f"'{nm}' is {_a(d.kind)}, not {_a(what)}",
                           f"note: '{nm}' is declared at {d.span}")
             return None
         return nm
@@ -512,23 +530,30 @@ class Checker:
                         span=self.span(node), spans=spans)
 
     # -- presets and storages ------------------------------------------------------
-    def preset_settings(self, name: str, chain: Tuple[str, ...], at: Span) -> Optional[Dict[str, Tree]]:
+    def preset_settings(self, name: str, chain: Tuple[str, ...], at: Span,
+                        use: bool = True) -> Optional[Dict[str, Tree]]:
         node = self.presets.get(name)
         if node is None:
             return None
         if name in chain:
-            self.sink.add(LimitInconsistent, at, f"presets take each other in a circle: {' -> '.join(chain + (name,))}")
+            circle = frozenset(chain[chain.index(name):])
+            if circle not in self.circles:
+                self.circles.add(circle)
+                self.sink.add(LimitInconsistent, at, f"presets take each other in a circle: {' -> '.join(chain + (name,))}")
             return None
-        self.used_presets.add(name)
+        if use:
+            self.used_presets.add(name)
         merged: Dict[str, Tree] = {}
         rest = node.children[1:]
         if rest and isinstance(rest[0], Token):
             parent = self.ref(rest[0], ("preset",), "preset")
             if parent:
-                got = self.preset_settings(parent, chain + (name,), self.span(rest[0]))
+                got = self.preset_settings(parent, chain + (name,), self.span(rest[0]), use)
                 if got is None:
                     return None
                 merged.update(got)
+            else:
+                return None
             rest = rest[1:]
         own = self.storage_settings(rest, f"preset '{name}'")
         merged.update(own)
@@ -536,7 +561,7 @@ class Checker:
 
     def check_preset_chain(self, st: Tree) -> None:
         # Presets are checked through the storages that take them; a circle is reported once here.
-        self.preset_settings(str(st.children[0]), (), self.span(st.children[0]))
+        self.preset_settings(str(st.children[0]), (), self.span(st.children[0]), use=False)
 
     def storage_settings(self, nodes, what) -> Dict[str, Tree]:
         out: Dict[str, Tree] = {}
@@ -564,10 +589,12 @@ class Checker:
         settings: Dict[str, Tree] = {}
         if rest and isinstance(rest[0], Token):
             pname = self.ref(rest[0], ("preset",), "preset")
-            if pname:
-                got = self.preset_settings(pname, (), self.span(rest[0]))
-                if got:
-                    settings.update(got)
+            got = self.preset_settings(pname, (), self.span(rest[0])) if pname else None
+            if got is None:
+                # the preset is unknown or broken (reported): settings would be missing for no fault of this storage
+                self.storage_settings(rest[1:], f"storage '{nm}'")
+                return None
+            settings.update(got)
             rest = rest[1:]
         settings.update(self.storage_settings(rest, f"storage '{nm}'"))
         return StorageBuilder(self, nm, site, self.span(node), settings).build()
@@ -587,6 +614,7 @@ class Checker:
                 delay_h = got[1]
                 if delay_h < 0:
                     self.sink.add(OutOfRange, self.span(opts["delay"]), "the delay cannot be negative")
+                    delay_h = 0.0
             spans["delay_steps"] = self.span(opts["delay"])
         if "factor" in opts:
             f = float(opts["factor"].children[0].children[0])
@@ -629,6 +657,10 @@ class Checker:
             ok = True
             if step:
                 d = delay_h / step
+                if not d <= MAX_STEPS:
+                    self.sink.add(OutOfRange, r.where("delay_steps"), f"the delay of {_fmt(delay_h)} h is longer "
+                                  f"than any horizon can be ({MAX_STEPS} steps)")
+                    continue
                 if abs(d - round(d)) > 1e-6:
                     self.sink.add(DelayNotWhole, r.where("delay_steps"),
                                   f"the delay of {_fmt(delay_h)} h is not a whole number of {_fmt(step * 60)}-minute steps")
@@ -795,11 +827,11 @@ class StorageBuilder:
                 v[fld] = got[1]
                 if step:
                     n = got[1] / step
-                    if abs(n - round(n)) > 1e-6:
-                        sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
-                                 f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
                     if ck.horizon and n > ck.horizon.steps:
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} is longer than the whole horizon")
+                    elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
+                        sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
+                                 f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
         if v.get("min_rest_h", 0) > 0 and not v.get("exclusive", False):
             v["exclusive"] = True  # rest is idle time between runs of either mode
         if "ramp" in s:
@@ -901,6 +933,10 @@ _WORDS = {"h_start": "start", "h_end": "end", "h_length": "length", "h_step": "s
           "min_rest": "rest at least", "soc_min": "soc min", "soc_max": "soc max", "soc_start": "soc start",
           "soc_end": "soc end", "time_column": "time column", "csv_unit": "unit", "route_max": "max",
           "route_efficiency": "efficiency", "in_transit": "in transit", "direction_exclusive": "direction exclusive"}
+
+
+def _a(word: str) -> str:
+    return ("an " if word[:1] in "aeiou" else "a ") + word
 
 
 def _word(key: str) -> str:

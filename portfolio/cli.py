@@ -16,8 +16,7 @@ from typing import List, Optional
 
 from . import __version__
 from .api import lint_file
-from .diagnostics import (EXIT_ERRORS, EXIT_INFEASIBLE, EXIT_NO_SCHEDULE, EXIT_OK, EXIT_SOLVER,
-                          EXIT_UNBOUNDED, EXIT_USAGE, REGISTRY, Report)
+from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
 from .render import format_json, format_text
 
 CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
@@ -181,18 +180,8 @@ def cmd_graph(args, out, err) -> int:
 
 # ---- dispatch ---------------------------------------------------------------------
 
-STATUS_EXIT = {
-    "optimal": EXIT_OK,
-    "feasible": EXIT_OK,
-    "infeasible": EXIT_INFEASIBLE,
-    "unbounded": EXIT_UNBOUNDED,
-    "no_schedule": EXIT_NO_SCHEDULE,
-    "error": EXIT_SOLVER,
-}
-
-
 def cmd_dispatch(args, out, err) -> int:
-    from .dispatch import dispatch
+    from .dispatch import dispatch, exit_code
     from .solve import SolveOptions
 
     r = lint_file(args.file)
@@ -236,7 +225,7 @@ def cmd_dispatch(args, out, err) -> int:
             print(f"caution: {CAUTION}", file=out)
     else:
         _explain_failure(result, err)
-    return STATUS_EXIT.get(status, EXIT_SOLVER)
+    return exit_code(status)
 
 
 def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
@@ -271,10 +260,11 @@ def _explain_failure(result, err) -> None:
     relaxed = getattr(result, "relaxed", None) or []
     if relaxed:
         print("these limits had to give for a schedule to exist (largest first):", file=err)
-        for item in relaxed[:20]:
-            span, text = item[0], item[1]
-            amount = f" (by {item[2]:.6g})" if len(item) > 2 else ""
-            print(f"  {span}: {text}{amount}", file=err)
+        for r in relaxed[:20]:
+            first = f", first at {r.first.isoformat()}" if getattr(r, "first", None) is not None else ""
+            print(f"  {r.span}: {r.description} (by {r.amount:.6g} over {r.steps} step(s){first})", file=err)
+        if len(relaxed) > 20:
+            print(f"  ... and {len(relaxed) - 20} more", file=err)
 
 
 def _print_assets(result, out) -> None:
@@ -283,13 +273,14 @@ def _print_assets(result, out) -> None:
 
     console = Console(file=out, width=120, highlight=False)
     summary = result.summary
-    for group in ("connections", "sites", "storages", "inflows", "routes"):
+    for group in ("connections", "sites", "storages", "inflows", "demands", "routes"):
         rows = summary.get(group) or {}
         if not rows:
             continue
         cols = [c for c in ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
                             "curtailed_mwh", "spilled_mwh", "in_transit_end_mwh")
-                if any(c in v for v in rows.values())]
+                if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
+                or (c == "revenue" and any(c in v for v in rows.values()))]
         table = Table(title=group, title_justify="left", show_edge=False)
         table.add_column("name")
         for c in cols:
@@ -308,31 +299,55 @@ def _num(x) -> str:
 
 
 class _Progress:
-    """Feedback on stderr while a solve runs longer than a couple of seconds."""
+    """Feedback on stderr once a solve has run for a couple of seconds.
+
+    A timer starts a spinner after ``after`` seconds (LPs report nothing while
+    they run); MIP solves also update it with the best objective and gap.
+    """
 
     def __init__(self, err, quiet=False, after=2.0):
-        self.err, self.quiet, self.after = err, quiet, after
+        import threading
+
+        self.err, self.quiet = err, quiet
         self.start = time.monotonic()
         self.status = None
+        self.text = "solving..."
+        self.lock = threading.Lock()
+        self.timer = None
+        if not quiet:
+            self.timer = threading.Timer(after, self._show)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def _show(self):
+        from rich.console import Console
+
+        with self.lock:
+            if self.status is None and self.timer is not None:
+                self.status = Console(file=self.err).status(self.text)
+                self.status.start()
 
     def __call__(self, elapsed, objective=None, bound=None, gap=None):
-        if self.quiet or elapsed < self.after:
+        if self.quiet:
             return
         text = f"solving... {elapsed:.0f} s"
         if objective is not None:
             text += f"  best {objective:,.2f}"
         if gap is not None:
             text += f"  gap {gap * 100:.3g} %"
-        if self.status is None:
-            from rich.console import Console
-            self.status = Console(file=self.err).status(text)
-            self.status.start()
-        else:
-            self.status.update(text)
+        with self.lock:
+            self.text = text
+            if self.status is not None:
+                self.status.update(text)
 
     def close(self):
-        if self.status is not None:
-            self.status.stop()
+        with self.lock:
+            if self.timer is not None:
+                self.timer.cancel()
+                self.timer = None
+            if self.status is not None:
+                self.status.stop()
+                self.status = None
 
 
 def run() -> None:  # console-script entry point

@@ -186,7 +186,7 @@ SeriesEmpty = _kind("P409", ERROR, "a series file has no data rows", "SeriesEmpt
 SeriesNegative = _kind("P410", ERROR, "a power profile has negative values", "SeriesNegative")
 
 # --- P5xx: topology -----------------------------------------------------------
-NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection", "NoPathToGrid")
+NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection or demand", "NoPathToGrid")
 ZeroDelayCycle = _kind("P502", ERROR, "routes form a cycle with zero total delay", "ZeroDelayCycle")
 NowhereToGo = _kind("P503", WARNING, "a non-curtailable inflow may have nowhere to go (likely infeasible)", "NowhereToGo")
 RouteKindMismatch = _kind("P504", ERROR, "a route joins storages that cannot exchange what it carries", "RouteKindMismatch")

@@ -70,9 +70,10 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                 sink.add(InflowTargetElsewhere, i.where("targets"),
                          f"inflow '{i.name}' at site '{i.site}' cannot flow into '{t}', which is at site "
                          f"'{p.storages[t].site}'", "note: an inflow feeds its own site or storages there; use a route between storages")
-    # Reachability: walk backwards from every connection once.
+    # Reachability: walk backwards once from every connection and demand (a battery
+    # behind an import-only connection may still serve its site's demand).
     reach = set()
-    todo = deque(n for n, a in g.nodes(data=True) if a["kind"] == "connection")
+    todo = deque(n for n, a in g.nodes(data=True) if a["kind"] in ("connection", "demand"))
     reach.update(todo)
     while todo:
         n = todo.popleft()
@@ -82,11 +83,12 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                 todo.append(u)
     for k in p.storages.values():
         if k.name not in reach:
-            sink.add(NoPathToGrid, k.span, f"storage '{k.name}' has no path to any connection: what it holds can never be sold",
+            sink.add(NoPathToGrid, k.span, f"storage '{k.name}' has no path to any connection or demand: "
+                     "what it holds can never be used",
                      "note: give it a 'discharge max', a route to a storage that can discharge, or open its site's export")
     for n, a in g.nodes(data=True):
         if a["kind"] == "inflow" and n not in reach:
-            sink.add(NoPathToGrid, a["span"], f"inflow '{n}' has no path to any connection")
+            sink.add(NoPathToGrid, a["span"], f"inflow '{n}' has no path to any connection or demand")
     # Zero-delay route cycles.
     zero = nx.DiGraph()
     for u, v, key, a in g.edges(keys=True, data=True):

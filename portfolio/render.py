@@ -5,7 +5,9 @@ Only the CLI calls this module; the library itself never prints.
 
 from __future__ import annotations
 
+import io
 import json
+import os
 from functools import lru_cache
 from pathlib import Path
 from typing import Dict, Iterable, List, Optional
@@ -13,17 +15,32 @@ from typing import Dict, Iterable, List, Optional
 from .diagnostics import Diagnostic
 
 
+def _split(text: str, path: str) -> List[str]:
+    """Lines as the stage that made the span counts them."""
+    if path.endswith(".folio") or "." not in Path(path).name:
+        return [ln.rstrip("\r") for ln in text.split("\n")]   # the parser: only '\n' ends a line
+    return [ln.rstrip("\r\n") for ln in io.StringIO(text, newline="")]  # CSV: \r, \n or \r\n
+
+
 @lru_cache(maxsize=64)
-def _lines_of(path: str) -> Optional[List[str]]:
+def _cached_lines(path: str, mtime_ns: int, size: int) -> Optional[List[str]]:
     try:
-        return Path(path).read_text("utf-8-sig", errors="replace").splitlines()
+        return _split(Path(path).read_text("utf-8-sig", errors="replace"), path)
     except OSError:
         return None
 
 
+def _lines_of(path: str) -> Optional[List[str]]:
+    try:
+        st = os.stat(path)   # part of the cache key: a file rewritten in place is read again
+    except OSError:
+        return None
+    return _cached_lines(path, st.st_mtime_ns, st.st_size)
+
+
 def source_line(path: str, line: int, texts: Optional[Dict[str, str]] = None) -> Optional[str]:
     if texts and path in texts:
-        lines = texts[path].splitlines()
+        lines = _split(texts[path], path)
     else:
         lines = _lines_of(path)
     if not lines or not 1 <= line <= len(lines):
@@ -38,7 +55,7 @@ def format_text(d: Diagnostic, texts: Optional[Dict[str, str]] = None, context: 
     if context:
         src = source_line(sp.path, sp.line, texts)
         if src is not None and not (sp.line == 1 and sp.col == 1 and sp.end_col == 1):
-            src = src.replace("\t", " ")
+            src = "".join(c if c.isprintable() else " " for c in src)  # tabs, U+2028...: one column each
             end = sp.end_col if sp.end_line == sp.line else len(src) + 1
             width = max(1, min(end, len(src) + 1) - sp.col)
             gutter = f"{sp.line:>5} | "

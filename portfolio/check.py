@@ -832,6 +832,10 @@ class StorageBuilder:
                     elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
                                  f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
+        if v.get("min_run_h", 0) > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
+            sink.add(UnusedSetting, self.sp("min_run"),
+                     f"'run at least' has no effect on '{nm}' without a minimum output: a run may go on at 0 MW",
+                     "note: add 'min P when running' to 'charge max' or 'discharge max'")
         if v.get("min_rest_h", 0) > 0 and not v.get("exclusive", False):
             v["exclusive"] = True  # rest is idle time between runs of either mode
         if "ramp" in s:

@@ -1,0 +1,29 @@
+"""Objective: the money the portfolio makes over the horizon.
+
+    maximise  sum_t dt * sum_c (sell[c,t] * conn_export[c,t] - buy[c,t] * conn_import[c,t])
+              - sum_t dt * sum_k wear[k] * d[k,t]
+
+sell/buy are the connections' price expressions (money per MWh); wear is
+money per MWh discharged (grid side).  In relax mode the objective is
+instead the total slack (minimised), see :mod:`portfolio.compile.context`.
+"""
+
+from __future__ import annotations
+
+from ..context import Ctx
+
+
+def build(ctx: Ctx) -> None:
+    p = ctx.p
+    dt = ctx.dt
+    terms = []
+    for cname, c in p.connections.items():
+        sell = p.price(c.sell)
+        buy = p.price(c.buy)
+        for t in ctx.steps:
+            terms.append((dt * float(sell[t]), ctx.v("conn_export", cname, t)))
+            terms.append((-dt * float(buy[t]), ctx.v("conn_import", cname, t)))
+    for k, s in p.storages.items():
+        if s.wear and ctx.has("discharge", k):
+            terms += [(-dt * s.wear, ctx.v("discharge", k, t)) for t in ctx.steps]
+    ctx.objective(terms)

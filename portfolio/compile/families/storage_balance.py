@@ -1,0 +1,71 @@
+"""Energy balance of every storage, state-of-charge bounds, start and end.
+
+soc[k,t] is the content at the END of step t; soc[k,-1] = soc_start.
+With a = (1 - loss_per_h) ** dt (the loss applies to the content carried
+into a step), c = total charge (bus draw plus direct inflows), d = discharge,
+q = spill, n = natural inflow (MW, the storage's inflow series):
+
+    soc[t] = a*soc[t-1] + eta_charge*c[t]*dt - d[t]*dt/eta_discharge - q[t]*dt
+             + n[t]*dt + routes_in[t] - transfers_out[t]
+                                              (family ``storage_balance``, identity)
+
+    soc_min <= soc[t] <= soc_max              (families ``soc_min``, ``soc_max``)
+    end rule:  at_least: soc[T-1] >= end_value;  equal: soc[T-1] = end_value
+                                              (family ``end_rule``)
+
+routes_in / transfers_out come from :mod:`.routes` (MWh per step).  Natural
+inflow cannot be curtailed: a full store must spill it (infeasible when spill
+is not allowed, which the relaxation then reports).
+"""
+
+from __future__ import annotations
+
+from ...model import END_AT_LEAST, END_EQUAL
+from ..context import Ctx, Origin
+from ._common import charge_terms, discharge_terms, fmt
+
+
+def build(ctx: Ctx) -> None:
+    p = ctx.p
+    dt = ctx.dt
+    route_in = ctx.expr["route_in"]
+    route_send = ctx.expr["route_send"]
+    for k, s in p.storages.items():
+        a = (1.0 - s.loss_per_h) ** dt
+        natural = p.profile(s.inflow) if s.inflow is not None else None
+        o = Origin(s.span, f'energy balance of storage "{k}"')
+        for t in ctx.steps:
+            terms = [(1.0, ctx.v("soc", k, t))]
+            const = 0.0
+            if t > 0:
+                terms.append((-a, ctx.v("soc", k, t - 1)))
+            else:
+                const = a * s.soc_start
+            terms += charge_terms(ctx, k, t, -s.eta_charge * dt)
+            terms += discharge_terms(ctx, k, t, dt / s.eta_discharge)
+            if ctx.has("spill", k):
+                terms.append((dt, ctx.v("spill", k, t)))
+            if natural is not None:
+                const += float(natural[t]) * dt
+            rin, rconst = route_in[k](t)
+            terms += [(-c, v) for c, v in rin]
+            const += rconst
+            terms += route_send[k](t)
+            # soc - (inflows) = const  ->  rhs = const
+            ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=o,
+                    relaxable=False)
+        smax = s.soc_max
+        omax = Origin(s.where("soc_max") if "soc_max" in s.spans else s.where("energy"),
+                      f'upper state-of-charge limit of storage "{k}" ({fmt(smax)} MWh)')
+        omin = Origin(s.where("soc_min"),
+                      f'lower state-of-charge limit of storage "{k}" ({fmt(s.soc_min)} MWh)')
+        for t in ctx.steps:
+            ctx.bound("soc_max", "soc", k, t, hi=smax, origin=omax)
+            if s.soc_min > 0:
+                ctx.bound("soc_min", "soc", k, t, lo=s.soc_min, origin=omin)
+        if ctx.T and s.end_rule in (END_AT_LEAST, END_EQUAL):
+            where = s.where("end_value") if "end_value" in s.spans else s.where("end_rule")
+            word = "at least" if s.end_rule == END_AT_LEAST else "exactly"
+            o = Origin(where, f'storage "{k}" must end with {word} {fmt(s.end_value)} MWh')
+            hi = s.end_value if s.end_rule == END_EQUAL else None
+            ctx.bound("end_rule", "soc", k, ctx.T - 1, lo=s.end_value, hi=hi, origin=o)

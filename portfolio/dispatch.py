@@ -1,0 +1,188 @@
+"""Dispatch a checked portfolio: compile, solve, explain, tabulate.
+
+``dispatch(p)`` returns a :class:`DispatchResult`; it never raises for a
+portfolio that cannot be scheduled (that is a status) and never prints.
+
+When the portfolio is infeasible (or HiGHS cannot tell infeasible from
+unbounded), it is compiled again in relax mode: every limit and rule gets a
+non-negative slack and the total slack is minimised.  The limits whose slack
+is non-zero are returned in ``relaxed``, largest first, each with the Span
+of the setting that imposed it.  Zero total slack means the portfolio was
+feasible after all, so the status is ``unbounded``.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field, replace
+from typing import Dict, List, Optional
+
+import numpy as np
+import pandas as pd
+
+from . import diagnostics as dg
+from .compile import Built, build
+from .model import Portfolio
+from .schedule import CAUTION, build_tables, wide
+from .solve import (ERROR, FEASIBLE, INFEASIBLE, INFEASIBLE_OR_UNBOUNDED, NO_SCHEDULE, OPTIMAL,
+                    UNBOUNDED, Progress, SolveOptions, solve)
+from .spans import Span
+
+SLACK_TOL = 1e-6
+
+EXIT_CODES = {
+    OPTIMAL: dg.EXIT_OK,
+    FEASIBLE: dg.EXIT_OK,
+    INFEASIBLE: dg.EXIT_INFEASIBLE,
+    UNBOUNDED: dg.EXIT_UNBOUNDED,
+    NO_SCHEDULE: dg.EXIT_NO_SCHEDULE,
+    ERROR: dg.EXIT_SOLVER,
+}
+
+
+def exit_code(status: str) -> int:
+    """The CLI exit code for a dispatch status (docs/model.md)."""
+    return EXIT_CODES.get(status, dg.EXIT_SOLVER)
+
+
+@dataclass(frozen=True)
+class Relaxation:
+    """A limit or rule that had to give for the portfolio to be feasible."""
+
+    span: Span
+    description: str
+    family: str
+    amount: float                  # total slack (MW or MWh, summed over steps)
+    steps: int                     # number of steps where it gives
+    first: Optional[pd.Timestamp]  # first step start where it gives
+
+    def to_dict(self) -> dict:
+        return {"path": self.span.path, "line": self.span.line, "column": self.span.col,
+                "end_line": self.span.end_line, "end_column": self.span.end_col,
+                "family": self.family, "description": self.description,
+                "amount": self.amount, "steps": self.steps,
+                "first": self.first.isoformat() if self.first is not None else None}
+
+    def __str__(self) -> str:
+        return f"{self.span}: {self.description} (gives {self.amount:g} over {self.steps} step(s))"
+
+
+@dataclass
+class DispatchResult:
+    status: str
+    objective: Optional[float]
+    best_bound: Optional[float]
+    mip_gap: Optional[float]
+    build_seconds: float
+    solve_seconds: float
+    schedule: Optional[pd.DataFrame]
+    tables: Dict[str, pd.DataFrame]
+    summary: dict
+    relaxed: List[Relaxation] = field(default_factory=list)
+    message: str = ""
+    handoff_seconds: float = 0.0
+    portfolio: Optional[Portfolio] = field(default=None, repr=False)
+    built: Optional[Built] = field(default=None, repr=False)
+
+    @property
+    def has_schedule(self) -> bool:
+        return self.schedule is not None
+
+    @property
+    def exit_code(self) -> int:
+        return exit_code(self.status)
+
+    def write(self, out_dir, formats=("csv",)):
+        """Write the output folder atomically (see :func:`portfolio.writers.write`)."""
+        from .writers import write
+        return write(self, out_dir, formats=formats)
+
+
+def _explain(p: Portfolio, options: SolveOptions, index) -> tuple:
+    """Relax-mode solve: (list of Relaxation, total slack) or (None, None)."""
+    rb = build(p, variant=options.variant, relax=True)
+    rs = solve(rb, replace(options, explain_infeasible=False))
+    if not rs.solved:
+        return None, None
+    s = np.asarray(rs.values.get("slack", np.zeros(0)), dtype=float)
+    acc: Dict[tuple, list] = {}
+    for val, (family, oi, _side, key) in zip(s, rb.slack_info):
+        if val <= SLACK_TOL or oi < 0:
+            continue
+        entry = acc.setdefault((family, oi), [0.0, set()])
+        entry[0] += float(val)
+        t = key[-1] if isinstance(key, tuple) else key
+        if isinstance(t, (int, np.integer)):
+            entry[1].add(int(t))
+    out = []
+    for (family, oi), (amount, steps) in acc.items():
+        origin = rb.origins[family][oi]
+        first = index[min(steps)] if steps else None
+        out.append(Relaxation(origin.span, origin.description, family, amount, len(steps), first))
+    out.sort(key=lambda r: (-r.amount, r.span, r.family))
+    return out, float(s.sum())
+
+
+def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
+             progress: Optional[Progress] = None) -> DispatchResult:
+    """Schedule ``p``; see the module docstring."""
+    options = options or SolveOptions()
+    built = build(p, variant=options.variant)
+    sol = solve(built, options, progress)
+    status = sol.status
+    relaxed: List[Relaxation] = []
+    message = sol.message
+    index = p.horizon.index
+    if status == INFEASIBLE_OR_UNBOUNDED or (status == INFEASIBLE and options.explain_infeasible):
+        t0 = time.perf_counter()
+        found, total = _explain(p, options, index)
+        if found is None:
+            status = INFEASIBLE if status == INFEASIBLE else ERROR
+            message = message or "the solver could not tell infeasible from unbounded"
+        elif not found:
+            status = UNBOUNDED if status == INFEASIBLE_OR_UNBOUNDED else INFEASIBLE
+        else:
+            status = INFEASIBLE
+            relaxed = found
+        explain_s = time.perf_counter() - t0
+    else:
+        explain_s = 0.0
+    if status == INFEASIBLE_OR_UNBOUNDED:
+        status = INFEASIBLE
+
+    tables: Dict[str, pd.DataFrame] = {}
+    schedule = None
+    parts: dict = {}
+    if status in (OPTIMAL, FEASIBLE) and sol.solved:
+        tables, parts = build_tables(built, sol.values)
+        schedule = wide(tables, pd.DatetimeIndex(index, name="time"))
+
+    summary = {
+        "status": status,
+        "objective": sol.objective if schedule is not None else None,
+        "best_bound": sol.best_bound if schedule is not None else None,
+        "mip_gap": sol.mip_gap if schedule is not None else None,
+        "build_seconds": built.build_seconds,
+        "solve_seconds": sol.solve_seconds,
+        "handoff_seconds": sol.handoff_seconds,
+        "explain_seconds": explain_s,
+        "steps": built.steps,
+        "step_hours": built.step_hours,
+        "start": p.horizon.start.isoformat(),
+        "zone": p.horizon.zone,
+        "portfolio": p.name,
+        "variant": options.variant,
+        "caution": CAUTION,
+    }
+    summary.update(parts)
+    summary["relaxed"] = [r.to_dict() for r in relaxed]
+    if message:
+        summary["message"] = message
+    return DispatchResult(
+        status=status,
+        objective=summary["objective"], best_bound=summary["best_bound"],
+        mip_gap=summary["mip_gap"],
+        build_seconds=built.build_seconds, solve_seconds=sol.solve_seconds,
+        schedule=schedule, tables=tables, summary=summary, relaxed=relaxed,
+        message=message, handoff_seconds=sol.handoff_seconds, portfolio=p, built=built,
+    )

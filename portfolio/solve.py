@@ -1,0 +1,436 @@
+"""Solve a compiled portfolio with HiGHS.
+
+Two hand-off paths from the Pyomo model to HiGHS:
+
+* ``interface="matrix"`` (default, the fast one): Pyomo's
+  ``LinearStandardFormCompiler`` turns the model into a SciPy CSC matrix
+  plus bound vectors, which go to ``highspy.Highs.passModel`` in one call
+  (integrality included).  The solution comes back as one NumPy array and is
+  sliced per variable family.
+* ``interface="pyomo"``: Pyomo's newer persistent ``highs`` interface
+  (``pyomo.contrib.solver``), kept so that a benchmark can compare.
+
+HiGHS output is switched off; the library never prints.  Progress goes to
+an optional ``progress(elapsed_s, best_objective, best_bound, gap)``
+callable.
+
+Our status set (``STATUSES``) is mapped from ``highspy.HighsModelStatus`` by
+the single table ``HIGHS_STATUS``.  Two entries there are not final:
+``LIMIT`` (a time, iteration, solution or memory limit or an interrupt)
+becomes ``feasible`` when an incumbent exists and ``no_schedule`` when not;
+``INFEASIBLE_OR_UNBOUNDED`` is resolved by :mod:`portfolio.dispatch`, which
+re-solves with slacks (zero total slack means unbounded).
+"""
+
+from __future__ import annotations
+
+import gc
+import math
+import os
+import sys
+import threading
+import time
+from dataclasses import dataclass, field
+from typing import Callable, Dict, List, Optional
+
+import highspy
+import numpy as np
+
+OPTIMAL = "optimal"
+FEASIBLE = "feasible"
+INFEASIBLE = "infeasible"
+UNBOUNDED = "unbounded"
+NO_SCHEDULE = "no_schedule"
+ERROR = "error"
+STATUSES = (OPTIMAL, FEASIBLE, INFEASIBLE, UNBOUNDED, NO_SCHEDULE, ERROR)
+
+# Not final: resolved as described in the module docstring.
+LIMIT = "limit"
+INFEASIBLE_OR_UNBOUNDED = "infeasible_or_unbounded"
+
+_S = highspy.HighsModelStatus
+HIGHS_STATUS: Dict[object, str] = {
+    _S.kOptimal: OPTIMAL,
+    _S.kModelEmpty: OPTIMAL,           # nothing to decide: the empty schedule is optimal
+    _S.kInfeasible: INFEASIBLE,
+    _S.kUnbounded: UNBOUNDED,
+    _S.kUnboundedOrInfeasible: INFEASIBLE_OR_UNBOUNDED,
+    _S.kTimeLimit: LIMIT,
+    _S.kIterationLimit: LIMIT,
+    _S.kSolutionLimit: LIMIT,
+    _S.kObjectiveBound: LIMIT,
+    _S.kObjectiveTarget: LIMIT,
+    _S.kInterrupt: LIMIT,
+    _S.kHighsInterrupt: LIMIT,
+    _S.kMemoryLimit: LIMIT,
+    _S.kUnknown: LIMIT,                # stopped without proof; an incumbent may exist
+    _S.kNotset: ERROR,
+    _S.kLoadError: ERROR,
+    _S.kModelError: ERROR,
+    _S.kPresolveError: ERROR,
+    _S.kSolveError: ERROR,
+    _S.kPostsolveError: ERROR,
+}
+
+INTERFACES = ("matrix", "pyomo")
+VARIANTS = ("tight", "plain")
+
+
+@dataclass(frozen=True)
+class SolveOptions:
+    """How to solve.
+
+    time_limit: seconds of solver time (None: no limit).
+    mip_gap:    relative MIP gap at which HiGHS stops, |primal - bound| /
+                |primal| (HiGHS ``mip_rel_gap``); 1e-4 = 0.01 %.
+    threads:    HiGHS threads (None: HiGHS' default).
+    variant:    "tight" (start/stop formulation, one binary for plain
+                exclusivity) or "plain" (naive two-binary big-M, benchmarks).
+    interface:  "matrix" (standard-form compiler -> passModel) or "pyomo"
+                (Pyomo's ``highs`` interface).
+    explain_infeasible: re-solve with slacks when infeasible (fills
+                ``DispatchResult.relaxed``).
+    """
+
+    time_limit: Optional[float] = None
+    mip_gap: float = 1e-4
+    threads: Optional[int] = None
+    variant: str = "tight"
+    interface: str = "matrix"
+    explain_infeasible: bool = True
+
+    def __post_init__(self):
+        if self.time_limit is not None and not (self.time_limit > 0):
+            raise ValueError(f"time_limit must be positive seconds, got {self.time_limit!r}")
+        if not (0 <= self.mip_gap < 1):
+            raise ValueError(f"mip_gap must be a fraction in [0, 1), got {self.mip_gap!r}")
+        if self.threads is not None and (not isinstance(self.threads, int) or self.threads < 1):
+            raise ValueError(f"threads must be a positive integer, got {self.threads!r}")
+        if self.variant not in VARIANTS:
+            raise ValueError(f"variant must be one of {VARIANTS}, got {self.variant!r}")
+        if self.interface not in INTERFACES:
+            raise ValueError(f"interface must be one of {INTERFACES}, got {self.interface!r}")
+
+
+@dataclass
+class Solution:
+    status: str
+    objective: Optional[float] = None
+    best_bound: Optional[float] = None
+    mip_gap: Optional[float] = None
+    values: Dict[str, np.ndarray] = field(default_factory=dict)
+    handoff_seconds: float = 0.0      # Pyomo model -> solver (incl. compile)
+    solve_seconds: float = 0.0        # inside HiGHS
+    load_seconds: float = 0.0         # solution -> arrays / Pyomo values
+    highs_status: str = ""
+    message: str = ""
+    solved: bool = False              # a primal solution is in ``values``
+
+
+Progress = Callable[[float, Optional[float], Optional[float], Optional[float]], None]
+
+# --- HiGHS prints a banner to the C stdout the first time a Highs object is
+# created in a process.  Create that first one with fd 1 pointed at /dev/null.
+_banner_lock = threading.Lock()
+_banner_done = False
+
+
+def _quiet_banner() -> None:
+    global _banner_done
+    with _banner_lock:
+        if _banner_done:
+            return
+        try:
+            sys.stdout.flush()
+        except Exception:  # pragma: no cover - closed stdout
+            pass
+        saved = None
+        try:
+            saved = os.dup(1)
+            null = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(null, 1)
+            os.close(null)
+        except OSError:  # pragma: no cover - no fd 1
+            saved = None
+        try:
+            h = highspy.Highs()
+            h.setOptionValue("output_flag", False)
+            del h
+        finally:
+            if saved is not None:
+                os.dup2(saved, 1)
+                os.close(saved)
+            _banner_done = True
+
+
+_threads_lock = threading.Lock()
+_threads_in_use: List[Optional[int]] = [None]
+
+
+def _use_threads(threads: Optional[int]) -> None:
+    """HiGHS keeps one global thread pool, sized by the first solve; a
+    different ``threads`` later is an error unless the pool is reset."""
+    with _threads_lock:
+        if threads != _threads_in_use[0]:
+            highspy.Highs.resetGlobalScheduler(True)
+            _threads_in_use[0] = threads
+
+
+def new_highs(options: SolveOptions) -> highspy.Highs:
+    _quiet_banner()
+    _use_threads(options.threads)
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    h.setOptionValue("mip_rel_gap", float(options.mip_gap))
+    if options.time_limit is not None:
+        h.setOptionValue("time_limit", float(options.time_limit))
+    if options.threads is not None:
+        h.setOptionValue("threads", int(options.threads))
+    return h
+
+
+def _finite(x) -> Optional[float]:
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+# --- the matrix path -----------------------------------------------------------
+
+def to_standard_form(model):
+    """Pyomo model -> (HighsLp, columns, is_mip) via the standard-form compiler."""
+    from pyomo.repn.plugins.standard_form import LinearStandardFormCompiler
+
+    info = LinearStandardFormCompiler().write(model, mixed_form=True, set_sense=None)
+    inf = highspy.kHighsInf
+    A = info.A.tocsc()
+    rhs = np.asarray(info.rhs, dtype=float)
+    ops = np.fromiter((r.bound_type for r in info.rows), dtype=np.int8, count=len(info.rows))
+    lower = np.where(ops == 1, -inf, rhs)
+    upper = np.where(ops == -1, inf, rhs)
+    # A ranged constraint comes out as two rows (<= then >=) with the same
+    # coefficients: fold them into one HiGHS row with both bounds.
+    if len(ops) > 1:
+        cons = [r.constraint for r in info.rows]
+        dup = np.zeros(len(ops), dtype=bool)
+        for i in np.nonzero((ops[1:] == -1) & (ops[:-1] == 1))[0] + 1:
+            if cons[i] is cons[i - 1]:
+                dup[i] = True
+        if dup.any():
+            idx = np.nonzero(dup)[0]
+            lower[idx - 1] = rhs[idx]
+            keep = ~dup
+            A = A[keep, :].tocsc()
+            lower, upper = lower[keep], upper[keep]
+    columns = info.columns
+    n = len(columns)
+    col_lower = np.fromiter((-inf if v.lb is None else v.lb for v in columns), dtype=float, count=n)
+    col_upper = np.fromiter((inf if v.ub is None else v.ub for v in columns), dtype=float, count=n)
+    integer = np.fromiter((v.is_integer() for v in columns), dtype=bool, count=n)
+    cost = np.zeros(n)
+    if info.c.shape[0]:
+        cost = np.asarray(info.c[[0], :].toarray()).ravel()
+    offset = float(info.c_offset[0]) if len(info.c_offset) else 0.0
+    sense = info.objectives[0].sense if info.objectives else 1
+
+    lp = highspy.HighsLp()
+    lp.num_col_ = n
+    lp.num_row_ = A.shape[0]
+    lp.col_cost_ = cost
+    lp.col_lower_ = col_lower
+    lp.col_upper_ = col_upper
+    lp.row_lower_ = lower
+    lp.row_upper_ = upper
+    lp.offset_ = offset
+    lp.sense_ = highspy.ObjSense.kMaximize if int(sense) == -1 else highspy.ObjSense.kMinimize
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.num_col_ = n
+    lp.a_matrix_.num_row_ = A.shape[0]
+    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = A.indices.astype(np.int32)
+    lp.a_matrix_.value_ = A.data.astype(float)
+    if integer.any():
+        lp.integrality_ = [highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
+                           for i in integer]
+    return lp, columns, bool(integer.any())
+
+
+def _values_by_family(built, columns, x: np.ndarray) -> Dict[str, np.ndarray]:
+    pos = {id(v): i for i, v in enumerate(columns)}
+    out = {}
+    names = list(built.var_keys) + (["slack"] if built.relax else [])
+    for name in names:
+        var = getattr(built.model, name, None)
+        if var is None:
+            continue
+        datas = list(var.values())
+        idx = np.fromiter((pos.get(id(vd), -1) for vd in datas), dtype=np.int64, count=len(datas))
+        vals = np.where(idx >= 0, x[np.maximum(idx, 0)] if len(x) else 0.0, np.nan)
+        missing = np.nonzero(idx < 0)[0]
+        for i in missing:   # in no row and no objective: any value in bounds; take the lowest >= 0
+            vd = datas[i]
+            lo = vd.lb if vd.lb is not None else 0.0
+            vals[i] = max(lo, 0.0) if vd.ub is None or vd.ub >= 0 else vd.ub
+        out[name] = vals
+    return out
+
+
+def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
+    t0 = time.perf_counter()
+    was_enabled = gc.isenabled()
+    gc.disable()          # as in compile.build: no cycles to collect, much faster
+    try:
+        lp, columns, is_mip = to_standard_form(built.model)
+    finally:
+        if was_enabled:
+            gc.enable()
+    h = new_highs(options)
+    h.passModel(lp)
+    handoff = time.perf_counter() - t0
+
+    failure: List[BaseException] = []
+    if progress is not None and is_mip:
+        last = [-1e9]
+        start = time.perf_counter()
+
+        def report(e, force=False):
+            now = time.perf_counter()
+            if not force and now - last[0] < 0.5:
+                return
+            last[0] = now
+            d = e.data_out
+            try:
+                progress(now - start, _finite(d.mip_primal_bound), _finite(d.mip_dual_bound),
+                         _finite(d.mip_gap))
+            except BaseException as exc:  # stop HiGHS, re-raise after it returns
+                failure.append(exc)
+                e.interrupt()
+
+        h.cbMipImprovingSolution.subscribe(lambda e: report(e, force=True))
+        h.cbMipInterrupt.subscribe(report)
+
+    t1 = time.perf_counter()
+    run_status = h.run()
+    solve_s = time.perf_counter() - t1
+    if failure:
+        raise _ProgressFailed(failure[0])
+
+    model_status = h.getModelStatus()
+    info = h.getInfo()
+    status = HIGHS_STATUS.get(model_status, ERROR)
+    has_x = info.primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
+    sol = Solution(status=status, handoff_seconds=handoff, solve_seconds=solve_s,
+                   highs_status=h.modelStatusToString(model_status))
+    if run_status == highspy.HighsStatus.kError or status == ERROR:
+        sol.message = f"HiGHS stopped with an error (model status: {sol.highs_status})"
+    if model_status == _S.kModelEmpty:
+        has_x = True
+    t2 = time.perf_counter()
+    if status in (OPTIMAL, LIMIT) and has_x:
+        x = np.asarray(h.getSolution().col_value, dtype=float) if lp.num_col_ else np.zeros(0)
+        sol.values = _values_by_family(built, columns, x)
+        sol.solved = True
+        for vd, val in zip(columns, x):
+            vd.set_value(float(val), skip_validation=True)
+        sol.objective = float(info.objective_function_value) if lp.num_col_ else float(lp.offset_)
+        if is_mip:
+            sol.best_bound = _finite(info.mip_dual_bound)
+            sol.mip_gap = _finite(info.mip_gap)
+        else:
+            sol.best_bound = sol.objective if status == OPTIMAL else None
+            sol.mip_gap = 0.0 if status == OPTIMAL else None
+    sol.load_seconds = time.perf_counter() - t2
+    _resolve_limit(sol)
+    return sol
+
+
+def _resolve_limit(sol: Solution) -> None:
+    if sol.status == LIMIT:
+        sol.status = FEASIBLE if sol.solved else NO_SCHEDULE
+    elif sol.status == OPTIMAL and not sol.solved:
+        sol.status = ERROR
+        sol.message = "solver reported optimal but returned no solution"
+
+
+# --- the Pyomo interface path ----------------------------------------------------
+
+def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
+    from pyomo.contrib.solver.solvers.highs import Highs as PyomoHighs
+
+    _quiet_banner()
+    _use_threads(options.threads)
+    opt = PyomoHighs()
+    kw = dict(load_solutions=False, raise_exception_on_nonoptimal_result=False, tee=False,
+              rel_gap=float(options.mip_gap))
+    if options.time_limit is not None:
+        kw["time_limit"] = float(options.time_limit)
+    if options.threads is not None:
+        kw["threads"] = int(options.threads)
+    t0 = time.perf_counter()
+    res = opt.solve(built.model, solver_options={"output_flag": False}, **kw)
+    total = time.perf_counter() - t0
+    h = opt._solver_model
+    model_status = h.getModelStatus()
+    solve_s = float(h.getRunTime())
+    status = HIGHS_STATUS.get(model_status, ERROR)
+    sol = Solution(status=status, handoff_seconds=max(total - solve_s, 0.0), solve_seconds=solve_s,
+                   highs_status=h.modelStatusToString(model_status))
+    t2 = time.perf_counter()
+    if status in (OPTIMAL, LIMIT) and res.incumbent_objective is not None:
+        res.solution_loader.load_vars()
+        sol.values = {}
+        sol.solved = True
+        names = list(built.var_keys) + (["slack"] if built.relax else [])
+        for name in names:
+            var = getattr(built.model, name, None)
+            if var is None:
+                continue
+            sol.values[name] = np.fromiter(
+                (0.0 if vd.value is None else vd.value for vd in var.values()), dtype=float,
+                count=len(var))
+        sol.objective = float(res.incumbent_objective)
+        sol.best_bound = _finite(res.objective_bound)
+        if built.has_binaries:
+            info = h.getInfo()
+            sol.mip_gap = _finite(info.mip_gap)
+        else:
+            sol.mip_gap = 0.0 if status == OPTIMAL else None
+            if status == OPTIMAL:
+                sol.best_bound = sol.objective
+    sol.load_seconds = time.perf_counter() - t2
+    _resolve_limit(sol)
+    return sol
+
+
+class _ProgressFailed(Exception):
+    def __init__(self, original: BaseException):
+        super().__init__(str(original))
+        self.original = original
+
+
+def solve(built, options: Optional[SolveOptions] = None,
+          progress: Optional[Progress] = None) -> Solution:
+    """Solve a :class:`~portfolio.compile.Built`; never raises for solver trouble.
+
+    Solver failures become ``status="error"`` with ``message`` set; an
+    exception raised by ``progress`` stops the solve and propagates.
+    """
+    from pyomo.common.errors import InfeasibleConstraintException
+
+    options = options or SolveOptions()
+    try:
+        if options.interface == "pyomo":
+            sol = _solve_pyomo(built, options, progress)
+        else:
+            sol = _solve_matrix(built, options, progress)
+    except _ProgressFailed as exc:
+        raise exc.original
+    except InfeasibleConstraintException as exc:
+        # a row with no variables left that cannot hold (found while compiling)
+        return Solution(status=INFEASIBLE, message=str(exc))
+    except (highspy.HighsError, ValueError, RuntimeError, MemoryError) as exc:
+        return Solution(status=ERROR, message=f"{type(exc).__name__}: {exc}")
+    if progress is not None:
+        progress(sol.handoff_seconds + sol.solve_seconds, sol.objective, sol.best_bound, sol.mip_gap)
+    return sol

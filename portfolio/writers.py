@@ -1,0 +1,194 @@
+"""Write a dispatch result to an output folder, atomically.
+
+Everything is written into a temporary sibling folder first, then renamed
+into place, so a reader never sees a half-written output folder: either the
+previous folder (untouched) or the complete new one.
+
+An existing ``out_dir`` is replaced only when it is empty or a previous
+output folder: it holds the marker file :data:`MARKER` and nothing that the
+marker does not list.  Anything else is refused with
+:class:`OutputFolderError` (so an input folder is never written into).
+
+Files (docs/outputs.md): ``<name>.csv`` per asset, ``schedule.csv`` (wide),
+``summary.json``, and with ``formats=("csv", "parquet")`` the same tables as
+``.parquet`` too.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import tempfile
+import uuid
+from pathlib import Path
+from typing import Iterable, List
+
+import numpy as np
+import pandas as pd
+
+MARKER = ".portfolio-output"
+FORMATS = ("csv", "parquet")
+RESERVED = ("schedule", "summary")
+
+
+class OutputFolderError(Exception):
+    """The output folder cannot be written (not ours, clashes, bad format)."""
+
+
+def _iso_index(df: pd.DataFrame) -> pd.DataFrame:
+    out = df.copy()
+    out.index = pd.Index([ts.isoformat() for ts in df.index], name="time")
+    return out
+
+
+def _write_csv(df: pd.DataFrame, path: Path) -> None:
+    _iso_index(df).to_csv(path, lineterminator="\n")
+
+
+def _write_parquet(df: pd.DataFrame, path: Path) -> None:
+    out = df.reset_index()
+    out.to_parquet(path, index=False)
+
+
+def _jsonable(x):
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, (np.floating, float)):
+        x = float(x)
+        return x if math.isfinite(x) else None
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, np.bool_):
+        return bool(x)
+    if isinstance(x, pd.Timestamp):
+        return x.isoformat()
+    return x
+
+
+def planned_files(result, formats: Iterable[str]) -> List[str]:
+    names = []
+    tables = result.tables or {}
+    for fmt in formats:
+        if result.schedule is not None:
+            names += [f"{n}.{fmt}" for n in tables] + [f"schedule.{fmt}"]
+    names.append("summary.json")
+    return names
+
+
+def _check_names(result) -> None:
+    for name in (result.tables or {}):
+        if name in RESERVED:
+            raise OutputFolderError(
+                f'an asset is named "{name}", which clashes with the output file {name}.csv/.json; '
+                f"rename the asset")
+        if not name or "/" in name or "\\" in name or name.startswith(".") or "\0" in name:
+            raise OutputFolderError(f"asset name {name!r} cannot be used as a file name")
+
+
+def _check_target(out: Path, result) -> None:
+    p = getattr(result, "portfolio", None)
+    src = getattr(p, "path", "") if p is not None else ""
+    if src:
+        src_dir = Path(src).absolute().resolve().parent
+        try:
+            out_r = out.resolve()
+        except OSError:
+            out_r = out
+        if src_dir == out_r or out_r in src_dir.parents:
+            raise OutputFolderError(
+                f"output folder {out} contains the portfolio's own files; choose another folder")
+    if not out.exists() and not out.is_symlink():
+        return
+    if not out.is_dir() or out.is_symlink():
+        raise OutputFolderError(f"output path {out} exists and is not a folder")
+    entries = set(os.listdir(out))
+    if not entries:
+        return
+    if MARKER not in entries:
+        raise OutputFolderError(
+            f"output folder {out} exists and is not a previous output folder "
+            f"(no {MARKER} file); refusing to replace it")
+    try:
+        listed = set(json.loads((out / MARKER).read_text(encoding="utf-8")).get("files", []))
+    except (OSError, ValueError, AttributeError):
+        raise OutputFolderError(f"output folder {out} has an unreadable {MARKER} file; "
+                                f"refusing to replace it") from None
+    foreign = sorted(e for e in entries - {MARKER}
+                     if e not in listed or not (out / e).is_file() or (out / e).is_symlink())
+    if foreign:
+        shown = ", ".join(foreign[:5]) + (" ..." if len(foreign) > 5 else "")
+        raise OutputFolderError(
+            f"output folder {out} contains files that were not written by this tool ({shown}); "
+            f"refusing to replace it")
+
+
+def _write_all(result, folder: Path, formats) -> List[str]:
+    written = []
+    if result.schedule is not None:
+        for fmt in formats:
+            writer = _write_csv if fmt == "csv" else _write_parquet
+            for name, df in result.tables.items():
+                writer(df, folder / f"{name}.{fmt}")
+                written.append(f"{name}.{fmt}")
+            writer(result.schedule, folder / f"schedule.{fmt}")
+            written.append(f"schedule.{fmt}")
+    text = json.dumps(_jsonable(result.summary), indent=2, allow_nan=False)
+    (folder / "summary.json").write_text(text + "\n", encoding="utf-8")
+    written.append("summary.json")
+    (folder / MARKER).write_text(json.dumps({"written_by": "portfolio", "files": written}) + "\n",
+                                 encoding="utf-8")
+    return written
+
+
+def write(result, out_dir, formats=("csv",)) -> Path:
+    """Write ``result`` into ``out_dir``; returns the folder's path.
+
+    Raises :class:`OutputFolderError` (nothing written) when the folder is
+    not ours to replace or a format is unknown.
+    """
+    formats = tuple(dict.fromkeys(formats))
+    bad = [f for f in formats if f not in FORMATS]
+    if bad or not formats:
+        raise OutputFolderError(f"unknown output format(s) {bad or formats}; use {FORMATS}")
+    if "parquet" in formats:
+        try:
+            import pyarrow  # noqa: F401
+        except ImportError:
+            raise OutputFolderError("the parquet format needs pyarrow, which is not installed") from None
+    out = Path(out_dir).absolute()
+    _check_names(result)
+    _check_target(out, result)
+    parent = out.parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputFolderError(f"cannot create {parent}: {exc.strerror or exc}") from None
+    try:
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.tmp-", dir=parent))
+        os.chmod(tmp, 0o755)
+    except OSError as exc:
+        raise OutputFolderError(f"cannot write in {parent}: {exc.strerror or exc}") from None
+    try:
+        _write_all(result, tmp, formats)
+        if out.exists():
+            old = parent / f".{out.name}.old-{uuid.uuid4().hex[:8]}"
+            os.rename(out, old)
+            try:
+                os.rename(tmp, out)
+            except BaseException:
+                os.rename(old, out)
+                raise
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.rename(tmp, out)
+    except OSError as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise OutputFolderError(f"writing {out} failed: {exc.strerror or exc}") from exc
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return out

@@ -22,13 +22,14 @@ from . import model as M
 from . import units as U
 from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting,
                           HorizonMisfit, LimitInconsistent, MissingSetting, OutOfRange,
-                          RouteDuplicate, RouteKindMismatch, RouteToSelf, RuleTooLong, Sink, SocInconsistent,
+                          RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
                           UnusedSetting, WrongDimension, WrongNameKind)
 from .series import SeriesSpec, load_series
 from .spans import Span
 
 MAX_STEPS = 1_000_000
+RESERVED_NAMES = {"schedule", "summary"}   # output files schedule.csv and summary.json
 MIN_STEP_H = 1 / 3600  # one second
 
 
@@ -87,6 +88,10 @@ class Checker:
 
     def declare(self, name: Token, kind: str, node=None) -> bool:
         sp = self.span(name)
+        if str(name).lower() in RESERVED_NAMES:
+            self.sink.add(ReservedName, sp, f"'{name}' is reserved: dispatch writes its own {str(name).lower()} file",
+                          "note: choose another name")
+            return False
         if str(name) in self.names:
             first = self.names[str(name)]
             self.sink.add(DuplicateName, sp, f"'{name}' is already declared (as {_a(first.kind)})",
@@ -836,8 +841,10 @@ class StorageBuilder:
             sink.add(UnusedSetting, self.sp("min_run"),
                      f"'run at least' has no effect on '{nm}' without a minimum output: a run may go on at 0 MW",
                      "note: add 'min P when running' to 'charge max' or 'discharge max'")
-        if v.get("min_rest_h", 0) > 0 and not v.get("exclusive", False):
-            v["exclusive"] = True  # rest is idle time between runs of either mode
+        if (v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and not v.get("exclusive", False):
+            # rest is idle time between runs of either mode; a run rule could otherwise be kept
+            # alive by charging and discharging at once
+            v["exclusive"] = True
         if "ramp" in s:
             got = self.q("ramp", (U.RAMP,), "the ramp limit")
             spans["ramp_mw_per_h"] = self.sp("ramp")

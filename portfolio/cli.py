@@ -214,9 +214,10 @@ def cmd_dispatch(args, out, err) -> int:
     print(_status_line(result), file=out)
     if status in ("optimal", "feasible"):
         formats = ("csv", "parquet") if args.parquet else ("csv",)
+        from .writers import OutputFolderError
         try:
             result.write(out_dir, formats=formats)
-        except (OSError, ValueError) as e:
+        except (OSError, ValueError, OutputFolderError) as e:
             print(f"portfolio: error: cannot write '{out_dir}': {e}", file=err)
             return EXIT_USAGE
         if not args.quiet:

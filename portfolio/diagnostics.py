@@ -159,6 +159,7 @@ UnknownName = _kind("P201", ERROR, "a name refers to nothing declared (with a su
 DuplicateName = _kind("P202", ERROR, "a name is declared twice (all names share one namespace)", "DuplicateName")
 DuplicateSetting = _kind("P203", ERROR, "the same setting is given twice in one block", "DuplicateSetting")
 MissingSetting = _kind("P204", ERROR, "a required setting or statement is missing", "MissingSetting")
+ReservedName = _kind("P206", ERROR, "a name is reserved for an output file (schedule, summary)", "ReservedName")
 WrongNameKind = _kind("P205", ERROR, "a name refers to a declaration of the wrong kind", "WrongNameKind")
 
 # --- P3xx: units and values ---------------------------------------------------

@@ -123,7 +123,7 @@ class Storage(Decl):
     site: str = ""
     kind: str = "other"
     energy: float = 0.0                  # MWh capacity
-    charge_max: float = 0.0              # MW (0: cannot charge from the site)
+    charge_max: float = 0.0              # MW, all charging: from the site and direct inflows (0: cannot charge)
     discharge_max: float = 0.0           # MW
     charge_min: float = 0.0              # MW whenever charging (needs a binary)
     discharge_min: float = 0.0           # MW whenever discharging (needs a binary)

@@ -7,6 +7,7 @@
 
 from __future__ import annotations
 
+import gc
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import List, Optional, Union
@@ -53,6 +54,18 @@ def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] 
     sink = Sink()
     base = Path(base_dir) if base_dir is not None else Path(path).parent
     result = LintResult(path)
+    was_enabled = gc.isenabled()
+    gc.disable()   # the tree and model hold no reference cycles worth collecting mid-run
+    try:
+        _stages(text, path, base, sink, result)
+    finally:
+        if was_enabled:
+            gc.enable()
+    result.diagnostics = _tidy(sink.items)
+    return result
+
+
+def _stages(text: str, path: str, base: Path, sink: Sink, result: LintResult) -> None:
     tree = parse(text, path, sink)
     if tree is not None:
         p = check(tree, path, base, sink)
@@ -62,8 +75,6 @@ def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] 
             result.graph = g
             if not sink.has_errors:
                 result.portfolio = p
-    result.diagnostics = _tidy(sink.items)
-    return result
 
 
 def read_source(path: Union[str, Path]):

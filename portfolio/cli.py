@@ -30,34 +30,23 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_USAGE, f"portfolio: error: {message}\n")
 
 
-def _positive_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
-    if not v > 0:
-        raise argparse.ArgumentTypeError(f"'{text}' must be above zero")
-    return v
+def _checked(convert, ok, need: str):
+    """An argparse type: ``convert`` the text, then require ``ok(value)``."""
+    def parse(text: str):
+        try:
+            v = convert(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"'{text}' is not a {'whole number' if convert is int else 'number'}") from None
+        if not ok(v):
+            raise argparse.ArgumentTypeError(f"'{text}' must be {need}")
+        return v
+    return parse
 
 
-def _gap(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
-    if not 0 <= v < 1:
-        raise argparse.ArgumentTypeError(f"'{text}' must be a fraction from 0 to below 1 (0.0001 = 0.01 %)")
-    return v
-
-
-def _threads(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
-    if v < 1:
-        raise argparse.ArgumentTypeError("threads must be 1 or more")
-    return v
+_positive_float = _checked(float, lambda v: v > 0, "above zero")
+_gap = _checked(float, lambda v: 0 <= v < 1, "a fraction from 0 to below 1 (0.0001 = 0.01 %)")
+_threads = _checked(int, lambda v: v >= 1, "1 or more")
 
 
 def build_parser() -> argparse.ArgumentParser:

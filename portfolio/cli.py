@@ -183,6 +183,10 @@ def cmd_dispatch(args, out, err) -> int:
         return EXIT_ERRORS
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
+    if problem is None and args.parquet:
+        import importlib.util
+        if importlib.util.find_spec("pyarrow") is None:
+            problem = "--parquet needs pyarrow, which is not installed (pip install 'portfolio[parquet]')"
     if problem:
         print(f"portfolio: error: {problem}", file=err)
         return EXIT_USAGE
@@ -233,7 +237,8 @@ def _status_line(result) -> str:
     if result.objective is not None:
         parts.append(f"objective {result.objective:,.2f}")
     if result.mip_gap is not None:
-        parts.append(f"gap {result.mip_gap * 100:.3g} %")
+        gap = result.mip_gap if result.mip_gap > 1e-12 else 0.0
+        parts.append(f"gap {gap * 100:.3g} %")
     parts.append(f"build {result.build_seconds:.2f} s")
     parts.append(f"solve {result.solve_seconds:.2f} s")
     return " | ".join(parts)

@@ -205,7 +205,7 @@ def build_tables(built, values: Dict[str, np.ndarray]):
                                     float(t["export_mw"].sum()) * dt, None, 0.0, 0.0)
     for r in p.routes:
         routes[r.name] = {"in_transit_end_mwh": float(clean(np.array([route_transit[r.name]]))[0]),
-                          "flow_mwh": float(route_flow[r.name].sum()) * dt}
+                          "flow_mwh": float(clean(np.array([route_flow[r.name].sum() * dt]))[0])}
     parts = {"storages": storages, "inflows": inflows, "demands": demands, "sites": sites,
              "connections": connections, "routes": routes}
     return tables, parts

@@ -158,7 +158,7 @@ def write(result, out_dir, formats=("csv",)) -> Path:
         try:
             import pyarrow  # noqa: F401
         except ImportError:
-            raise OutputFolderError("the parquet format needs pyarrow, which is not installed") from None
+            raise OutputFolderError("the parquet format needs pyarrow, which is not installed (pip install 'portfolio[parquet]')") from None
     out = Path(out_dir).absolute()
     _check_names(result)
     _check_target(out, result)

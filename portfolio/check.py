@@ -656,6 +656,7 @@ class Checker:
 
     def check_routes(self, routes: List[Tuple[M.Route, float]], storages: Dict[str, M.Storage]) -> List[M.Route]:
         out = []
+        taken: set = set()
         seen: Dict[Tuple[str, str], M.Route] = {}
         step = self.horizon.step_hours if self.horizon else None
         for r, delay_h in routes:
@@ -700,8 +701,25 @@ class Checker:
                     ok = False
                 if r.kind == M.ROUTE_RELEASE and src.discharge_max <= 0:
                     self.sink.add(UnusedSetting, r.span, f"'{r.source}' cannot discharge, so it never releases anything")
+            if ok and self.horizon is not None and d > self.horizon.steps:
+                self.sink.add(UnusedSetting, r.where("delay_steps"),
+                              f"the delay ({d} steps) is longer than the horizon ({self.horizon.steps} steps): "
+                              "nothing sent down this route arrives within it")
+            name = r.name
             if ok:
-                out.append(M.Route(name=r.name, source=r.source, kind=r.kind, target=r.target, delay_steps=d,
+                # a unique output name: a second transfer between the same two stores gets a suffix
+                n = 2
+                while name in taken:
+                    name = f"{r.name}_{n}"
+                    n += 1
+                if name in self.names:
+                    self.sink.add(DuplicateName, r.span, f"this route's output name '{name}' is already declared "
+                                  f"(as {_a(self.names[name].kind)})",
+                                  f"note: '{name}' is declared at {self.names[name].span}; rename one of them")
+                    ok = False
+            if ok:
+                taken.add(name)
+                out.append(M.Route(name=name, source=r.source, kind=r.kind, target=r.target, delay_steps=d,
                                    factor=r.factor, efficiency=r.efficiency, max_mw=r.max_mw,
                                    in_transit=r.in_transit, span=r.span, spans=r.spans))
         return out
@@ -730,6 +748,11 @@ class StorageBuilder:
         if "kind" in s:
             v["kind"] = str(s["kind"].children[0])
             spans["kind"] = self.sp("kind")
+            if v["kind"] not in M.KNOWN_KINDS:
+                hint = suggest(v["kind"], M.KNOWN_KINDS)
+                if hint:
+                    sink.add(UnusedSetting, self.sp("kind"), f"'{v['kind']}' is not a kind the checks know{hint}",
+                             "note: battery, reservoir and thermal decide which routes are allowed; any other label is 'other'")
         if "energy" not in s:
             sink.add(MissingSetting, self.span_, f"storage '{nm}' needs an 'energy' capacity, e.g. 'energy 40 MWh'")
             return None
@@ -803,12 +826,10 @@ class StorageBuilder:
         v.update(end_rule=end_rule, end_value=end_val)
         self.check_soc(lo, hi, start, end_rule, end_val, energy)
         if "loss" in s:
-            got = self.q("loss", (U.RATE,), "the loss")
+            got = self.loss_per_hour()
             spans["loss_per_h"] = self.sp("loss")
             if got is not None:
-                if not 0 <= got[1] < 1:
-                    sink.add(OutOfRange, self.sp("loss"), f"the loss of '{nm}' must be from 0 % to below 100 % per hour, found {_fmt(got[1] * 100)} % per h")
-                v["loss_per_h"] = got[1]
+                v["loss_per_h"] = got
         if "wear" in s:
             got = self.q("wear", (U.PRICE,), "the wear cost")
             spans["wear"] = self.sp("wear")
@@ -837,10 +858,13 @@ class StorageBuilder:
                     elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
                                  f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
-        if v.get("min_run_h", 0) > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
-            sink.add(UnusedSetting, self.sp("min_run"),
-                     f"'run at least' has no effect on '{nm}' without a minimum output: a run may go on at 0 MW",
-                     "note: add 'min P when running' to 'charge max' or 'discharge max'")
+        for key, word in (("min_run", "run"), ("min_rest", "rest")):
+            if v.get(f"{key}_h", 0) > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
+                why = ("a run may go on at 0 MW" if word == "run"
+                       else "a run may go on at 0 MW instead of resting")
+                sink.add(UnusedSetting, self.sp(key),
+                         f"'{word} at least' has no effect on '{nm}' without a minimum output: {why}",
+                         "note: add 'min P when running' to 'charge max' or 'discharge max'")
         if (v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and not v.get("exclusive", False):
             # rest is idle time between runs of either mode; a run rule could otherwise be kept
             # alive by charging and discharging at once
@@ -880,6 +904,25 @@ class StorageBuilder:
         v = {k: x for k, x in v.items() if x is not None}
         return M.Storage(name=nm, site=self.site, span=self.span_, spans=dict(spans), **v)
 
+    def loss_per_hour(self) -> Optional[float]:
+        """``X% per P``: lose X % of the content over each period P, compounded.
+
+        50 % per d is 1 - 0.5 ** (1/24) = 2.85 % per h, so a day loses exactly
+        half; 0.5 % per h is 0.5 % per h.
+        """
+        node = self.s["loss"].children[0]
+        got = self.ck.quantity(node, (U.RATE,), f"the loss of '{self.name}'")
+        if got is None:
+            return None
+        unit, per = _unit_parts(node.children[1])
+        period_h = U.factor(per, None, (U.TIME,))[1] if per else 1.0
+        share = got[1] * period_h               # the fraction lost per stated period
+        if not 0 <= share < 1:
+            self.ck.sink.add(OutOfRange, self.sp("loss"), f"the loss of '{self.name}' must be from 0 % to below "
+                             f"100 % per period, found {_fmt(share * 100)} % per {per or 'h'}")
+            return None
+        return float(f"{1 - (1 - share) ** (1 / period_h):.12g}")
+
     def fraction_ok(self, val, node, what) -> bool:
         if not 0 < val <= 1:
             self.ck.sink.add(OutOfRange, self.ck.span(node),
@@ -913,6 +956,8 @@ class StorageBuilder:
         if not lo - eps <= start <= hi + eps:
             sink.add(SocInconsistent, sp.get("soc_start", sp.get("soc_min", self.span_)),
                      f"the soc start of '{nm}' ({_fmt(start)} MWh) is outside its bounds {_fmt(lo)}..{_fmt(hi)} MWh")
+            if "end_rule" not in sp:
+                return  # the default end rule (at least start) would only repeat this
         if end_rule != M.END_FREE and end_val > hi + eps:
             sink.add(SocInconsistent, sp.get("end_rule", self.span_), f"the soc end of '{nm}' ({_fmt(end_val)} MWh) is above its soc max ({_fmt(hi)} MWh)")
         if end_rule == M.END_EQUAL and end_val < lo - eps:

@@ -187,6 +187,12 @@ def cmd_dispatch(args, out, err) -> int:
         import importlib.util
         if importlib.util.find_spec("pyarrow") is None:
             problem = "--parquet needs pyarrow, which is not installed (pip install 'portfolio[parquet]')"
+    if problem is None:
+        from .writers import OutputFolderError, check_output_folder
+        try:
+            check_output_folder(out_dir, r.portfolio)   # refuse before a long solve, not after
+        except OutputFolderError as e:
+            problem = str(e)
     if problem:
         print(f"portfolio: error: {problem}", file=err)
         return EXIT_USAGE
@@ -219,6 +225,12 @@ def cmd_dispatch(args, out, err) -> int:
             print(f"caution: {CAUTION}", file=out)
     else:
         _explain_failure(result, err)
+        from .writers import OutputFolderError
+        try:   # no schedule, but the summary (status, limits that gave) for tools to read
+            result.write(out_dir)
+            print(f"summary written to {out_dir}/summary.json (no schedule)", file=err)
+        except (OSError, ValueError, OutputFolderError) as e:
+            print(f"portfolio: could not write the summary to '{out_dir}': {e}", file=err)
     return exit_code(status)
 
 
@@ -246,10 +258,10 @@ def _status_line(result) -> str:
 
 def _explain_failure(result, err) -> None:
     messages = {
-        "infeasible": "the portfolio's limits cannot all hold at once; nothing was written",
-        "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); nothing was written",
-        "no_schedule": "no schedule was found within the limits (try a longer --time-limit); nothing was written",
-        "error": "the solver failed; nothing was written",
+        "infeasible": "the portfolio's limits cannot all hold at once; no schedule",
+        "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); no schedule",
+        "no_schedule": "no schedule was found within the limits (with a --time-limit, try a longer one); no schedule",
+        "error": "the solver failed; no schedule",
     }
     print(f"portfolio: {messages.get(result.status, result.status)}", file=err)
     relaxed = getattr(result, "relaxed", None) or []

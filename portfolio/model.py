@@ -213,10 +213,19 @@ class Portfolio:
             return np.zeros(self.horizon.steps)
         return np.asarray(self.series[name].values, dtype=float)
 
-    def dispatch(self, options=None, progress=None, **kwargs):
-        """Solve this portfolio; see :func:`portfolio.dispatch.dispatch`."""
+    def dispatch(self, options=None, progress=None, **settings):
+        """Solve this portfolio; see :func:`portfolio.dispatch.dispatch`.
+
+        ``settings`` build the options when none are given:
+        ``p.dispatch(time_limit=60, mip_gap=1e-3)``.
+        """
         from .dispatch import dispatch
-        return dispatch(self, options, progress=progress, **kwargs)
+        from .solve import SolveOptions
+        if settings:
+            if options is not None:
+                raise TypeError("give either options or settings such as time_limit=..., not both")
+            options = SolveOptions(**settings)
+        return dispatch(self, options, progress=progress)
 
     def graph(self):
         """The network graph (:func:`portfolio.graph.build_graph`)."""

@@ -111,6 +111,8 @@ def build_tables(built, values: Dict[str, np.ndarray]):
         route_flow[r.name] = flow
         route_arrive[r.name] = arrive_mwh / dt
         route_transit[r.name] = gain * float(flow[max(T - D, 0):].sum()) * dt if D > 0 else 0.0
+        if D > T:  # part of what was in transit at the start has not arrived by the end either
+            route_transit[r.name] += r.in_transit * (D - T) / D
         received[r.target] = received.get(r.target, np.zeros(T)) + arrive_mwh
         sent[r.source] = sent[r.source] + flow * dt
 

@@ -144,6 +144,26 @@ def _write_all(result, folder: Path, formats) -> List[str]:
     return written
 
 
+def check_output_folder(out_dir, portfolio) -> None:
+    """Before a (possibly long) solve: would :func:`write` accept ``out_dir``?
+
+    Runs the same refusal rules as :func:`write` and checks that a temporary
+    folder can be made beside it; raises :class:`OutputFolderError` if not.
+    Writes nothing that stays.
+    """
+    out = Path(out_dir).absolute()
+    _check_target(out, type("_Pending", (), {"portfolio": portfolio})())
+    parent = out.parent
+    probe_root = parent
+    while not probe_root.exists():     # the nearest folder that exists must be writable
+        probe_root = probe_root.parent
+    try:
+        probe = tempfile.mkdtemp(prefix=f".{out.name}.probe-", dir=probe_root)
+        os.rmdir(probe)
+    except OSError as exc:
+        raise OutputFolderError(f"cannot write beside {out}: {exc.strerror or exc}") from None
+
+
 def write(result, out_dir, formats=("csv",)) -> Path:
     """Write ``result`` into ``out_dir``; returns the folder's path.
 

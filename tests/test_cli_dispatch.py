@@ -59,7 +59,7 @@ def test_lint_errors_stop_dispatch_and_nothing_is_written(tmp_path):
     assert not (tmp_path / "o").exists()
 
 
-def test_infeasible_names_the_limit_and_writes_nothing(tmp_path):
+def test_infeasible_names_the_limit_and_writes_only_the_summary(tmp_path):
     f = tmp_path / "tight.folio"
     f.write_text('horizon start 2027-01-01T00:00 length 3 h step 1 h\n'
                  'connection c { import max 1 MW buy at 50 per MWh }\n'
@@ -70,7 +70,9 @@ def test_infeasible_names_the_limit_and_writes_nothing(tmp_path):
     assert code == 3
     assert text.startswith("status: infeasible")
     assert "tight.folio:2:" in err          # the connection's import limit had to give
-    assert not (tmp_path / "o").exists()
+    summary = json.loads((tmp_path / "o" / "summary.json").read_text())
+    assert summary["status"] == "infeasible"
+    assert not list((tmp_path / "o").glob("*.csv"))   # no schedule
 
 
 def test_refuses_a_folder_that_is_not_an_output(tmp_path):
@@ -106,6 +108,18 @@ def test_options_reach_the_solver(tmp_path):
     assert code == 0, err
     assert text.count("\n") == 1                     # --quiet: the status line only
     assert json.loads((tmp_path / "o" / "summary.json").read_text())["status"] in ("optimal", "feasible")
+
+
+def test_refused_folder_is_refused_before_solving(tmp_path, monkeypatch):
+    import portfolio.dispatch as d
+
+    def boom(*a, **k):
+        raise AssertionError("solved although the output folder is refused")
+    monkeypatch.setattr(d, "dispatch", boom)
+    mine = tmp_path / "notes"
+    mine.mkdir()
+    (mine / "keep.txt").write_text("mine")
+    assert run("dispatch", DEMO, "--out", mine)[0] == 2
 
 
 def test_missing_file_is_a_usage_error(tmp_path):

@@ -865,6 +865,10 @@ class StorageBuilder:
                 sink.add(UnusedSetting, self.sp(key),
                          f"'{word} at least' has no effect on '{nm}' without a minimum output: {why}",
                          "note: add 'min P when running' to 'charge max' or 'discharge max'")
+        if ((v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and "modes" in s
+                and str(s["modes"].children[0]) == "free"):
+            sink.add(UnusedSetting, self.sp("modes"),
+                     f"'modes free' is overridden on '{nm}': a run or rest rule makes its modes exclusive")
         if (v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and not v.get("exclusive", False):
             # rest is idle time between runs of either mode; a run rule could otherwise be kept
             # alive by charging and discharging at once

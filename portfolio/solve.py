@@ -1,14 +1,20 @@
 """Solve a compiled portfolio with HiGHS.
 
-Two hand-off paths from the Pyomo model to HiGHS:
+Two hand-off paths from the compiled portfolio to HiGHS:
 
-* ``interface="matrix"`` (default, the fast one): Pyomo's
-  ``LinearStandardFormCompiler`` turns the model into a SciPy CSC matrix
-  plus bound vectors, which go to ``highspy.Highs.passModel`` in one call
-  (integrality included).  The solution comes back as one NumPy array and is
-  sliced per variable family.
+* ``interface="matrix"`` (default, the fast one): the compiler's sparse
+  arrays (:class:`portfolio.compile.Matrix`: CSC matrix, row and column
+  bounds, costs, integrality) become a ``highspy.HighsLp`` passed to
+  ``Highs.passModel`` in one call (:func:`to_highs_lp`).  The solution comes
+  back as one NumPy array and is sliced per variable family; the Pyomo model
+  is not needed (nor made) for this path.
 * ``interface="pyomo"``: Pyomo's newer persistent ``highs`` interface
-  (``pyomo.contrib.solver``), kept so that a benchmark can compare.
+  (``pyomo.contrib.solver``) on ``Built.model``, kept so that a benchmark
+  can compare.
+
+:func:`to_standard_form` (Pyomo's ``LinearStandardFormCompiler`` on
+``Built.model``) gives the same LP from the Pyomo side; tests use it to
+check that both descriptions of the model agree.
 
 HiGHS output is switched off; the library never prints.  Progress goes to
 an optional ``progress(elapsed_s, best_objective, best_bound, gap)``
@@ -24,14 +30,13 @@ re-solves with slacks (zero total slack means unbounded).
 
 from __future__ import annotations
 
-import gc
 import math
 import os
 import sys
 import threading
 import time
 from dataclasses import dataclass, field
-from typing import Callable, Dict, List, Optional
+from typing import Callable, Dict, List, Optional, Tuple
 
 import highspy
 import numpy as np
@@ -198,8 +203,42 @@ def _finite(x) -> Optional[float]:
 
 # --- the matrix path -----------------------------------------------------------
 
+def _highs_lp(A, cost, col_lower, col_upper, row_lower, row_upper, offset, maximize,
+              integer) -> highspy.HighsLp:
+    inf = highspy.kHighsInf
+    n = A.shape[1]
+    lp = highspy.HighsLp()
+    lp.num_col_ = n
+    lp.num_row_ = A.shape[0]
+    lp.col_cost_ = np.asarray(cost, dtype=float)
+    lp.col_lower_ = np.where(np.isneginf(col_lower), -inf, col_lower)
+    lp.col_upper_ = np.where(np.isposinf(col_upper), inf, col_upper)
+    lp.row_lower_ = np.where(np.isneginf(row_lower), -inf, row_lower)
+    lp.row_upper_ = np.where(np.isposinf(row_upper), inf, row_upper)
+    lp.offset_ = float(offset)
+    lp.sense_ = highspy.ObjSense.kMaximize if maximize else highspy.ObjSense.kMinimize
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.num_col_ = n
+    lp.a_matrix_.num_row_ = A.shape[0]
+    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = A.indices.astype(np.int32)
+    lp.a_matrix_.value_ = A.data.astype(float)
+    if integer.any():
+        lp.integrality_ = [highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
+                           for i in integer]
+    return lp
+
+
+def to_highs_lp(built) -> Tuple[highspy.HighsLp, bool]:
+    """A compiled portfolio -> (HighsLp, is_mip), straight from its matrix."""
+    mx = built.matrix
+    lp = _highs_lp(mx.A, mx.cost, mx.col_lower, mx.col_upper, mx.row_lower, mx.row_upper,
+                   mx.offset, mx.maximize, mx.integer)
+    return lp, bool(mx.integer.any())
+
+
 def to_standard_form(model):
-    """Pyomo model -> (HighsLp, columns, is_mip) via the standard-form compiler."""
+    """Pyomo model -> (HighsLp, columns, is_mip) via Pyomo's standard-form compiler."""
     from pyomo.repn.plugins.standard_form import LinearStandardFormCompiler
 
     info = LinearStandardFormCompiler().write(model, mixed_form=True, set_sense=None)
@@ -233,58 +272,18 @@ def to_standard_form(model):
         cost = np.asarray(info.c[[0], :].toarray()).ravel()
     offset = float(info.c_offset[0]) if len(info.c_offset) else 0.0
     sense = info.objectives[0].sense if info.objectives else 1
-
-    lp = highspy.HighsLp()
-    lp.num_col_ = n
-    lp.num_row_ = A.shape[0]
-    lp.col_cost_ = cost
-    lp.col_lower_ = col_lower
-    lp.col_upper_ = col_upper
-    lp.row_lower_ = lower
-    lp.row_upper_ = upper
-    lp.offset_ = offset
-    lp.sense_ = highspy.ObjSense.kMaximize if int(sense) == -1 else highspy.ObjSense.kMinimize
-    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
-    lp.a_matrix_.num_col_ = n
-    lp.a_matrix_.num_row_ = A.shape[0]
-    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
-    lp.a_matrix_.index_ = A.indices.astype(np.int32)
-    lp.a_matrix_.value_ = A.data.astype(float)
-    if integer.any():
-        lp.integrality_ = [highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
-                           for i in integer]
+    lp = _highs_lp(A, cost, col_lower, col_upper, lower, upper, offset, int(sense) == -1, integer)
     return lp, columns, bool(integer.any())
 
 
-def _values_by_family(built, columns, x: np.ndarray) -> Dict[str, np.ndarray]:
-    pos = {id(v): i for i, v in enumerate(columns)}
-    out = {}
-    names = list(built.var_keys) + (["slack"] if built.relax else [])
-    for name in names:
-        var = getattr(built.model, name, None)
-        if var is None:
-            continue
-        datas = list(var.values())
-        idx = np.fromiter((pos.get(id(vd), -1) for vd in datas), dtype=np.int64, count=len(datas))
-        vals = np.where(idx >= 0, x[np.maximum(idx, 0)] if len(x) else 0.0, np.nan)
-        missing = np.nonzero(idx < 0)[0]
-        for i in missing:   # in no row and no objective: any value in bounds; take the lowest >= 0
-            vd = datas[i]
-            lo = vd.lb if vd.lb is not None else 0.0
-            vals[i] = max(lo, 0.0) if vd.ub is None or vd.ub >= 0 else vd.ub
-        out[name] = vals
-    return out
+def _values_by_family(built, x: np.ndarray) -> Dict[str, np.ndarray]:
+    """The solution array sliced per variable family (``slack`` in relax mode)."""
+    return {name: x[start:stop] for name, (start, stop) in built.matrix.var_ranges.items()}
 
 
 def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
     t0 = time.perf_counter()
-    was_enabled = gc.isenabled()
-    gc.disable()          # as in compile.build: no cycles to collect, much faster
-    try:
-        lp, columns, is_mip = to_standard_form(built.model)
-    finally:
-        if was_enabled:
-            gc.enable()
+    lp, is_mip = to_highs_lp(built)
     h = new_highs(options)
     h.passModel(lp)
     handoff = time.perf_counter() - t0
@@ -329,10 +328,9 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
     t2 = time.perf_counter()
     if status in (OPTIMAL, LIMIT) and has_x:
         x = np.asarray(h.getSolution().col_value, dtype=float) if lp.num_col_ else np.zeros(0)
-        sol.values = _values_by_family(built, columns, x)
+        sol.values = _values_by_family(built, x)
         sol.solved = True
-        for vd, val in zip(columns, x):
-            vd.set_value(float(val), skip_validation=True)
+        built.load_solution(x)     # into the Pyomo variables, if and when the model is made
         sol.objective = float(info.objective_function_value) if lp.num_col_ else float(lp.offset_)
         if is_mip:
             sol.best_bound = _finite(info.mip_dual_bound)
@@ -356,6 +354,7 @@ def _resolve_limit(sol: Solution) -> None:
 # --- the Pyomo interface path ----------------------------------------------------
 
 def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
+    from pyomo.common.errors import InfeasibleConstraintException
     from pyomo.contrib.solver.solvers.highs import Highs as PyomoHighs
 
     _quiet_banner()
@@ -368,7 +367,11 @@ def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> 
     if options.threads is not None:
         kw["threads"] = int(options.threads)
     t0 = time.perf_counter()
-    res = opt.solve(built.model, solver_options={"output_flag": False}, **kw)
+    try:
+        res = opt.solve(built.model, solver_options={"output_flag": False}, **kw)
+    except InfeasibleConstraintException as exc:
+        # a row with no variables left that cannot hold (found while compiling)
+        raise _Infeasible(str(exc)) from exc
     total = time.perf_counter() - t0
     h = opt._solver_model
     model_status = h.getModelStatus()
@@ -403,6 +406,10 @@ def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> 
     return sol
 
 
+class _Infeasible(Exception):
+    """Found infeasible before HiGHS ran (Pyomo's compiler, a row that cannot hold)."""
+
+
 class _ProgressFailed(Exception):
     def __init__(self, original: BaseException):
         super().__init__(str(original))
@@ -416,8 +423,6 @@ def solve(built, options: Optional[SolveOptions] = None,
     Solver failures become ``status="error"`` with ``message`` set; an
     exception raised by ``progress`` stops the solve and propagates.
     """
-    from pyomo.common.errors import InfeasibleConstraintException
-
     options = options or SolveOptions()
     try:
         if options.interface == "pyomo":
@@ -426,8 +431,7 @@ def solve(built, options: Optional[SolveOptions] = None,
             sol = _solve_matrix(built, options, progress)
     except _ProgressFailed as exc:
         raise exc.original
-    except InfeasibleConstraintException as exc:
-        # a row with no variables left that cannot hold (found while compiling)
+    except _Infeasible as exc:
         return Solution(status=INFEASIBLE, message=str(exc))
     except (highspy.HighsError, ValueError, RuntimeError, MemoryError) as exc:
         return Solution(status=ERROR, message=f"{type(exc).__name__}: {exc}")

@@ -1,10 +1,15 @@
-"""Compile a checked :class:`~portfolio.model.Portfolio` into a Pyomo MILP.
+"""Compile a checked :class:`~portfolio.model.Portfolio` into a MILP.
 
 ``build(p)`` creates the decision variables, then runs every constraint
 family module of :mod:`portfolio.compile.families` in a fixed order.  Each
 module adds rows and bounds through the :class:`~.context.Ctx` and registers
 the :class:`~.context.Origin` (source Span plus description) of every limit it
 encodes, so an infeasibility can be traced back to a line of the user's file.
+
+The result holds the MILP twice over: as sparse arrays
+(:class:`~.context.Matrix`, what the default solver path passes to HiGHS)
+and as a Pyomo model (``Built.model``, one component per variable and row
+family), which is made from the arrays the first time it is asked for.
 
 Variable families (all >= 0, MW unless noted; index ``(asset..., t)``):
 
@@ -29,24 +34,27 @@ direction families where a rule needs them.
 
 from __future__ import annotations
 
+import gc
+import time
+from contextlib import contextmanager
 from dataclasses import dataclass, field
-from typing import Dict, Hashable, List, Tuple
+from typing import Dict, Hashable, List, Optional, Tuple
 
 import numpy as np
-import pyomo.environ as pe
 
 from ..model import Portfolio
-from .context import Ctx, Origin, lin  # noqa: F401  (re-exported)
+from .context import Ctx, Matrix, Origin  # noqa: F401  (re-exported)
 from .families import FAMILIES
+from .pyomo_model import lin  # noqa: F401  (re-exported)
 
 VARIANTS = ("tight", "plain")
 
 
 @dataclass
 class Built:
-    """A compiled portfolio: the Pyomo model plus the maps needed to read it."""
+    """A compiled portfolio: its matrix, the Pyomo model, and the maps needed to read them."""
 
-    model: pe.ConcreteModel
+    matrix: Matrix
     portfolio: Portfolio
     variant: str
     relax: bool
@@ -63,9 +71,39 @@ class Built:
     """relax mode: per slack variable (family, origin index, side, row key)."""
     expr: Dict[str, object] = field(default_factory=dict, repr=False)
     build_seconds: float = 0.0
+    _model: object = field(default=None, init=False, repr=False)
+    _columns: Optional[list] = field(default=None, init=False, repr=False)
+    _values: Optional[np.ndarray] = field(default=None, init=False, repr=False)
+
+    @property
+    def model(self):
+        """The Pyomo ``ConcreteModel`` (made from :attr:`matrix` on first use;
+        holds the last solution's values when there is one)."""
+        if self._model is None:
+            from .pyomo_model import to_pyomo
+            with _gc_paused():
+                self._model, self._columns = to_pyomo(
+                    self.matrix, self.portfolio.name or "portfolio", self._values)
+        return self._model
+
+    def load_solution(self, x: np.ndarray) -> None:
+        """Keep a solution (one value per column) for the Pyomo variables:
+        loaded now if the model exists, else when it is made."""
+        self._values = np.asarray(x, dtype=float)
+        if self._columns is not None:
+            from .pyomo_model import load_values
+            load_values(self._columns, self._values)
+
+    @property
+    def model_columns(self) -> list:
+        """The Pyomo VarData of every matrix column, in column order."""
+        if self._columns is None:
+            _ = self.model         # made on first use
+        return self._columns
 
     def var(self, name: str):
-        return getattr(self.model, name, None)
+        """The Pyomo ``Var`` of a variable family (None when it has no entries)."""
+        return getattr(self.model, name, None) if name in self.matrix.var_ranges else None
 
     def array(self, values: Dict[str, np.ndarray], name: str, asset: Hashable) -> np.ndarray:
         """The T values of ``name[asset, :]`` from a solution's value arrays.
@@ -80,7 +118,21 @@ class Built:
 
     @property
     def has_binaries(self) -> bool:
-        return any(self.var(n) is not None for n in self.binary_vars)
+        return bool(self.matrix.integer.any())
+
+
+@contextmanager
+def _gc_paused():
+    """Pause the cyclic garbage collector: compiling (and making the Pyomo
+    model) creates millions of small objects and no cycles worth collecting,
+    and the collector's passes over them cost about a third of the time."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
 
 
 def _variables(ctx: Ctx) -> None:
@@ -111,25 +163,15 @@ def _variables(ctx: Ctx) -> None:
 def build(p: Portfolio, variant: str = "tight", relax: bool = False) -> Built:
     """Compile ``p``.  ``relax=True`` adds a slack to every limit and rule and
     minimises their total (used to explain an infeasible portfolio)."""
-    import gc
-    import time
-
     t0 = time.perf_counter()
-    # Pyomo creates millions of small objects and no garbage cycles worth
-    # collecting while building: pausing the cyclic collector saves ~1/3.
-    was_enabled = gc.isenabled()
-    gc.disable()
-    try:
+    with _gc_paused():
         ctx = Ctx(p, variant=variant, relax=relax)
         _variables(ctx)
         for module in FAMILIES:
             module.build(ctx)
-        ctx.materialize()
-    finally:
-        if was_enabled:
-            gc.enable()
+        matrix = ctx.finish()
     built = Built(
-        model=ctx.m, portfolio=p, variant=variant, relax=relax,
+        matrix=matrix, portfolio=p, variant=variant, relax=relax,
         steps=ctx.T, step_hours=ctx.dt,
         var_keys=ctx.var_keys, var_blocks=ctx.var_blocks, binary_vars=list(ctx.binary_vars),
         origins={name: list(f.origins) for name, f in ctx.families.items()},

@@ -1,16 +1,18 @@
 """The compile context: variables, rows, bounds and their origins.
 
-A constraint family module never touches Pyomo constraints directly.  It asks
-the context for variables (:meth:`Ctx.v`), then adds
+A constraint family module never touches the solver's matrix or Pyomo
+directly.  It asks the context for variables (:meth:`Ctx.v`, a column
+number), then adds
 
-* rows (:meth:`Ctx.row`): ``lo <= body <= hi`` with ``body`` a linear
-  expression built by :func:`lin`, or
+* rows (:meth:`Ctx.row`): ``lo <= sum(coef * column) + const <= hi``, or
 * bounds (:meth:`Ctx.bound`): a limit on one variable entry.
 
-Each row and bound names its family (the Pyomo component name) and an
-:class:`Origin` (the Span of the setting it encodes plus a description).
-:meth:`Ctx.materialize` turns the collected rows into one indexed Pyomo
-``Constraint`` per family and applies the bounds to the variables.
+Each row and bound names its family and an :class:`Origin` (the Span of the
+setting it encodes plus a description).  :meth:`Ctx.finish` turns what was
+collected into a :class:`Matrix`: sparse rows with their bounds, column
+bounds, integrality and objective, in NumPy/SciPy arrays.  That is what the
+solver receives; the Pyomo model with one indexed ``Constraint`` per family
+is made from it on request (:mod:`portfolio.compile.pyomo_model`).
 
 In ``relax`` mode every relaxable row and every bound becomes a row with a
 non-negative slack, the slack of each row remembers its origin, and the
@@ -21,14 +23,20 @@ can "give".
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Dict, Hashable, List, Optional, Sequence, Tuple
 
-import pyomo.environ as pe
-from pyomo.core.expr.numeric_expr import LinearExpression, MonomialTermExpression
+import numpy as np
+import scipy.sparse as sp
 
 from ..model import Portfolio
 from ..spans import Span
+
+INF = math.inf
+
+# names the Pyomo model uses besides the variable and row families
+RESERVED = ("slack", "objective")
 
 
 @dataclass(frozen=True)
@@ -51,8 +59,16 @@ class Family:
     origins: List[Origin] = field(default_factory=list)
     _origin_pos: Dict[Origin, int] = field(default_factory=dict, repr=False)
     _origin_id: Dict[int, int] = field(default_factory=dict, repr=False)
-    rows: list = field(default_factory=list, repr=False)   # (key, terms, const, lo, hi, origin_idx)
-    bounds: list = field(default_factory=list, repr=False)  # (key, lo, hi, origin_idx)
+    # rows: one entry per row in these lists; the terms of all rows in one flat
+    # list of (coef, column or None), row i owning row_len[i] of them
+    keys: list = field(default_factory=list, repr=False)
+    lo: list = field(default_factory=list, repr=False)       # None: no lower limit
+    hi: list = field(default_factory=list, repr=False)       # None: no upper limit
+    const: list = field(default_factory=list, repr=False)
+    oi: list = field(default_factory=list, repr=False)       # origin index, -1 for none
+    terms: list = field(default_factory=list, repr=False)
+    row_len: list = field(default_factory=list, repr=False)
+    bounds: list = field(default_factory=list, repr=False)   # (column, lo, hi, origin index)
 
     def origin_index(self, origin: Origin) -> int:
         # fast path by identity (families reuse one Origin object per setting);
@@ -70,17 +86,48 @@ class Family:
         return pos
 
 
-def lin(terms: Sequence[Tuple[float, object]], const: float = 0.0):
-    """A Pyomo LinearExpression from ``(coef, VarData)`` pairs and a constant.
+@dataclass
+class RowBlock:
+    """The rows of one family in :class:`Matrix`: ``start:stop`` and their keys."""
 
-    Terms with a zero coefficient or a ``None``/0 variable are dropped.  This
-    is several times faster than building the same sum with operators.
+    name: str
+    start: int
+    stop: int
+    keys: list
+
+
+@dataclass
+class Matrix:
+    """A compiled model as arrays (what HiGHS receives; Pyomo is made from it).
+
+    Columns are the variable families in the order they were added, each a
+    contiguous ``var_ranges[name]`` (asset-major, as :meth:`Ctx.add_var`),
+    then ``slack`` in relax mode.  Rows are the row families in the order
+    they were first used (``blocks``).  Bounds of +-inf mean "none"; the
+    constant of each row is already moved into its bounds.
     """
-    args = [MonomialTermExpression((float(c), v)) for c, v in terms
-            if c != 0 and v is not None and not isinstance(v, (int, float))]
-    if const:
-        args.append(float(const))
-    return LinearExpression(args)
+
+    A: sp.csc_matrix                  # rows x columns, no duplicates, no zeros
+    row_lower: np.ndarray
+    row_upper: np.ndarray
+    col_lower: np.ndarray
+    col_upper: np.ndarray
+    integer: np.ndarray               # bool per column
+    cost: np.ndarray
+    offset: float
+    maximize: bool
+    var_ranges: Dict[str, Tuple[int, int]]
+    var_index: Dict[str, list]        # family -> Pyomo index keys, in column order
+    binary: Dict[str, bool]
+    blocks: List[RowBlock]
+
+    @property
+    def num_col(self) -> int:
+        return self.A.shape[1]
+
+    @property
+    def num_row(self) -> int:
+        return self.A.shape[0]
 
 
 class Ctx:
@@ -95,11 +142,12 @@ class Ctx:
         self.T = int(p.horizon.steps)
         self.dt = float(p.horizon.step_hours)
         self.steps = range(self.T)
-        self.m = pe.ConcreteModel(name=p.name or "portfolio")
-        self.vars: Dict[str, pe.Var] = {}
+        self.n_cols = 0
         self.var_keys: Dict[str, List[tuple]] = {}
         self.var_blocks: Dict[str, Dict[Hashable, int]] = {}   # asset key -> first position
-        self._var_data: Dict[str, Dict[Hashable, list]] = {}   # asset -> [VarData per step]
+        self._var_start: Dict[str, int] = {}                    # family -> first column
+        self._col_of: Dict[str, Dict[Hashable, int]] = {}       # asset -> column of step 0
+        self._var_ub: Dict[str, Optional[float]] = {}
         self.binary_vars: List[str] = []
         self.families: Dict[str, Family] = {}
         self.expr: Dict[str, object] = {}        # expressions shared between modules
@@ -110,14 +158,17 @@ class Ctx:
 
     # -- variables -------------------------------------------------------------
     def add_var(self, name: str, assets: Sequence[Hashable], binary: bool = False,
-                ub: Optional[float] = None) -> Optional[pe.Var]:
+                ub: Optional[float] = None) -> Optional[int]:
         """A variable family indexed by ``(*asset, t)`` for every asset and step.
 
         ``assets`` are strings or tuples; the index order is asset-major, so the
-        values of one asset are contiguous (see :meth:`Built.array`).
+        values of one asset are contiguous (see :meth:`Built.array`).  Returns
+        the first column of the family (None when it has no entries).
         """
-        if name in self.vars:
+        if name in self.var_keys:
             raise RuntimeError(f"variable family {name} defined twice")
+        if name in self.families or name in RESERVED:
+            raise RuntimeError(f"variable family {name} clashes with a model component")
         keys: List[tuple] = []
         blocks: Dict[Hashable, int] = {}
         for a in assets:
@@ -127,41 +178,36 @@ class Ctx:
         self.var_keys[name] = keys
         self.var_blocks[name] = blocks
         if not keys:
-            self.vars[name] = None
             return None
-        domain = pe.Binary if binary else pe.NonNegativeReals
-        var = pe.Var(keys, domain=domain, bounds=(0, ub) if ub is not None else None,
-                     dense=True)
-        setattr(self.m, name, var)
-        self.vars[name] = var
-        datas = list(var.values())
-        self._var_data[name] = {a: datas[start:start + self.T] for a, start in blocks.items()}
+        start = self.n_cols
+        self.n_cols += len(keys)
+        self._var_start[name] = start
+        self._col_of[name] = {a: start + pos for a, pos in blocks.items()}
+        self._var_ub[name] = 1.0 if binary else ub
         if binary:
             self.binary_vars.append(name)
-        return var
+        return start
 
     def has(self, name: str, asset: Hashable) -> bool:
         blocks = self.var_blocks.get(name)
         return blocks is not None and asset in blocks
 
-    def v(self, name: str, asset: Hashable, t: int):
-        """The VarData of ``name[asset, t]``; ``None`` if absent or ``t`` < 0."""
-        if t < 0:
+    def v(self, name: str, asset: Hashable, t: int) -> Optional[int]:
+        """The column of ``name[asset, t]``; ``None`` if absent or ``t`` outside the horizon."""
+        if t < 0 or t >= self.T:
             return None
-        per_asset = self._var_data.get(name)
+        per_asset = self._col_of.get(name)
         if per_asset is None:
             return None
-        datas = per_asset.get(asset)
-        if datas is None or t >= self.T:
-            return None
-        return datas[t]
+        c = per_asset.get(asset)
+        return None if c is None else c + t
 
     # -- families --------------------------------------------------------------
     def family(self, name: str, kind: str = "rows", relaxable: bool = True,
                var: Optional[str] = None) -> Family:
         fam = self.families.get(name)
         if fam is None:
-            if hasattr(self.m, name) or name in self.vars:
+            if name in self.var_keys or name in RESERVED:
                 raise RuntimeError(f"family name {name} clashes with a model component")
             fam = Family(name, kind, relaxable, var)
             self.families[name] = fam
@@ -170,25 +216,36 @@ class Ctx:
     def row(self, family: str, key: tuple, terms, const: float = 0.0,
             lo: Optional[float] = None, hi: Optional[float] = None,
             origin: Optional[Origin] = None, relaxable: bool = True) -> None:
-        """Add ``lo <= sum(terms) + const <= hi`` to ``family``."""
-        fam = self.family(family, "rows", relaxable)
+        """Add ``lo <= sum(terms) + const <= hi`` to ``family``.
+
+        ``terms`` are ``(coef, column)`` pairs (columns from :meth:`v`); pairs
+        with a zero coefficient or a ``None`` column are dropped.
+        """
+        fam = self.families.get(family) or self.family(family, "rows", relaxable)
         if lo is None and hi is None:
             raise RuntimeError(f"row {family}{key} has no bound")
-        oi = fam.origin_index(origin) if origin is not None else -1
-        fam.rows.append((key, list(terms), float(const), lo, hi, oi))
+        fam.oi.append(fam.origin_index(origin) if origin is not None else -1)
+        fam.keys.append(key[0] if isinstance(key, tuple) and len(key) == 1 else key)
+        fam.lo.append(lo)
+        fam.hi.append(hi)
+        fam.const.append(const)
+        flat = fam.terms
+        n0 = len(flat)
+        flat.extend(terms)
+        fam.row_len.append(len(flat) - n0)
 
     def bound(self, family: str, var: str, asset: Hashable, t: int,
               lo: Optional[float] = None, hi: Optional[float] = None,
               origin: Optional[Origin] = None) -> None:
         """A bound on one variable entry (a relaxable row in relax mode)."""
-        if not self.has(var, asset):
+        col = self.v(var, asset, t)
+        if col is None:
             return
-        fam = self.family(family, "bounds", True, var)
+        fam = self.families.get(family) or self.family(family, "bounds", True, var)
         if fam.var != var:
             raise RuntimeError(f"bound family {family} used for two variables")
         oi = fam.origin_index(origin) if origin is not None else -1
-        at = asset if isinstance(asset, tuple) else (asset,)
-        fam.bounds.append((at + (t,), lo, hi, oi))
+        fam.bounds.append((col, lo, hi, oi))
 
     def origin_only(self, family: str, origin: Origin, kind: str = "rows") -> None:
         """Register an origin for a family whose rows carry none individually."""
@@ -198,77 +255,140 @@ class Ctx:
         self.objective_terms.extend(terms)
         self.objective_const += const
 
-    # -- turning it all into Pyomo ---------------------------------------------
-    def materialize(self) -> None:
-        slack_rows: List[tuple] = []
-        m = self.m
-        if self.relax:
-            n_slack = 0
-            for fam in self.families.values():
-                if fam.kind == "bounds":
-                    n_slack += sum((b[1] is not None) + (b[2] is not None) for b in fam.bounds)
-                elif fam.relaxable:
-                    n_slack += sum((r[3] is not None) + (r[4] is not None) for r in fam.rows)
-            m.slack = pe.Var(range(n_slack), domain=pe.NonNegativeReals, dense=True)
-        slack = getattr(m, "slack", None)
+    # -- turning it all into arrays ---------------------------------------------
+    def finish(self) -> Matrix:
+        """The collected variables, rows and bounds as a :class:`Matrix`."""
+        n = self.n_cols
+        col_lower = np.zeros(n)
+        col_upper = np.full(n, INF)
+        integer = np.zeros(n, dtype=bool)
+        var_ranges: Dict[str, Tuple[int, int]] = {}
+        var_index: Dict[str, list] = {}
+        binary: Dict[str, bool] = {}
+        col_key: List[object] = []        # filled only in relax mode: column -> (family, key)
+        for name, start in self._var_start.items():
+            stop = start + len(self.var_keys[name])
+            var_ranges[name] = (start, stop)
+            var_index[name] = self.var_keys[name]
+            binary[name] = name in self.binary_vars
+            ub = self._var_ub[name]
+            if ub is not None:
+                col_upper[start:stop] = ub
+            integer[start:stop] = binary[name]
 
-        def with_slack(fam, terms, lo, hi, oi, key):
-            terms = list(terms)
-            if lo is not None:
-                s = slack[len(slack_rows)]
-                slack_rows.append((fam.name, oi, "lo", key))
-                terms.append((1.0, s))
-            if hi is not None:
-                s = slack[len(slack_rows)]
-                slack_rows.append((fam.name, oi, "hi", key))
-                terms.append((-1.0, s))
-            return terms
+        rows_r: List[np.ndarray] = []     # triplets of every row family, global row numbers
+        rows_c: List[np.ndarray] = []
+        rows_v: List[np.ndarray] = []
+        row_lower: List[np.ndarray] = []
+        row_upper: List[np.ndarray] = []
+        blocks: List[RowBlock] = []
+        slack_rows: List[tuple] = []
+        n_rows = 0
+
+        def add_slacks(fam: Family, lo: np.ndarray, hi: np.ndarray, keys, first_row: int):
+            """A slack column per limited side of rows first_row.. (+s on the
+            lower side, -s on the upper), numbered row by row, lower side first."""
+            sides = np.stack([np.isfinite(lo), np.isfinite(hi)], axis=1).ravel()
+            which = np.nonzero(sides)[0]          # 2 * row + (0 lower, 1 upper)
+            s0 = n + len(slack_rows)
+            rows_r.append(first_row + which // 2)
+            rows_c.append(s0 + np.arange(len(which)))
+            rows_v.append(np.where(which % 2 == 0, 1.0, -1.0))
+            oi = fam.oi if fam.kind == "rows" else [b[3] for b in fam.bounds]
+            for w in which.tolist():
+                i = w // 2
+                slack_rows.append((fam.name, oi[i], "lo" if w % 2 == 0 else "hi", keys[i]))
 
         for fam in self.families.values():
             if fam.kind == "bounds":
-                var = self.vars[fam.var]
-                if not self.relax:
-                    for key, lo, hi, _ in fam.bounds:
-                        vd = var[key]
-                        if lo is not None and (vd.lb is None or lo > vd.lb):
-                            vd.setlb(lo)
-                        if hi is not None and (vd.ub is None or hi < vd.ub):
-                            vd.setub(hi)
+                if not fam.bounds:
                     continue
-                rows = {}
-                for key, lo, hi, oi in fam.bounds:
-                    # one row per bound call: keys may repeat, so number them
-                    terms = with_slack(fam, [(1.0, var[key])], lo, hi, oi, key)
-                    rows[len(rows)] = _relation(lin(terms), lo, hi)
-                if rows:
-                    setattr(m, fam.name, pe.Constraint(list(rows), rule=lambda _m, i, r=rows: r[i]))
+                cols = np.fromiter((b[0] for b in fam.bounds), dtype=np.int64, count=len(fam.bounds))
+                lo = np.array([b[1] for b in fam.bounds], dtype=float)    # None -> nan
+                hi = np.array([b[2] for b in fam.bounds], dtype=float)
+                lo[np.isnan(lo)] = -INF
+                hi[np.isnan(hi)] = INF
+                if not self.relax:
+                    np.maximum.at(col_lower, cols, lo)
+                    np.minimum.at(col_upper, cols, hi)
+                    continue
+                # relax mode: one row per bound call (keys may repeat, so number them)
+                if not col_key:
+                    col_key = self._column_keys()
+                m = len(cols)
+                rows_r.append(n_rows + np.arange(m))
+                rows_c.append(cols)
+                rows_v.append(np.ones(m))
+                add_slacks(fam, lo, hi, [col_key[c] for c in cols], n_rows)
+                row_lower.append(lo)
+                row_upper.append(hi)
+                blocks.append(RowBlock(fam.name, n_rows, n_rows + m, list(range(m))))
+                n_rows += m
                 continue
-            rows = {}
-            for key, terms, const, lo, hi, oi in fam.rows:
-                key = key[0] if isinstance(key, tuple) and len(key) == 1 else key
-                if key in rows:
-                    raise RuntimeError(f"row {fam.name}{key} added twice")
-                if self.relax and fam.relaxable:
-                    terms = with_slack(fam, terms, lo, hi, oi, key)
-                body = lin(terms, const)
-                rows[key] = _relation(body, lo, hi)
-            if rows:
-                setattr(m, fam.name,
-                        pe.Constraint(list(rows), rule=lambda _m, *k, r=rows: r[k[0] if len(k) == 1 else k]))
+            m = len(fam.keys)
+            if not m:
+                continue
+            if len(set(fam.keys)) != m:
+                seen = set()
+                for key in fam.keys:
+                    if key in seen:
+                        raise RuntimeError(f"row {fam.name}{key} added twice")
+                    seen.add(key)
+            const = np.array(fam.const, dtype=float)
+            lo = np.array(fam.lo, dtype=float)
+            hi = np.array(fam.hi, dtype=float)
+            lo = np.where(np.isnan(lo), -INF, lo - const)
+            hi = np.where(np.isnan(hi), INF, hi - const)
+            lens = np.array(fam.row_len, dtype=np.int64)
+            if fam.terms:
+                tv = np.array(fam.terms, dtype=float).reshape(-1, 2)   # None column -> nan
+                r = np.repeat(np.arange(m, dtype=np.int64), lens)
+                keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
+                rows_r.append(n_rows + r[keep])
+                rows_c.append(tv[keep, 1].astype(np.int64))
+                rows_v.append(tv[keep, 0])
+            if self.relax and fam.relaxable:
+                add_slacks(fam, lo, hi, fam.keys, n_rows)
+            row_lower.append(lo)
+            row_upper.append(hi)
+            blocks.append(RowBlock(fam.name, n_rows, n_rows + m, fam.keys))
+            n_rows += m
+
+        n_slack = len(slack_rows)
         self.slack_info = slack_rows
         if self.relax:
-            m.objective = pe.Objective(expr=lin([(1.0, slack[i]) for i in range(len(slack_rows))]),
-                                       sense=pe.minimize)
+            var_ranges["slack"] = (n, n + n_slack)
+            var_index["slack"] = list(range(n_slack))
+            binary["slack"] = False
+            col_lower = np.concatenate([col_lower, np.zeros(n_slack)])
+            col_upper = np.concatenate([col_upper, np.full(n_slack, INF)])
+            integer = np.concatenate([integer, np.zeros(n_slack, dtype=bool)])
+        n_total = n + n_slack
+
+        cost = np.zeros(n_total)
+        if self.relax:
+            cost[n:] = 1.0
+            offset, maximize = 0.0, False
         else:
-            m.objective = pe.Objective(expr=lin(self.objective_terms, self.objective_const),
-                                       sense=pe.maximize)
+            if self.objective_terms:
+                tv = np.array(self.objective_terms, dtype=float).reshape(-1, 2)
+                keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
+                np.add.at(cost, tv[keep, 1].astype(np.int64), tv[keep, 0])
+            offset, maximize = float(self.objective_const), True
 
+        cat = lambda parts, dtype: np.concatenate(parts) if parts else np.zeros(0, dtype=dtype)
+        A = sp.csc_matrix((cat(rows_v, float), (cat(rows_r, np.int64), cat(rows_c, np.int64))),
+                          shape=(n_rows, n_total))     # sums repeated entries
+        A.eliminate_zeros()
+        A.sort_indices()
+        return Matrix(A=A, row_lower=cat(row_lower, float), row_upper=cat(row_upper, float),
+                      col_lower=col_lower, col_upper=col_upper, integer=integer, cost=cost,
+                      offset=offset, maximize=maximize, var_ranges=var_ranges,
+                      var_index=var_index, binary=binary, blocks=blocks)
 
-def _relation(body, lo, hi):
-    if lo is not None and hi is not None:
-        if lo == hi:
-            return body == lo
-        return (lo, body, hi)
-    if lo is not None:
-        return body >= lo
-    return body <= hi
+    def _column_keys(self) -> List[tuple]:
+        """Column -> its variable key ``(*asset, t)``."""
+        out: List[tuple] = []
+        for name in self._var_start:
+            out.extend(self.var_keys[name])
+        return out

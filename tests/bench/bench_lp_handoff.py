@@ -1,9 +1,11 @@
 """Benchmark: Pyomo -> HiGHS hand-off for a large LP (not collected by pytest).
 
 10 storages x 8760 hourly steps, no binaries, one connection.  Compares the
-matrix path (standard-form compiler -> passModel) with Pyomo's ``highs``
-interface on the same model; each runs in its own process so that neither
-inherits the other's memory.
+matrix path (the compiler's arrays -> passModel) with Pyomo's ``highs``
+interface on the same model (its hand-off includes making the Pyomo model);
+each runs in its own process so that neither inherits the other's memory.
+Then end-to-end ``dispatch()`` against HiGHS alone on the same LP, written
+to MPS and re-solved in a fresh process.
 
     /tmp/venv/bin/python tests/bench/bench_lp_handoff.py [--storages 10] [--hours 8760]
 """
@@ -63,13 +65,13 @@ def end_to_end(storages: int, hours: int, mps_path: str) -> dict:
 
     from portfolio.compile import build
     from portfolio.dispatch import dispatch
-    from portfolio.solve import to_standard_form
+    from portfolio.solve import to_highs_lp
 
     p = portfolio(storages, hours)
     t0 = time.perf_counter()
     r = dispatch(p)
     wall = time.perf_counter() - t0
-    lp, _, _ = to_standard_form(build(p).model)
+    lp, _ = to_highs_lp(build(p))      # the very LP that dispatch() passed to HiGHS
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     h.passModel(lp)

@@ -137,6 +137,19 @@ def codes_markdown() -> str:
     return "\n".join(lines) + "\n"
 
 
+def _lint_first(path, err, consequence: str):
+    """Lint ``path`` and print its findings; (result, None) to go on, or (result, exit code)."""
+    r = lint_file(path)
+    for d in r.diagnostics:
+        print(format_text(d), file=err)
+    if r.unreadable:
+        return r, EXIT_USAGE
+    if not r.ok:
+        print(f"portfolio: {len(r.errors)} error(s) in {path}; {consequence}", file=err)
+        return r, EXIT_ERRORS
+    return r, None
+
+
 def cmd_graph(args, out, err) -> int:
     from .draw import write_picture
 
@@ -144,14 +157,9 @@ def cmd_graph(args, out, err) -> int:
     if target.suffix.lower() not in (".svg", ".png", ".dot", ".gv"):
         print(f"portfolio: error: cannot draw to '{target}': use a .svg, .png or .dot file name", file=err)
         return EXIT_USAGE
-    r = lint_file(args.file)
-    for d in r.diagnostics:
-        print(format_text(d), file=err)
-    if r.unreadable:
-        return EXIT_USAGE
-    if not r.ok:
-        print(f"portfolio: {len(r.errors)} error(s) in {args.file}; nothing was drawn", file=err)
-        return EXIT_ERRORS
+    r, code = _lint_first(args.file, err, "nothing was drawn")
+    if code is not None:
+        return code
     if target.resolve() == Path(args.file).resolve():
         print("portfolio: error: the picture would overwrite the portfolio file", file=err)
         return EXIT_USAGE
@@ -173,14 +181,9 @@ def cmd_dispatch(args, out, err) -> int:
     from .dispatch import dispatch, exit_code
     from .solve import SolveOptions
 
-    r = lint_file(args.file)
-    for d in r.diagnostics:
-        print(format_text(d), file=err)
-    if r.unreadable:
-        return EXIT_USAGE
-    if not r.ok:
-        print(f"portfolio: {len(r.errors)} error(s) in {args.file}; nothing was dispatched or written", file=err)
-        return EXIT_ERRORS
+    r, code = _lint_first(args.file, err, "nothing was dispatched or written")
+    if code is not None:
+        return code
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
     if problem is None and args.parquet:

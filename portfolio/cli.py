@@ -18,10 +18,7 @@ from . import __version__
 from .api import lint_file
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
 from .render import format_json, format_text
-
-CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
-           "operator's instructions and local codes and licensed practice always come first. Reservoir "
-           "spill affects people downstream.")
+from .schedule import CAUTION  # one wording for the terminal and summary.json
 
 
 class _Parser(argparse.ArgumentParser):

@@ -33,8 +33,9 @@ import pandas as pd
 NOISE = 1e-9
 MODE_TOL = 1e-6
 
-CAUTION = ("Schedules are advisory: plant protection, manufacturer limits, grid operator "
-           "instructions and local codes come first; reservoir spill affects people downstream.")
+CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
+           "operator's instructions and local codes and licensed practice always come first. Reservoir "
+           "spill affects people downstream.")
 
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",

@@ -37,6 +37,8 @@ from portfolio.model import END_AT_LEAST, END_EQUAL, Portfolio
 TOL = 1e-6
 MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 
+# The output contract restated from docs/outputs.md on purpose, not imported from
+# portfolio.schedule: if the writer's columns drift from the documented contract, the audit fails.
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
                 "inflow_from_routes_mw", "outflow_to_routes_mw"],

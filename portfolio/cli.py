@@ -66,6 +66,8 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--time-limit", type=_positive_float, metavar="S", help="stop after S seconds with the best schedule so far")
     d.add_argument("--gap", type=_gap, metavar="R", help="relative MIP gap to stop at (default 0.0001 = 0.01 %%)")
     d.add_argument("--threads", type=_threads, metavar="N", help="solver threads (default: HiGHS's choice)")
+    d.add_argument("--no-warm-start", action="store_true",
+                   help="skip the first schedule from the LP relaxation before the search")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
 
@@ -203,6 +205,8 @@ def cmd_dispatch(args, out, err) -> int:
         kw["mip_gap"] = args.gap
     if args.threads is not None:
         kw["threads"] = args.threads
+    if args.no_warm_start:
+        kw["warm_start"] = False
     options = SolveOptions(**kw)
     progress = _Progress(err, quiet=args.quiet)
     try:

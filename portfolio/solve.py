@@ -91,10 +91,14 @@ class SolveOptions:
     threads:    HiGHS threads (None: HiGHS' default).
     variant:    "tight" (start/stop formulation, one binary for plain
                 exclusivity) or "plain" (naive two-binary big-M, benchmarks).
-    interface:  "matrix" (standard-form compiler -> passModel) or "pyomo"
+    interface:  "matrix" (the compiler's arrays -> passModel) or "pyomo"
                 (Pyomo's ``highs`` interface).
     explain_infeasible: re-solve with slacks when infeasible (fills
                 ``DispatchResult.relaxed``).
+    warm_start: before the search of a MILP, find a first schedule from the
+                LP relaxation (:mod:`portfolio.warmstart`) and give it to
+                HiGHS (matrix interface only; its time counts against
+                ``time_limit``).  Off only for benchmarks and comparisons.
     """
 
     time_limit: Optional[float] = None
@@ -103,6 +107,7 @@ class SolveOptions:
     variant: str = "tight"
     interface: str = "matrix"
     explain_infeasible: bool = True
+    warm_start: bool = True
 
     def __post_init__(self):
         if self.time_limit is not None and not (self.time_limit > 0):
@@ -125,7 +130,10 @@ class Solution:
     mip_gap: Optional[float] = None
     values: Dict[str, np.ndarray] = field(default_factory=dict)
     handoff_seconds: float = 0.0      # Pyomo model -> solver (incl. compile)
-    solve_seconds: float = 0.0        # inside HiGHS
+    solve_seconds: float = 0.0        # inside HiGHS (the warm start included)
+    start_seconds: float = 0.0        # of which the warm start
+    start_objective: Optional[float] = None   # the warm start's schedule, when it found one
+    lp_bound: Optional[float] = None  # the LP relaxation's optimum (warm start), a bound
     load_seconds: float = 0.0         # solution -> arrays / Pyomo values
     highs_status: str = ""
     message: str = ""
@@ -284,14 +292,44 @@ def _values_by_family(built, x: np.ndarray) -> Dict[str, np.ndarray]:
 def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
     t0 = time.perf_counter()
     lp, is_mip = to_highs_lp(built)
-    h = new_highs(options)
-    h.passModel(lp)
     handoff = time.perf_counter() - t0
+
+    start = None
+    if is_mip and options.warm_start and not built.relax:
+        from . import warmstart
+        start = warmstart.find(built, lp, lambda: new_highs(options),
+                               warmstart.budget(options.time_limit))
+        if progress is not None and start.x is not None:
+            progress(start.seconds, start.objective, start.lp_bound,
+                     _gap(start.objective, start.lp_bound))
+    started = start.seconds if start is not None else 0.0
+    if start is not None and start.x is not None and \
+            _gap(start.objective, start.lp_bound) <= options.mip_gap:
+        # the LP bound already proves the start within the gap: no search needed
+        built.load_solution(start.x)
+        return Solution(status=OPTIMAL, objective=start.objective, best_bound=start.lp_bound,
+                        mip_gap=_gap(start.objective, start.lp_bound),
+                        values=_values_by_family(built, start.x), handoff_seconds=handoff,
+                        solve_seconds=started, highs_status="Optimal (warm start within the gap "
+                        "of the LP relaxation's bound)", solved=True, start_seconds=started,
+                        start_objective=start.objective, lp_bound=start.lp_bound)
+
+    t0 = time.perf_counter()
+    h = new_highs(options)
+    if options.time_limit is not None:
+        h.setOptionValue("time_limit", max(float(options.time_limit) - started, 0.01))
+    h.passModel(lp)
+    if start is not None and start.x is not None:
+        given = highspy.HighsSolution()
+        given.col_value = start.x.tolist()
+        given.value_valid = True
+        h.setSolution(given)
+    handoff += time.perf_counter() - t0
 
     failure: List[BaseException] = []
     if progress is not None and is_mip:
         last = [-1e9]
-        start = time.perf_counter()
+        begun = time.perf_counter()
 
         def report(e, force=False):
             now = time.perf_counter()
@@ -300,8 +338,8 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
             last[0] = now
             d = e.data_out
             try:
-                progress(now - start, _finite(d.mip_primal_bound), _finite(d.mip_dual_bound),
-                         _finite(d.mip_gap))
+                progress(started + now - begun, _finite(d.mip_primal_bound),
+                         _finite(d.mip_dual_bound), _finite(d.mip_gap))
             except BaseException as exc:  # stop HiGHS, re-raise after it returns
                 failure.append(exc)
                 e.interrupt()
@@ -319,8 +357,10 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
     info = h.getInfo()
     status = HIGHS_STATUS.get(model_status, ERROR)
     has_x = info.primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
-    sol = Solution(status=status, handoff_seconds=handoff, solve_seconds=solve_s,
-                   highs_status=h.modelStatusToString(model_status))
+    sol = Solution(status=status, handoff_seconds=handoff, solve_seconds=started + solve_s,
+                   highs_status=h.modelStatusToString(model_status), start_seconds=started)
+    if start is not None:
+        sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
     if run_status == highspy.HighsStatus.kError or status == ERROR:
         sol.message = f"HiGHS stopped with an error (model status: {sol.highs_status})"
     if model_status == _S.kModelEmpty:
@@ -331,7 +371,10 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
         sol.values = _values_by_family(built, x)
         sol.solved = True
         built.load_solution(x)     # into the Pyomo variables, if and when the model is made
-        sol.objective = float(info.objective_function_value) if lp.num_col_ else float(lp.offset_)
+        # from the values themselves: what HiGHS reports beside a given start
+        # has been seen to disagree with the solution it returns
+        sol.objective = float(built.matrix.cost @ x + built.matrix.offset) if lp.num_col_ \
+            else float(lp.offset_)
         if is_mip:
             sol.best_bound = _finite(info.mip_dual_bound)
             sol.mip_gap = _finite(info.mip_gap)
@@ -341,6 +384,13 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
     sol.load_seconds = time.perf_counter() - t2
     _resolve_limit(sol)
     return sol
+
+
+def _gap(primal: Optional[float], bound: Optional[float]) -> Optional[float]:
+    """HiGHS's relative gap |bound - primal| / |primal| (None when unknown)."""
+    if primal is None or bound is None:
+        return None
+    return abs(bound - primal) / max(abs(primal), 1e-9)
 
 
 def _resolve_limit(sol: Solution) -> None:

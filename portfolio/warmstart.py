@@ -1,0 +1,143 @@
+"""A first schedule before the branch-and-bound search (the warm start).
+
+On these models the LP relaxation is nearly exact: its bound lies within a few
+hundredths of a percent of the optimum, and HiGHS spends most of its time
+*finding* good schedules, not proving the bound (docs/performance.md).  So,
+before the search, for a MILP:
+
+1. solve the LP relaxation (every binary continuous in [0, 1]);
+2. fix every binary whose relaxed value is already 0 or 1 and solve the small
+   MILP that is left, in which only the fractional binaries are free: the
+   "RENS" neighbourhood of the relaxed solution (Berthold, "RENS: the optimal
+   rounding", Mathematical Programming Computation 6 (2014) 33-54);
+3. check what it finds against the matrix itself (column bounds, every row,
+   integrality), and hand it to HiGHS as its first incumbent.
+
+The neighbourhood may hold no schedule at all (the fixed binaries may be
+incompatible); then there is no start and the search runs as it would have.
+A start never changes the optimum, only how soon good schedules are known;
+it costs an LP and a small MILP, and its time counts against the time limit.
+
+The input is a compiled :class:`~portfolio.compile.Built` (its
+:class:`~portfolio.compile.Matrix`); the output is a :class:`Start`: one
+value per column of the original matrix, so nothing needs mapping back.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+from typing import Callable, Optional
+
+import numpy as np
+
+TOL = 1e-6            # feasibility and integrality tolerance of a start (HiGHS's default)
+SHARE = 0.25          # at most this share of a time limit goes to the start
+MAX_SECONDS = 60.0    # and never more than this
+
+
+@dataclass
+class Start:
+    """What the warm start found (``x`` is None when it found nothing)."""
+
+    x: Optional[np.ndarray]
+    objective: Optional[float]
+    lp_bound: Optional[float]        # the LP relaxation's optimum (a bound on the MILP)
+    seconds: float
+    fixed: int = 0                   # binaries fixed from the relaxation
+    free: int = 0                    # binaries left free in the neighbourhood
+    note: str = ""                   # why there is no start, when there is none
+
+
+def budget(time_limit: Optional[float]) -> float:
+    """Seconds the start may take under a time limit (None: no limit)."""
+    if time_limit is None:
+        return MAX_SECONDS
+    return min(MAX_SECONDS, SHARE * float(time_limit))
+
+
+def violation(mx, x: np.ndarray) -> float:
+    """The largest violation by ``x`` of a column bound, a row or integrality."""
+    if x.shape != (mx.num_col,) or not np.all(np.isfinite(x)):
+        return math.inf
+    worst = 0.0
+    if mx.num_col:
+        worst = max(worst, float(np.max(mx.col_lower - x, initial=0.0)),
+                    float(np.max(x - mx.col_upper, initial=0.0)))
+        xi = x[mx.integer]
+        if xi.size:
+            worst = max(worst, float(np.max(np.abs(xi - np.round(xi)))))
+    if mx.num_row:
+        r = mx.A @ x
+        worst = max(worst, float(np.max(mx.row_lower - r, initial=0.0)),
+                    float(np.max(r - mx.row_upper, initial=0.0)))
+    return worst
+
+
+def objective(mx, x: np.ndarray) -> float:
+    return float(mx.cost @ x + mx.offset)
+
+
+def find(built, lp, new_highs: Callable, seconds: float) -> Start:
+    """Search for a first schedule of ``built`` within ``seconds``.
+
+    ``lp`` is the ``HighsLp`` of its matrix and ``new_highs()`` gives a
+    configured ``highspy.Highs`` (options, threads, output off); both come
+    from :mod:`portfolio.solve`, which owns every contact with HiGHS.
+    """
+    import highspy
+
+    t0 = time.perf_counter()
+    mx = built.matrix
+    ints = np.nonzero(mx.integer)[0].astype(np.int32)
+    if not ints.size:
+        return Start(None, None, None, 0.0, note="no binaries")
+
+    def left() -> float:
+        return seconds - (time.perf_counter() - t0)
+
+    # 1. the LP relaxation
+    h = new_highs()
+    h.passModel(lp)
+    h.changeColsIntegrality(len(ints), ints,
+                            np.full(len(ints), highspy.HighsVarType.kContinuous))
+    h.setOptionValue("time_limit", max(left(), 0.01))
+    h.run()
+    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+        return Start(None, None, None, time.perf_counter() - t0,
+                     note=f"LP relaxation: {h.modelStatusToString(h.getModelStatus())}")
+    xr = np.asarray(h.getSolution().col_value, dtype=float)
+    lp_bound = objective(mx, xr)
+    del h
+
+    # 2. the RENS neighbourhood: binaries already integral are fixed
+    xi = xr[ints]
+    integral = np.abs(xi - np.round(xi)) <= TOL
+    fix = ints[integral]
+    vals = np.round(xr[fix])
+    free = int((~integral).sum())
+    if left() <= 0:
+        return Start(None, None, lp_bound, time.perf_counter() - t0, len(fix), free,
+                     note="no time left after the LP relaxation")
+    h = new_highs()
+    h.passModel(lp)
+    if len(fix):
+        h.changeColsBounds(len(fix), fix, vals, vals)
+    h.setOptionValue("time_limit", max(left(), 0.01))
+    h.run()
+    found = h.getInfo().primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
+    x = np.asarray(h.getSolution().col_value, dtype=float) if found else None
+    status = h.modelStatusToString(h.getModelStatus())
+    del h
+    elapsed = time.perf_counter() - t0
+    if x is None:
+        return Start(None, None, lp_bound, elapsed, len(fix), free,
+                     note=f"no schedule in the neighbourhood of the relaxation ({status})")
+
+    # 3. trust nothing: check it against the original matrix
+    x = np.where(mx.integer, np.round(x), x)
+    if violation(mx, x) > TOL * 10:
+        return Start(None, None, lp_bound, elapsed, len(fix), free,
+                     note="the neighbourhood's schedule does not satisfy the model")
+    return Start(x, objective(mx, x), lp_bound, elapsed, len(fix), free)

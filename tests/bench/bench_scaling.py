@@ -86,7 +86,8 @@ def run(n: int, time_limit: float, folder: Path, warm_starts=(True,)) -> dict:
         r = dispatch(p, SolveOptions(time_limit=time_limit, mip_gap=1e-4, warm_start=warm))
         row["solves"].append({"warm": warm, "solve_s": r.solve_seconds, "status": r.status,
                               "gap": r.mip_gap, "objective": r.objective,
-                              "start_s": r.summary["start_seconds"]})
+                              "start_s": r.summary["start_seconds"],
+                              "start_obj": r.summary["start_objective"]})
     return row
 
 
@@ -102,14 +103,15 @@ def main(argv=None) -> int:
     with tempfile.TemporaryDirectory() as tmp:
         for n in (int(x) for x in args.sizes.split(",")):
             rows.append(run(n, args.time_limit, Path(tmp), warm_starts))
-    print("| storages | lint s | build s | warm start | start s | solve s | status | gap | objective |")
-    print("|---:|---:|---:|---|---:|---:|---|---:|---:|")
+    print("| storages | lint s | build s | warm start | start s | start objective | solve s | status | gap | objective |")
+    print("|---:|---:|---:|---|---:|---:|---:|---|---:|---:|")
     for r in rows:
         for s in r["solves"]:
             gap = "—" if s["gap"] is None else f"{s['gap'] * 100:.3f} %"
             obj = "—" if s["objective"] is None else f"{s['objective']:.2f}"
+            sobj = "—" if s["start_obj"] is None else f"{s['start_obj']:.2f}"
             print(f"| {r['n']} | {r['lint_s']:.3f} | {r['build_s']:.3f} | {'on' if s['warm'] else 'off'} "
-                  f"| {s['start_s']:.2f} | {s['solve_s']:.2f} | {s['status']} | {gap} | {obj} |")
+                  f"| {s['start_s']:.2f} | {sobj} | {s['solve_s']:.2f} | {s['status']} | {gap} | {obj} |")
     ns = np.array([r["n"] for r in rows], float)
     bs = np.array([r["build_s"] for r in rows], float)
     slope = np.polyfit(np.log(ns), np.log(bs), 1)[0]

@@ -175,7 +175,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
         "zone": p.horizon.zone,
         "portfolio": p.name,
         "variant": options.variant,
-        "warm_start": options.warm_start,
+        "warm_start": options.warm_start and options.interface == "matrix",
         "caution": CAUTION,
     }
     summary.update(parts)

@@ -300,8 +300,11 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
         start = warmstart.find(built, lp, lambda: new_highs(options),
                                warmstart.budget(options.time_limit))
         if progress is not None and start.x is not None:
-            progress(start.seconds, start.objective, start.lp_bound,
-                     _gap(start.objective, start.lp_bound))
+            try:
+                progress(start.seconds, start.objective, start.lp_bound,
+                         _gap(start.objective, start.lp_bound))
+            except BaseException as exc:   # propagates from solve(), as from the search
+                raise _ProgressFailed(exc) from exc
     started = start.seconds if start is not None else 0.0
     if start is not None and start.x is not None and \
             _gap(start.objective, start.lp_bound) <= options.mip_gap:
@@ -378,6 +381,11 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
         if is_mip:
             sol.best_bound = _finite(info.mip_dual_bound)
             sol.mip_gap = _finite(info.mip_gap)
+            if start is not None and start.lp_bound is not None and built.matrix.maximize and \
+                    (sol.best_bound is None or start.lp_bound < sol.best_bound):
+                # stopped before HiGHS had a bound of its own: the LP relaxation's holds
+                sol.best_bound = start.lp_bound
+                sol.mip_gap = _gap(sol.objective, sol.best_bound)
         else:
             sol.best_bound = sol.objective if status == OPTIMAL else None
             sol.mip_gap = 0.0 if status == OPTIMAL else None

@@ -32,8 +32,8 @@ from typing import Callable, Optional
 
 import numpy as np
 
-TOL = 1e-6            # feasibility and integrality tolerance of a start (HiGHS's default)
-SHARE = 0.5           # at most this share of a time limit goes to the start
+TOL = 1e-6            # feasibility and integrality tolerance of a start (HiGHS's MIP default)
+SHARE = 0.5           # about this share of a time limit at most goes to the start
 MAX_SECONDS = 60.0    # and never more than this
 
 
@@ -140,7 +140,7 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
 
     # 3. trust nothing: check it against the original matrix
     x = np.where(mx.integer, np.round(x), x)
-    if violation(mx, x) > TOL * 10:
+    if violation(mx, x) > TOL:
         return Start(None, None, lp_bound, elapsed, len(fix), free,
                      note="the neighbourhood's schedule does not satisfy the model")
     return Start(x, objective(mx, x), lp_bound, elapsed, len(fix), free)

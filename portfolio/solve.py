@@ -381,7 +381,8 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
         if is_mip:
             sol.best_bound = _finite(info.mip_dual_bound)
             sol.mip_gap = _finite(info.mip_gap)
-            if start is not None and start.lp_bound is not None and built.matrix.maximize and \
+            if status == LIMIT and start is not None and start.lp_bound is not None and \
+                    built.matrix.maximize and \
                     (sol.best_bound is None or start.lp_bound < sol.best_bound):
                 # stopped before HiGHS had a bound of its own: the LP relaxation's holds
                 sol.best_bound = start.lp_bound

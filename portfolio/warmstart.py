@@ -15,8 +15,10 @@ before the search, for a MILP:
 
 The neighbourhood may hold no schedule at all (the fixed binaries may be
 incompatible); then there is no start and the search runs as it would have.
-A start never changes the optimum, only how soon good schedules are known;
-it costs an LP and a small MILP, and its time counts against the time limit.
+A start does not change the optimum, only how soon good schedules are known
+(with a positive gap, the schedule returned may be a different one of the
+same proven quality); it costs an LP and a small MILP, and its time counts
+against the time limit.
 
 The input is a compiled :class:`~portfolio.compile.Built` (its
 :class:`~portfolio.compile.Matrix`); the output is a :class:`Start`: one

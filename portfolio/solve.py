@@ -41,6 +41,8 @@ from typing import Callable, Dict, List, Optional, Tuple
 import highspy
 import numpy as np
 
+from . import warmstart
+
 OPTIMAL = "optimal"
 FEASIBLE = "feasible"
 INFEASIBLE = "infeasible"
@@ -296,7 +298,6 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
 
     start = None
     if is_mip and options.warm_start and not built.relax:
-        from . import warmstart
         start = warmstart.find(built, lp, lambda: new_highs(options),
                                warmstart.budget(options.time_limit))
         if progress is not None and start.x is not None:
@@ -376,8 +377,7 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
         built.load_solution(x)     # into the Pyomo variables, if and when the model is made
         # from the values themselves: what HiGHS reports beside a given start
         # has been seen to disagree with the solution it returns
-        sol.objective = float(built.matrix.cost @ x + built.matrix.offset) if lp.num_col_ \
-            else float(lp.offset_)
+        sol.objective = warmstart.objective(built.matrix, x) if lp.num_col_ else float(lp.offset_)
         if is_mip:
             sol.best_bound = _finite(info.mip_dual_bound)
             sol.mip_gap = _finite(info.mip_gap)

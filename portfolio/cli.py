@@ -215,6 +215,8 @@ def cmd_dispatch(args, out, err) -> int:
         progress.close()
     status = result.status
     print(_status_line(result), file=out)
+    for note in result.summary.get("notes", ()):
+        print(f"note: {note}", file=out)
     if status in ("optimal", "feasible"):
         formats = ("csv", "parquet") if args.parquet else ("csv",)
         from .writers import OutputFolderError

@@ -25,7 +25,7 @@ from .compile import Built, build
 from .model import Portfolio
 from .schedule import CAUTION, build_tables, wide
 from .solve import (ERROR, FEASIBLE, INFEASIBLE, INFEASIBLE_OR_UNBOUNDED, NO_SCHEDULE, OPTIMAL,
-                    UNBOUNDED, Progress, SolveOptions, solve)
+                    UNBOUNDED, Deadline, Progress, SolveOptions, solve)
 from .spans import Span
 
 SLACK_TOL = 1e-6
@@ -98,10 +98,10 @@ class DispatchResult:
         return write(self, out_dir, formats=formats)
 
 
-def _explain(p: Portfolio, options: SolveOptions, index) -> tuple:
+def _explain(p: Portfolio, options: SolveOptions, index, deadline: Deadline) -> tuple:
     """Relax-mode solve: (list of Relaxation, total slack) or (None, None)."""
     rb = build(p, variant=options.variant, relax=True)
-    rs = solve(rb, replace(options, explain_infeasible=False))
+    rs = solve(rb, replace(options, explain_infeasible=False), deadline=deadline)
     if not rs.solved:
         return None, None
     s = np.asarray(rs.values.get("slack", np.zeros(0)), dtype=float)
@@ -127,15 +127,22 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
              progress: Optional[Progress] = None) -> DispatchResult:
     """Schedule ``p``; see the module docstring."""
     options = options or SolveOptions()
+    deadline = Deadline(options.time_limit)    # every phase below counts against it
     built = build(p, variant=options.variant)
-    sol = solve(built, options, progress)
+    sol = solve(built, options, progress, deadline=deadline)
     status = sol.status
     relaxed: List[Relaxation] = []
     message = sol.message
+    notes = list(sol.notes)
     index = p.horizon.index
-    if status == INFEASIBLE_OR_UNBOUNDED or (status == INFEASIBLE and options.explain_infeasible):
+    wants_explanation = status == INFEASIBLE_OR_UNBOUNDED or (
+        status == INFEASIBLE and options.explain_infeasible)
+    if wants_explanation and deadline.expired():
+        notes.append("no time left within the time limit to explain the infeasibility")
+        wants_explanation = False
+    if wants_explanation:
         t0 = time.perf_counter()
-        found, total = _explain(p, options, index)
+        found, total = _explain(p, options, index, deadline)
         if found is None:
             status = INFEASIBLE if status == INFEASIBLE else ERROR
             message = message or "the solver could not tell infeasible from unbounded"
@@ -169,6 +176,11 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
         "start_objective": sol.start_objective,
         "lp_bound": sol.lp_bound,
         "explain_seconds": explain_s,
+        "polish_seconds": sol.polish_seconds,
+        "time_limit": options.time_limit,
+        "certificate": sol.certificate,
+        "polish": sol.polish,
+        "tie_break": sol.tie_break,
         "steps": built.steps,
         "step_hours": built.step_hours,
         "start": p.horizon.start.isoformat(),
@@ -180,6 +192,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     }
     summary.update(parts)
     summary["relaxed"] = [r.to_dict() for r in relaxed]
+    summary["notes"] = notes
     if message:
         summary["message"] = message
     return DispatchResult(

@@ -35,13 +35,13 @@ import os
 import sys
 import threading
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable, Dict, List, Optional, Tuple
 
 import highspy
 import numpy as np
 
-from . import warmstart
+from . import certify, polish, warmstart
 
 OPTIMAL = "optimal"
 FEASIBLE = "feasible"
@@ -140,6 +140,11 @@ class Solution:
     highs_status: str = ""
     message: str = ""
     solved: bool = False              # a primal solution is in ``values``
+    notes: List[str] = field(default_factory=list)   # re-solves, polish, tie-break: what was done and why
+    certificate: Optional[dict] = None               # what the checks of portfolio.certify found
+    polish: Optional[dict] = None
+    tie_break: Optional[dict] = None
+    polish_seconds: float = 0.0
 
 
 Progress = Callable[[float, Optional[float], Optional[float], Optional[float]], None]
@@ -191,14 +196,17 @@ def _use_threads(threads: Optional[int]) -> None:
             _threads_in_use[0] = threads
 
 
-def new_highs(options: SolveOptions) -> highspy.Highs:
+def new_highs(options: SolveOptions, seconds: Optional[float] = None) -> highspy.Highs:
+    """A configured, silent Highs; ``seconds`` is its time limit (None: the
+    options' limit, if any; a phase passes what is left of the dispatch's)."""
     _quiet_banner()
     _use_threads(options.threads)
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("mip_rel_gap", float(options.mip_gap))
-    if options.time_limit is not None:
-        h.setOptionValue("time_limit", float(options.time_limit))
+    limit = seconds if seconds is not None else options.time_limit
+    if limit is not None:
+        h.setOptionValue("time_limit", max(float(limit), 0.01))
     if options.threads is not None:
         h.setOptionValue("threads", int(options.threads))
     return h
@@ -291,45 +299,48 @@ def _values_by_family(built, x: np.ndarray) -> Dict[str, np.ndarray]:
     return {name: x[start:stop] for name, (start, stop) in built.matrix.var_ranges.items()}
 
 
-def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
-    t0 = time.perf_counter()
-    lp, is_mip = to_highs_lp(built)
-    handoff = time.perf_counter() - t0
+class Deadline:
+    """The seconds left of one time limit, shared by every phase of a dispatch
+    (build, warm start, search, re-solves, polish, explanation)."""
 
-    start = None
-    if is_mip and options.warm_start and not built.relax:
-        start = warmstart.find(built, lp, lambda: new_highs(options),
-                               warmstart.budget(options.time_limit))
-        if progress is not None and start.x is not None:
-            try:
-                progress(start.seconds, start.objective, start.lp_bound,
-                         _gap(start.objective, start.lp_bound))
-            except BaseException as exc:   # propagates from solve(), as from the search
-                raise _ProgressFailed(exc) from exc
-    started = start.seconds if start is not None else 0.0
-    if start is not None and start.x is not None and \
-            _gap(start.objective, start.lp_bound) <= options.mip_gap:
-        # the LP bound already proves the start within the gap: no search needed
-        built.load_solution(start.x)
-        return Solution(status=OPTIMAL, objective=start.objective, best_bound=start.lp_bound,
-                        mip_gap=_gap(start.objective, start.lp_bound),
-                        values=_values_by_family(built, start.x), handoff_seconds=handoff,
-                        solve_seconds=started, highs_status="Optimal (warm start within the gap "
-                        "of the LP relaxation's bound)", solved=True, start_seconds=started,
-                        start_objective=start.objective, lp_bound=start.lp_bound)
+    def __init__(self, seconds: Optional[float], clock: Callable[[], float] = time.perf_counter):
+        self.limit = None if seconds is None else float(seconds)
+        self.clock = clock
+        self.began = clock()
 
-    t0 = time.perf_counter()
-    h = new_highs(options)
-    if options.time_limit is not None:
-        h.setOptionValue("time_limit", max(float(options.time_limit) - started, 0.01))
+    def left(self) -> Optional[float]:
+        """Seconds left (may be negative); None without a limit."""
+        return None if self.limit is None else self.limit - (self.clock() - self.began)
+
+    def expired(self) -> bool:
+        left = self.left()
+        return left is not None and left <= 0
+
+
+@dataclass
+class _Run:
+    """One HiGHS run of the matrix: what it claims, and the object for a hot start."""
+
+    status: str
+    claim: certify.Claim
+    highs: object
+    seconds: float
+    highs_status: str
+    error: bool = False
+
+
+def _run_highs(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
+               given: Optional[np.ndarray], extra: Dict[str, object], label: str,
+               progress: Optional[Progress], offset_s: float) -> _Run:
+    h = new_highs(options, deadline.left())
+    for k, v in extra.items():
+        h.setOptionValue(k, v)
     h.passModel(lp)
-    if start is not None and start.x is not None:
-        given = highspy.HighsSolution()
-        given.col_value = start.x.tolist()
-        given.value_valid = True
-        h.setSolution(given)
-    handoff += time.perf_counter() - t0
-
+    if given is not None:
+        start = highspy.HighsSolution()
+        start.col_value = given.tolist()
+        start.value_valid = True
+        h.setSolution(start)
     failure: List[BaseException] = []
     if progress is not None and is_mip:
         last = [-1e9]
@@ -342,7 +353,7 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
             last[0] = now
             d = e.data_out
             try:
-                progress(started + now - begun, _finite(d.mip_primal_bound),
+                progress(offset_s + now - begun, _finite(d.mip_primal_bound),
                          _finite(d.mip_dual_bound), _finite(d.mip_gap))
             except BaseException as exc:  # stop HiGHS, re-raise after it returns
                 failure.append(exc)
@@ -350,69 +361,178 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress]) ->
 
         h.cbMipImprovingSolution.subscribe(lambda e: report(e, force=True))
         h.cbMipInterrupt.subscribe(report)
-
     t1 = time.perf_counter()
     run_status = h.run()
-    solve_s = time.perf_counter() - t1
+    seconds = time.perf_counter() - t1
     if failure:
         raise _ProgressFailed(failure[0])
-
     model_status = h.getModelStatus()
     info = h.getInfo()
     status = HIGHS_STATUS.get(model_status, ERROR)
     has_x = info.primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
-    sol = Solution(status=status, handoff_seconds=handoff, solve_seconds=started + solve_s,
-                   highs_status=h.modelStatusToString(model_status), start_seconds=started)
-    if start is not None:
-        sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
-    if run_status == highspy.HighsStatus.kError or status == ERROR:
-        sol.message = f"HiGHS stopped with an error (model status: {sol.highs_status})"
     if model_status == _S.kModelEmpty:
         has_x = True
-    t2 = time.perf_counter()
+    x = None
     if status in (OPTIMAL, LIMIT) and has_x:
         x = np.asarray(h.getSolution().col_value, dtype=float) if lp.num_col_ else np.zeros(0)
-        sol.values = _values_by_family(built, x)
-        sol.solved = True
-        built.load_solution(x)     # into the Pyomo variables, if and when the model is made
-        # from the values themselves: what HiGHS reports beside a given start
-        # has been seen to disagree with the solution it returns
-        sol.objective = warmstart.objective(built.matrix, x) if lp.num_col_ else float(lp.offset_)
+    claim = certify.Claim(x=x, optimal=status == OPTIMAL, source=label)
+    if x is not None:
+        claim.objective = _finite(info.objective_function_value) if lp.num_col_ else None
         if is_mip:
-            sol.best_bound = _finite(info.mip_dual_bound)
-            sol.mip_gap = _finite(info.mip_gap)
-            if status == LIMIT and start is not None and start.lp_bound is not None and \
-                    built.matrix.maximize and \
-                    (sol.best_bound is None or start.lp_bound < sol.best_bound):
-                # stopped before HiGHS had a bound of its own: the LP relaxation's holds
-                sol.best_bound = start.lp_bound
-                sol.mip_gap = _gap(sol.objective, sol.best_bound)
+            claim.bound = _finite(info.mip_dual_bound)
+        elif status == OPTIMAL:
+            # an LP's bound from its own row duals, checked (certify.dual_bound);
+            # HiGHS's figure only where no finite bound follows from them
+            dual = certify.dual_bound(built.matrix, np.asarray(h.getSolution().row_dual, dtype=float))
+            claim.bound = dual if dual is not None else claim.objective
+            if dual is not None:
+                claim.source = f"{label} (bound from the LP's duals)"
+    return _Run(status=status, claim=claim, highs=h, seconds=seconds,
+                highs_status=h.modelStatusToString(model_status),
+                error=run_status == highspy.HighsStatus.kError or status == ERROR)
+
+
+# How to try again when a claim fails its certificate: each entry is
+# (label, keep the warm start, extra HiGHS options).
+RETRIES = (
+    ("HiGHS", True, {}),
+    ("HiGHS without the warm start", False, {}),
+    ("HiGHS without the warm start, presolve off", False, {"presolve": "off"}),
+)
+
+
+def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
+                  deadline: Deadline) -> Solution:
+    t0 = time.perf_counter()
+    lp, is_mip = to_highs_lp(built)
+    mx = built.matrix
+    handoff = time.perf_counter() - t0
+    sol = Solution(status=ERROR, handoff_seconds=handoff)
+
+    start = None
+    if is_mip and options.warm_start and not built.relax:
+        start = warmstart.find(built, lp, lambda: new_highs(options, deadline.left()),
+                               warmstart.budget(deadline.left()))
+        sol.start_seconds = start.seconds
+        sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
+        if progress is not None and start.x is not None:
+            try:
+                progress(start.seconds, start.objective, start.lp_bound,
+                         certify.gap(start.objective, start.lp_bound, mx.maximize))
+            except BaseException as exc:   # propagates from solve(), as from the search
+                raise _ProgressFailed(exc) from exc
+    given = start.x if start is not None else None
+    lp_bound = start.lp_bound if start is not None else None
+
+    chosen: Optional[certify.Certificate] = None
+    chosen_x: Optional[np.ndarray] = None
+    hot = None
+    run: Optional[_Run] = None
+    if given is not None:
+        cert = certify.certify(mx, certify.Claim(given, optimal=True, source="the warm start"),
+                               options.mip_gap, lp_bound)
+        if cert.status == certify.OPTIMAL and cert.ok:
+            # the verified LP bound already proves the start within the gap: no search
+            chosen, chosen_x = cert, given
+            sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
+    searched = 0.0
+    if chosen is None:
+        tries = [r for r in RETRIES if given is not None or not r[1]]
+        for i, (label, keep_start, extra) in enumerate(tries):
+            if i and deadline.expired():
+                sol.notes.append(f"no time left to solve again ({label})")
+                break
+            run = _run_highs(built, lp, is_mip, options, deadline, given if keep_start else None,
+                             extra, label, progress, sol.start_seconds + searched)
+            searched += run.seconds
+            sol.highs_status = run.highs_status
+            if run.claim.x is None:
+                if keep_start and given is not None and run.status != LIMIT:
+                    sol.notes.append(f"{label} returned no schedule ({run.highs_status}) although "
+                                     f"it was given a feasible one; solved again")
+                    continue
+                sol.status = run.status
+                if run.error:
+                    sol.message = f"HiGHS stopped with an error (model status: {run.highs_status})"
+                break
+            cert = certify.certify(mx, run.claim, options.mip_gap, lp_bound)
+            if cert.feasible and (chosen is None or _better(mx, cert, chosen)):
+                chosen, chosen_x, hot = cert, np.asarray(run.claim.x, dtype=float), run.highs
+            if cert.ok:
+                chosen, chosen_x, hot = cert, np.asarray(run.claim.x, dtype=float), run.highs
+                break
+            nxt = tries[i + 1][0] if i + 1 < len(tries) else None
+            sol.notes.append("; ".join(cert.failures) + (
+                f": not reported; solved again ({nxt})" if nxt else ": not reported"))
+    sol.solve_seconds = sol.start_seconds + searched
+    if chosen is None and given is not None:
+        chosen = certify.certify(mx, certify.Claim(given, optimal=False, source="the warm start"),
+                                 options.mip_gap, lp_bound)
+        chosen_x = given
+        sol.notes.append("the warm start's schedule is returned: the search gave none")
+    if chosen is None or chosen_x is None:
+        if sol.status == LIMIT:
+            sol.status = NO_SCHEDULE
+        elif sol.status == OPTIMAL:
+            sol.status = ERROR
+            sol.message = "HiGHS reported optimal but returned no schedule"
+        return sol
+
+    t2 = time.perf_counter()
+    x = chosen_x
+    if not built.relax:
+        pol = polish.polish(mx, lp, x, lambda s: new_highs(options, s), deadline.left(),
+                            _tidy_columns(built), built.step_hours,
+                            hot=None if is_mip else hot)
+        sol.notes += pol.notes
+        sol.polish = {"gained": pol.gained, "seconds": pol.seconds}
+        sol.tie_break = {"spilled_and_curtailed_mwh_before": pol.tidy_before,
+                         "spilled_and_curtailed_mwh_after": pol.tidy_after,
+                         "objective_given_up": pol.tidy_cost}
+        x = pol.x
+        final = certify.certify(mx, certify.Claim(x, optimal=chosen.status == certify.OPTIMAL,
+                                                  bound=chosen.bound, source="the polished schedule"),
+                                options.mip_gap, lp_bound)
+        if not final.ok and final.feasible:
+            sol.notes += [f"{f}: the search's bound is dropped" for f in final.failures]
+            final = certify.certify(mx, certify.Claim(x, optimal=False, source="the polished schedule"),
+                                    options.mip_gap, lp_bound)
+        if final.feasible:
+            if final.bound is not None and final.bound == chosen.bound:
+                final.bound_source = chosen.bound_source
+            chosen = final
         else:
-            sol.best_bound = sol.objective if status == OPTIMAL else None
-            sol.mip_gap = 0.0 if status == OPTIMAL else None
-    sol.load_seconds = time.perf_counter() - t2
-    _resolve_limit(sol)
+            x = chosen_x
+    sol.polish_seconds = time.perf_counter() - t2
+    sol.values = _values_by_family(built, x)
+    sol.solved = True
+    built.load_solution(x)     # into the Pyomo variables, if and when the model is made
+    _settle(sol, chosen)
     return sol
 
 
-def _gap(primal: Optional[float], bound: Optional[float]) -> Optional[float]:
-    """HiGHS's relative gap |bound - primal| / |primal| (None when unknown)."""
-    if primal is None or bound is None:
-        return None
-    return abs(bound - primal) / max(abs(primal), 1e-9)
+def _better(mx, a: certify.Certificate, b: certify.Certificate) -> bool:
+    sense = 1.0 if mx.maximize else -1.0
+    return sense * ((a.objective or 0.0) - (b.objective or 0.0)) > 0
 
 
-def _resolve_limit(sol: Solution) -> None:
-    if sol.status == LIMIT:
-        sol.status = FEASIBLE if sol.solved else NO_SCHEDULE
-    elif sol.status == OPTIMAL and not sol.solved:
-        sol.status = ERROR
-        sol.message = "solver reported optimal but returned no solution"
+def _tidy_columns(built) -> np.ndarray:
+    """Columns of spill and curtailment (what the tie-break minimises)."""
+    ranges = [built.matrix.var_ranges[n] for n in ("spill", "curtailed") if n in built.matrix.var_ranges]
+    return np.concatenate([np.arange(a, b) for a, b in ranges]) if ranges else np.zeros(0, dtype=int)
+
+
+def _settle(sol: Solution, cert: certify.Certificate) -> None:
+    """The reported figures: the certificate's, never a solver's."""
+    sol.objective, sol.best_bound, sol.mip_gap = cert.objective, cert.bound, cert.gap
+    sol.status = OPTIMAL if cert.status == certify.OPTIMAL else FEASIBLE
+    sol.certificate = cert.to_dict()
 
 
 # --- the Pyomo interface path ----------------------------------------------------
 
-def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> Solution:
+def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress],
+                 deadline: Deadline) -> Solution:
     from pyomo.common.errors import InfeasibleConstraintException
     from pyomo.contrib.solver.solvers.highs import Highs as PyomoHighs
 
@@ -421,8 +541,8 @@ def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> 
     opt = PyomoHighs()
     kw = dict(load_solutions=False, raise_exception_on_nonoptimal_result=False, tee=False,
               rel_gap=float(options.mip_gap))
-    if options.time_limit is not None:
-        kw["time_limit"] = float(options.time_limit)
+    if deadline.left() is not None:
+        kw["time_limit"] = max(float(deadline.left()), 0.01)
     if options.threads is not None:
         kw["threads"] = int(options.threads)
     t0 = time.perf_counter()
@@ -438,30 +558,26 @@ def _solve_pyomo(built, options: SolveOptions, progress: Optional[Progress]) -> 
     status = HIGHS_STATUS.get(model_status, ERROR)
     sol = Solution(status=status, handoff_seconds=max(total - solve_s, 0.0), solve_seconds=solve_s,
                    highs_status=h.modelStatusToString(model_status))
-    t2 = time.perf_counter()
-    if status in (OPTIMAL, LIMIT) and res.incumbent_objective is not None:
-        res.solution_loader.load_vars()
-        sol.values = {}
-        sol.solved = True
-        names = list(built.var_keys) + (["slack"] if built.relax else [])
-        for name in names:
-            var = getattr(built.model, name, None)
-            if var is None:
-                continue
-            sol.values[name] = np.fromiter(
-                (0.0 if vd.value is None else vd.value for vd in var.values()), dtype=float,
-                count=len(var))
-        sol.objective = float(res.incumbent_objective)
-        sol.best_bound = _finite(res.objective_bound)
-        if built.has_binaries:
-            info = h.getInfo()
-            sol.mip_gap = _finite(info.mip_gap)
-        else:
-            sol.mip_gap = 0.0 if status == OPTIMAL else None
-            if status == OPTIMAL:
-                sol.best_bound = sol.objective
-    sol.load_seconds = time.perf_counter() - t2
-    _resolve_limit(sol)
+    if not (status in (OPTIMAL, LIMIT) and res.incumbent_objective is not None):
+        sol.status = NO_SCHEDULE if status == LIMIT else status
+        return sol
+    res.solution_loader.load_vars()
+    x = np.fromiter((0.0 if v.value is None else v.value for v in built.model_columns),
+                    dtype=float, count=built.matrix.num_col)
+    bound = _finite(res.objective_bound) if built.has_binaries else None
+    claim = certify.Claim(x, optimal=status == OPTIMAL, objective=float(res.incumbent_objective),
+                          bound=bound if built.has_binaries else float(res.incumbent_objective),
+                          source="Pyomo's HiGHS interface")
+    cert = certify.certify(built.matrix, claim, options.mip_gap)
+    if not cert.ok:
+        again = _solve_matrix(built, replace(options, warm_start=False), progress, deadline)
+        again.notes.insert(0, "; ".join(cert.failures) + ": not reported; solved again "
+                           "(the matrix path, without the warm start)")
+        return again
+    sol.values = _values_by_family(built, x)
+    sol.solved = True
+    built.load_solution(x)
+    _settle(sol, cert)
     return sol
 
 
@@ -476,18 +592,22 @@ class _ProgressFailed(Exception):
 
 
 def solve(built, options: Optional[SolveOptions] = None,
-          progress: Optional[Progress] = None) -> Solution:
+          progress: Optional[Progress] = None, deadline: Optional[Deadline] = None) -> Solution:
     """Solve a :class:`~portfolio.compile.Built`; never raises for solver trouble.
 
-    Solver failures become ``status="error"`` with ``message`` set; an
+    Every figure returned is certified (:mod:`portfolio.certify`); a claim
+    that fails is solved again another way, with a note.  ``deadline`` is
+    the dispatch's shared time limit (default: ``options.time_limit`` from
+    now).  Solver failures become ``status="error"`` with ``message`` set; an
     exception raised by ``progress`` stops the solve and propagates.
     """
     options = options or SolveOptions()
+    deadline = deadline or Deadline(options.time_limit)
     try:
         if options.interface == "pyomo":
-            sol = _solve_pyomo(built, options, progress)
+            sol = _solve_pyomo(built, options, progress, deadline)
         else:
-            sol = _solve_matrix(built, options, progress)
+            sol = _solve_matrix(built, options, progress, deadline)
     except _ProgressFailed as exc:
         raise exc.original
     except _Infeasible as exc:

@@ -34,7 +34,8 @@ from typing import Callable, Optional
 
 import numpy as np
 
-TOL = 1e-6            # feasibility and integrality tolerance of a start (HiGHS's MIP default)
+from .certify import TOL, check_vector, dual_bound, objective
+
 SHARE = 0.5           # about this share of a time limit at most goes to the start
 MAX_SECONDS = 60.0    # and never more than this
 
@@ -45,7 +46,7 @@ class Start:
 
     x: Optional[np.ndarray]
     objective: Optional[float]
-    lp_bound: Optional[float]        # the LP relaxation's optimum (a bound on the MILP)
+    lp_bound: Optional[float]        # the LP relaxation's verified bound (None: none followed)
     seconds: float
     fixed: int = 0                   # binaries fixed from the relaxation
     free: int = 0                    # binaries left free in the neighbourhood
@@ -56,29 +57,7 @@ def budget(time_limit: Optional[float]) -> float:
     """Seconds the start may take under a time limit (None: no limit)."""
     if time_limit is None:
         return MAX_SECONDS
-    return min(MAX_SECONDS, SHARE * float(time_limit))
-
-
-def violation(mx, x: np.ndarray) -> float:
-    """The largest violation by ``x`` of a column bound, a row or integrality."""
-    if x.shape != (mx.num_col,) or not np.all(np.isfinite(x)):
-        return math.inf
-    worst = 0.0
-    if mx.num_col:
-        worst = max(worst, float(np.max(mx.col_lower - x, initial=0.0)),
-                    float(np.max(x - mx.col_upper, initial=0.0)))
-        xi = x[mx.integer]
-        if xi.size:
-            worst = max(worst, float(np.max(np.abs(xi - np.round(xi)))))
-    if mx.num_row:
-        r = mx.A @ x
-        worst = max(worst, float(np.max(mx.row_lower - r, initial=0.0)),
-                    float(np.max(r - mx.row_upper, initial=0.0)))
-    return worst
-
-
-def objective(mx, x: np.ndarray) -> float:
-    return float(mx.cost @ x + mx.offset)
+    return max(0.0, min(MAX_SECONDS, SHARE * float(time_limit)))
 
 
 def find(built, lp, new_highs: Callable, seconds: float) -> Start:
@@ -95,6 +74,8 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
     ints = np.nonzero(mx.integer)[0].astype(np.int32)
     if not ints.size:
         return Start(None, None, None, 0.0, note="no binaries")
+    if seconds <= 0:
+        return Start(None, None, None, 0.0, note="no time left for a warm start")
 
     def left() -> float:
         return seconds - (time.perf_counter() - t0)
@@ -113,7 +94,9 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
         return Start(None, None, None, time.perf_counter() - t0,
                      note=f"LP relaxation: {h.modelStatusToString(h.getModelStatus())}")
     xr = np.asarray(h.getSolution().col_value, dtype=float)
-    lp_bound = objective(mx, xr)
+    # the bound is the one that follows from the relaxation's row duals
+    # (certify.dual_bound), not the figure HiGHS reports
+    lp_bound = dual_bound(mx, np.asarray(h.getSolution().row_dual, dtype=float))
     del h
 
     # 2. the RENS neighbourhood: binaries already integral are fixed
@@ -142,7 +125,7 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
 
     # 3. trust nothing: check it against the original matrix
     x = np.where(mx.integer, np.round(x), x)
-    if violation(mx, x) > TOL:
+    if check_vector(mx, x)[0] > TOL:
         return Start(None, None, lp_bound, elapsed, len(fix), free,
                      note="the neighbourhood's schedule does not satisfy the model")
     return Start(x, objective(mx, x), lp_bound, elapsed, len(fix), free)

@@ -55,14 +55,6 @@ def test_status_table_covers_every_highs_status():
     assert S.HIGHS_STATUS[highspy.HighsModelStatus.kTimeLimit] == S.LIMIT
 
 
-def test_limit_becomes_feasible_or_no_schedule():
-    with_x = S.Solution(status=S.LIMIT, values={"soc": [1.0]}, solved=True)
-    without = S.Solution(status=S.LIMIT)
-    S._resolve_limit(with_x)
-    S._resolve_limit(without)
-    assert (with_x.status, without.status) == ("feasible", "no_schedule")
-
-
 @pytest.mark.parametrize("status, code", [("optimal", 0), ("feasible", 0), ("infeasible", 3),
                                           ("unbounded", 4), ("no_schedule", 5), ("error", 6)])
 def test_exit_codes(status, code):

@@ -1,0 +1,160 @@
+"""Polish a schedule and break ties toward less spill and curtailment.
+
+Two linear programmes, run after the search on the schedule it returned
+(stage 5b, called by :mod:`portfolio.solve`, which owns every contact with
+HiGHS):
+
+1. **Polish** (a MILP only): fix every integer column at the returned
+   schedule and solve the LP that is left.  If that earns more, the search's
+   schedule was not optimal in its continuous part (a solver's "optimal" is a
+   claim: this has been seen from HiGHS alone), and the better one is kept.
+2. **Tie-break**: among schedules worth as much as the one in hand (within
+   :data:`TIE_TOL` of its value, integers still fixed), take the one that
+   spills and curtails the least energy.  Spill and curtailment cost nothing
+   in the objective, so without this a solver may spill water downstream, or
+   throw away solar, for no reason: a safety matter for the people below a
+   reservoir.  The money given up is at most ``TIE_TOL`` of the objective (or
+   ``TIE_ABS``, a millionth of a currency unit, when that is larger), plus
+   the solver's feasibility tolerance, and is reported (``tie_break`` in
+   summary.json).
+
+Each step keeps its result only when the checks of :mod:`portfolio.certify`
+pass on the original matrix; otherwise the schedule in hand stays and a note
+says why.  Both steps run under the caller's time budget; without time left
+they are skipped and a note says so.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable, List, Optional, Sequence
+
+import numpy as np
+
+from .certify import TOL, check_vector, objective
+
+TIE_TOL = 1e-9        # share of the objective the tie-break may give up ...
+TIE_ABS = 1e-6        # ... or this much money, whichever is larger
+GAIN_TOL = 1e-9       # a polish gain below this share of the objective is noise
+TIDY_MIN = 1e-9       # MWh of spill and curtailment below which no tie-break runs
+
+
+@dataclass
+class Polished:
+    x: np.ndarray
+    objective: float
+    gained: float = 0.0                   # money the fixed-integer LP found above the search's schedule
+    tidy_before: Optional[float] = None   # MWh spilled + curtailed before the tie-break
+    tidy_after: Optional[float] = None
+    tidy_cost: float = 0.0                # money the tie-break gave up (>= 0)
+    seconds: float = 0.0
+    notes: List[str] = field(default_factory=list)
+
+
+def tidy_total(x: np.ndarray, cols: np.ndarray, dt: float) -> float:
+    """MWh spilled and curtailed by ``x`` (the columns are MW)."""
+    return float(dt * x[cols].sum()) if cols.size else 0.0
+
+
+def polish(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float],
+           tidy_cols: Sequence[int], dt: float, hot=None) -> Polished:
+    """Polish ``x`` and break ties (see the module docstring).
+
+    ``lp`` is the HighsLp of ``mx``; ``new_highs(seconds)`` gives a configured
+    Highs; ``hot``, for an LP, is the Highs that solved it (the tie-break then
+    starts from its basis).  ``seconds`` None means no limit.
+    """
+    import highspy
+
+    t0 = time.perf_counter()
+    cols = np.asarray(tidy_cols, dtype=np.int32)
+    best = Polished(x=np.asarray(x, dtype=float), objective=objective(mx, x))
+
+    def left() -> Optional[float]:
+        return None if seconds is None else seconds - (time.perf_counter() - t0)
+
+    def out_of_time(step: str) -> bool:
+        if left() is not None and left() <= 0:
+            best.notes.append(f"{step} skipped: no time left within the time limit")
+            return True
+        return False
+
+    ints = np.nonzero(mx.integer)[0].astype(np.int32)
+    sense = 1.0 if mx.maximize else -1.0
+    h = hot
+    if ints.size:
+        if out_of_time("polish (integers fixed, LP re-solved)"):
+            best.seconds = time.perf_counter() - t0
+            return best
+        h = new_highs(left())
+        h.passModel(lp)
+        vals = np.round(best.x[ints])
+        h.changeColsBounds(len(ints), ints, vals, vals)
+        h.changeColsIntegrality(len(ints), ints,
+                                np.full(len(ints), highspy.HighsVarType.kContinuous))
+        h.run()
+        if h.getModelStatus() == highspy.HighsModelStatus.kOptimal:
+            xp = np.asarray(h.getSolution().col_value, dtype=float)
+            xp[ints] = vals
+            gain = sense * (objective(mx, xp) - best.objective)
+            if check_vector(mx, xp)[0] <= TOL and gain > GAIN_TOL * max(1.0, abs(best.objective)):
+                best.gained = gain
+                best.x, best.objective = xp, objective(mx, xp)
+                best.notes.append(f"polish: with its integer decisions fixed, the search's schedule "
+                                  f"earns {gain:.6g} more; the better schedule is returned")
+        else:
+            best.notes.append("polish: the fixed-integer LP did not solve "
+                              f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
+            h = None
+    if cols.size:
+        best.tidy_before = best.tidy_after = tidy_total(best.x, cols, dt)
+    if not cols.size or best.tidy_before <= TIDY_MIN or not mx.maximize \
+            or out_of_time("tie-break (less spill and curtailment)"):
+        best.seconds = time.perf_counter() - t0
+        return best
+    if h is None:
+        if ints.size:          # the fixed-integer LP did not solve: nothing to start from
+            best.seconds = time.perf_counter() - t0
+            return best
+        h = new_highs(left())
+        h.passModel(lp)
+    _tie_break(mx, h, best, cols, dt, left())
+    best.seconds = time.perf_counter() - t0
+    return best
+
+
+def _tie_break(mx, h, best: Polished, cols: np.ndarray, dt: float, seconds: Optional[float]) -> None:
+    """Least spill + curtailment at (nearly) the value in hand, on ``h`` (solved, integers fixed)."""
+    import highspy
+
+    allowed = max(TIE_TOL * abs(best.objective), TIE_ABS)
+    nz = np.nonzero(mx.cost)[0].astype(np.int32)
+    h.addRow(best.objective - float(mx.offset) - allowed, highspy.kHighsInf,
+             len(nz), nz, mx.cost[nz].astype(float))
+    n = mx.num_col
+    h.changeColsCost(n, np.arange(n, dtype=np.int32), np.zeros(n))
+    h.changeColsCost(len(cols), cols, np.full(len(cols), dt))
+    h.changeObjectiveOffset(0.0)
+    h.changeObjectiveSense(highspy.ObjSense.kMinimize)
+    if seconds is not None:
+        h.setOptionValue("time_limit", max(seconds, 0.01))
+    h.run()
+    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+        best.notes.append("tie-break: the least-spill LP did not solve "
+                          f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
+        return
+    xt = np.asarray(h.getSolution().col_value, dtype=float)
+    ints = mx.integer
+    xt[ints] = np.round(best.x[ints])
+    value = objective(mx, xt)
+    after = tidy_total(xt, cols, dt)
+    cost = best.objective - value
+    # HiGHS holds the added row to its feasibility tolerance (1e-7, scaled): allow for it
+    if check_vector(mx, xt)[0] > TOL or cost > 2 * allowed + 1e-6 or after > best.tidy_before:
+        best.notes.append("tie-break: the least-spill schedule failed the checks; schedule kept")
+        return
+    if after < best.tidy_before - TIDY_MIN:
+        best.notes.append(f"tie-break: {best.tidy_before - after:.6g} MWh less spill and "
+                          f"curtailment at a cost of {max(cost, 0.0):.3g} in money")
+        best.x, best.objective, best.tidy_after, best.tidy_cost = xt, value, after, max(cost, 0.0)

@@ -20,12 +20,21 @@ HiGHS output is switched off; the library never prints.  Progress goes to
 an optional ``progress(elapsed_s, best_objective, best_bound, gap)``
 callable.
 
-Our status set (``STATUSES``) is mapped from ``highspy.HighsModelStatus`` by
-the single table ``HIGHS_STATUS``.  Two entries there are not final:
-``LIMIT`` (a time, iteration, solution or memory limit or an interrupt)
-becomes ``feasible`` when an incumbent exists and ``no_schedule`` when not;
-``INFEASIBLE_OR_UNBOUNDED`` is resolved by :mod:`portfolio.dispatch`, which
-re-solves with slacks (zero total slack means unbounded).
+What HiGHS returns is a claim (:class:`portfolio.certify.Claim`): no
+status, objective, bound or gap is reported before :func:`portfolio.certify.certify`
+has checked it against the matrix.  A claim that fails is solved again the
+next way in ``RETRIES`` (without the warm start, then with presolve off), and
+``Solution.notes`` says so.  The certified schedule is then polished and its
+spill tie broken (:mod:`portfolio.polish`) and certified once more.  Every
+phase runs under one :class:`Deadline`.
+
+HiGHS's ``HighsModelStatus`` is mapped by the single table ``HIGHS_STATUS``
+to what it claims; with a schedule in hand the reported status is the
+certificate's (``optimal`` or ``feasible``).  Without one, ``LIMIT`` (a time,
+iteration, solution or memory limit or an interrupt) becomes
+``no_schedule``; ``INFEASIBLE_OR_UNBOUNDED`` is resolved by
+:mod:`portfolio.dispatch`, which re-solves with slacks (zero total slack
+means unbounded).
 """
 
 from __future__ import annotations

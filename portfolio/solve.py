@@ -410,13 +410,22 @@ RETRIES = (
 )
 
 
+@dataclass
+class _Pick:
+    """The schedule chosen so far: its certificate, values and (for an LP) the
+    Highs that solved it, for a hot-started tie-break."""
+
+    cert: Optional[certify.Certificate] = None
+    x: Optional[np.ndarray] = None
+    hot: object = None
+
+
 def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
                   deadline: Deadline) -> Solution:
     t0 = time.perf_counter()
     lp, is_mip = to_highs_lp(built)
     mx = built.matrix
-    handoff = time.perf_counter() - t0
-    sol = Solution(status=ERROR, handoff_seconds=handoff)
+    sol = Solution(status=ERROR, handoff_seconds=time.perf_counter() - t0)
 
     start = None
     if is_mip and options.warm_start and not built.relax:
@@ -433,91 +442,102 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
     given = start.x if start is not None else None
     lp_bound = start.lp_bound if start is not None else None
 
-    chosen: Optional[certify.Certificate] = None
-    chosen_x: Optional[np.ndarray] = None
-    hot = None
-    run: Optional[_Run] = None
+    pick = _Pick()
     if given is not None:
         cert = certify.certify(mx, certify.Claim(given, optimal=True, source="the warm start"),
                                options.mip_gap, lp_bound)
         if cert.status == certify.OPTIMAL and cert.ok:
             # the verified LP bound already proves the start within the gap: no search
-            chosen, chosen_x = cert, given
+            pick = _Pick(cert, given)
             sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
-    searched = 0.0
-    if chosen is None:
-        tries = [r for r in RETRIES if given is not None or not r[1]]
-        for i, (label, keep_start, extra) in enumerate(tries):
-            if i and deadline.expired():
-                sol.notes.append(f"no time left to solve again ({label})")
-                break
-            run = _run_highs(built, lp, is_mip, options, deadline, given if keep_start else None,
-                             extra, label, progress, sol.start_seconds + searched)
-            searched += run.seconds
-            sol.highs_status = run.highs_status
-            if run.claim.x is None:
-                if keep_start and given is not None and run.status != LIMIT:
-                    sol.notes.append(f"{label} returned no schedule ({run.highs_status}) although "
-                                     f"it was given a feasible one; solved again")
-                    continue
-                sol.status = run.status
-                if run.error:
-                    sol.message = f"HiGHS stopped with an error (model status: {run.highs_status})"
-                break
-            cert = certify.certify(mx, run.claim, options.mip_gap, lp_bound)
-            if cert.feasible and (chosen is None or _better(mx, cert, chosen)):
-                chosen, chosen_x, hot = cert, np.asarray(run.claim.x, dtype=float), run.highs
-            if cert.ok:
-                chosen, chosen_x, hot = cert, np.asarray(run.claim.x, dtype=float), run.highs
-                break
-            nxt = tries[i + 1][0] if i + 1 < len(tries) else None
-            sol.notes.append("; ".join(cert.failures) + (
-                f": not reported; solved again ({nxt})" if nxt else ": not reported"))
-    sol.solve_seconds = sol.start_seconds + searched
-    if chosen is None and given is not None:
-        chosen = certify.certify(mx, certify.Claim(given, optimal=False, source="the warm start"),
-                                 options.mip_gap, lp_bound)
-        chosen_x = given
+    if pick.cert is None:
+        pick = _search(built, lp, is_mip, options, deadline, given, lp_bound, progress, sol)
+    if pick.cert is None and given is not None:
+        pick = _Pick(certify.certify(mx, certify.Claim(given, optimal=False, source="the warm start"),
+                                     options.mip_gap, lp_bound), given)
         sol.notes.append("the warm start's schedule is returned: the search gave none")
-    if chosen is None or chosen_x is None:
+    if pick.cert is None or pick.x is None:
         if sol.status == LIMIT:
             sol.status = NO_SCHEDULE
         elif sol.status == OPTIMAL:
             sol.status = ERROR
             sol.message = "HiGHS reported optimal but returned no schedule"
         return sol
+    _finish(built, lp, is_mip, options, deadline, lp_bound, pick, sol)
+    return sol
 
-    t2 = time.perf_counter()
-    x = chosen_x
+
+def _search(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
+            given: Optional[np.ndarray], lp_bound: Optional[float],
+            progress: Optional[Progress], sol: Solution) -> _Pick:
+    """HiGHS's search, tried again the next way in RETRIES while its claim
+    fails the certificate; the best certified-feasible schedule is kept."""
+    mx = built.matrix
+    pick = _Pick()
+    searched = 0.0
+    tries = [r for r in RETRIES if given is not None or not r[1]]
+    for i, (label, keep_start, extra) in enumerate(tries):
+        if i and deadline.expired():
+            sol.notes.append(f"no time left to solve again ({label})")
+            break
+        run = _run_highs(built, lp, is_mip, options, deadline, given if keep_start else None,
+                         extra, label, progress, sol.start_seconds + searched)
+        searched += run.seconds
+        sol.solve_seconds = sol.start_seconds + searched
+        sol.highs_status = run.highs_status
+        if run.claim.x is None:
+            if keep_start and run.status != LIMIT:
+                sol.notes.append(f"{label} returned no schedule ({run.highs_status}) although "
+                                 f"it was given a feasible one; solved again")
+                continue
+            sol.status = run.status
+            if run.error:
+                sol.message = f"HiGHS stopped with an error (model status: {run.highs_status})"
+            break
+        cert = certify.certify(mx, run.claim, options.mip_gap, lp_bound)
+        if cert.feasible and (pick.cert is None or cert.ok or _better(mx, cert, pick.cert)):
+            pick = _Pick(cert, np.asarray(run.claim.x, dtype=float), run.highs)
+        if cert.ok:
+            break
+        nxt = tries[i + 1][0] if i + 1 < len(tries) else None
+        sol.notes.append("; ".join(cert.failures) + (
+            f": not reported; solved again ({nxt})" if nxt else ": not reported"))
+    sol.solve_seconds = sol.start_seconds + searched
+    return pick
+
+
+def _finish(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
+            lp_bound: Optional[float], pick: _Pick, sol: Solution) -> None:
+    """Polish, break the spill tie, certify the final schedule, fill ``sol``."""
+    mx = built.matrix
+    t0 = time.perf_counter()
+    x, chosen = pick.x, pick.cert
     if not built.relax:
         pol = polish.polish(mx, lp, x, lambda s: new_highs(options, s), deadline.left(),
                             _tidy_columns(built), built.step_hours,
-                            hot=None if is_mip else hot)
+                            hot=None if is_mip else pick.hot)
         sol.notes += pol.notes
         sol.polish = {"gained": pol.gained, "seconds": pol.seconds}
         sol.tie_break = {"spilled_and_curtailed_mwh_before": pol.tidy_before,
                          "spilled_and_curtailed_mwh_after": pol.tidy_after,
                          "objective_given_up": pol.tidy_cost}
-        x = pol.x
-        final = certify.certify(mx, certify.Claim(x, optimal=chosen.status == certify.OPTIMAL,
+        final = certify.certify(mx, certify.Claim(pol.x, optimal=chosen.status == certify.OPTIMAL,
                                                   bound=chosen.bound, source="the polished schedule"),
                                 options.mip_gap, lp_bound)
         if not final.ok and final.feasible:
             sol.notes += [f"{f}: the search's bound is dropped" for f in final.failures]
-            final = certify.certify(mx, certify.Claim(x, optimal=False, source="the polished schedule"),
+            final = certify.certify(mx, certify.Claim(pol.x, optimal=False,
+                                                      source="the polished schedule"),
                                     options.mip_gap, lp_bound)
         if final.feasible:
             if final.bound is not None and final.bound == chosen.bound:
                 final.bound_source = chosen.bound_source
-            chosen = final
-        else:
-            x = chosen_x
-    sol.polish_seconds = time.perf_counter() - t2
+            chosen, x = final, pol.x
+    sol.polish_seconds = time.perf_counter() - t0
     sol.values = _values_by_family(built, x)
     sol.solved = True
     built.load_solution(x)     # into the Pyomo variables, if and when the model is made
     _settle(sol, chosen)
-    return sol
 
 
 def _better(mx, a: certify.Certificate, b: certify.Certificate) -> bool:

@@ -8,11 +8,16 @@ Pipeline (one module each): :mod:`syntax` (text -> tree with spans) ->
 
 __version__ = "0.1.0"
 
-from .api import load, lint_file, lint_text  # noqa: E402,F401
+__all__ = ["load", "lint_file", "lint_text", "SolveOptions", "__version__"]
 
 
 def __getattr__(name):
-    # SolveOptions lives with the solver; importing it lazily keeps `portfolio lint` free of Pyomo/HiGHS
+    # Imported on first use: `import portfolio` (and the command's start-up, where
+    # a Ctrl-C must land in the command's own handler) stays cheap, and
+    # `portfolio lint` never loads Pyomo or HiGHS.
+    if name in ("load", "lint_file", "lint_text"):
+        from . import api
+        return getattr(api, name)
     if name == "SolveOptions":
         from .solve import SolveOptions
         return SolveOptions

@@ -9,16 +9,19 @@ the limits; 6 solver failure.
 from __future__ import annotations
 
 import argparse
+import errno
+import os
 import sys
 import time
 from pathlib import Path
 from typing import List, Optional
 
 from . import __version__
-from .api import lint_file
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
 from .render import format_json, format_text
-from .schedule import CAUTION  # one wording for the terminal and summary.json
+
+# Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
+# are used, so that `--help` is quick and a Ctrl-C during start-up is handled.
 
 
 class _Parser(argparse.ArgumentParser):
@@ -43,7 +46,8 @@ def _checked(convert, ok, need: str):
 
 _positive_float = _checked(float, lambda v: v > 0, "above zero")
 _gap = _checked(float, lambda v: 0 <= v < 1, "a fraction from 0 to below 1 (0.0001 = 0.01 %)")
-_threads = _checked(int, lambda v: v >= 1, "1 or more")
+MAX_THREADS = 256     # as portfolio.solve.MAX_THREADS (not imported here: start-up stays light)
+_threads = _checked(int, lambda v: 1 <= v <= MAX_THREADS, f"from 1 to {MAX_THREADS}")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -100,6 +104,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
 
 
 def cmd_lint(args, out, err) -> int:
+    from .api import lint_file
+
     report = Report()
     results = []
     for f in args.files:
@@ -138,6 +144,8 @@ def codes_markdown() -> str:
 
 def _lint_first(path, err, consequence: str):
     """Lint ``path`` and print its findings; (result, None) to go on, or (result, exit code)."""
+    from .api import lint_file
+
     r = lint_file(path)
     for d in r.diagnostics:
         print(format_text(d), file=err)
@@ -214,29 +222,31 @@ def cmd_dispatch(args, out, err) -> int:
     finally:
         progress.close()
     status = result.status
-    print(_status_line(result), file=out)
-    for note in result.summary.get("notes", ()):
-        print(f"note: {note}", file=out)
+    from .writers import OutputFolderError
     if status in ("optimal", "feasible"):
+        # written first: a closed or full terminal must not cost the schedule
         formats = ("csv", "parquet") if args.parquet else ("csv",)
-        from .writers import OutputFolderError
         try:
             result.write(out_dir, formats=formats)
         except (OSError, ValueError, OutputFolderError) as e:
+            print(_status_line(result), file=out)
             print(f"portfolio: error: cannot write '{out_dir}': {e}", file=err)
             return EXIT_USAGE
+        _print_result(result, out)
         if not args.quiet:
+            from .schedule import CAUTION   # one wording for the terminal and summary.json
             _print_assets(result, out)
             print(f"schedule written to {out_dir}/", file=out)
             print(f"caution: {CAUTION}", file=out)
     else:
-        _explain_failure(result, err)
-        from .writers import OutputFolderError
         try:   # no schedule, but the summary (status, limits that gave) for tools to read
             result.write(out_dir)
-            print(f"summary written to {out_dir}/summary.json (no schedule)", file=err)
+            written = f"summary written to {out_dir}/summary.json (no schedule)"
         except (OSError, ValueError, OutputFolderError) as e:
-            print(f"portfolio: could not write the summary to '{out_dir}': {e}", file=err)
+            written = f"portfolio: could not write the summary to '{out_dir}': {e}"
+        _print_result(result, out)
+        _explain_failure(result, err)
+        print(written, file=err)
     return exit_code(status)
 
 
@@ -248,6 +258,12 @@ def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
     if od.exists() and not od.is_dir():
         return f"'{out_dir}' exists and is not a folder"
     return None
+
+
+def _print_result(result, out) -> None:
+    print(_status_line(result), file=out)
+    for note in result.summary.get("notes", ()):
+        print(f"note: {note}", file=out)
 
 
 def _status_line(result) -> str:
@@ -364,7 +380,36 @@ class _Progress:
 
 
 def run() -> None:  # console-script entry point
-    sys.exit(main())
+    """``main`` with the process-level cases: Ctrl-C (exit 130), a reader
+    that went away (``portfolio lint ... | head``) or a full standard output:
+    a message or silence, never a traceback."""
+    try:
+        code = main()
+        sys.stdout.flush()
+    except KeyboardInterrupt:
+        _quiet_stdout()
+        print("portfolio: interrupted", file=sys.stderr)
+        code = 130
+    except BrokenPipeError:
+        _quiet_stdout()                 # the reader has gone: nothing more to say
+        code = 141                      # 128 + SIGPIPE, as a shell reports it
+    except OSError as e:
+        if e.errno not in (errno.ENOSPC, errno.EIO, errno.EDQUOT):
+            raise
+        _quiet_stdout()
+        print(f"portfolio: cannot write to standard output: {e.strerror}", file=sys.stderr)
+        code = EXIT_USAGE
+    sys.exit(code)
+
+
+def _quiet_stdout() -> None:
+    """Point fd 1 at /dev/null so the interpreter's final flush cannot fail."""
+    try:
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    except (OSError, ValueError, AttributeError):
+        pass
 
 
 if __name__ == "__main__":  # pragma: no cover

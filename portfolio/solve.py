@@ -89,6 +89,7 @@ HIGHS_STATUS: Dict[object, str] = {
 }
 
 INTERFACES = ("matrix", "pyomo")
+MAX_THREADS = 256     # HiGHS aborts the whole process (C++) on absurd thread counts
 VARIANTS = ("tight", "plain")
 
 
@@ -125,8 +126,10 @@ class SolveOptions:
             raise ValueError(f"time_limit must be positive seconds, got {self.time_limit!r}")
         if not (0 <= self.mip_gap < 1):
             raise ValueError(f"mip_gap must be a fraction in [0, 1), got {self.mip_gap!r}")
-        if self.threads is not None and (not isinstance(self.threads, int) or self.threads < 1):
-            raise ValueError(f"threads must be a positive integer, got {self.threads!r}")
+        if self.threads is not None and (not isinstance(self.threads, int)
+                                         or not 1 <= self.threads <= MAX_THREADS):
+            raise ValueError(f"threads must be a whole number from 1 to {MAX_THREADS}, "
+                             f"got {self.threads!r}")
         if self.variant not in VARIANTS:
             raise ValueError(f"variant must be one of {VARIANTS}, got {self.variant!r}")
         if self.interface not in INTERFACES:

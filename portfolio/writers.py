@@ -7,7 +7,16 @@ previous folder (untouched) or the complete new one.
 An existing ``out_dir`` is replaced only when it is empty or a previous
 output folder: it holds the marker file :data:`MARKER` and nothing that the
 marker does not list.  Anything else is refused with
-:class:`OutputFolderError` (so an input folder is never written into).
+:class:`OutputFolderError` (so an input folder is never written into), and
+so is the working folder or one of its parents (renaming it away would pull
+the floor from under the shell).
+
+The new folder keeps the old one's permission bits (setgid included), group
+and POSIX ACLs; a new folder gets the usual ``0777 & ~umask``.  Files are
+fsynced, then the folder, before the rename.  Writers of one folder take
+turns: an advisory lock (``.<name>.lock`` beside it, ``fcntl.flock``, removed
+on release) is held from the temporary folder's creation to the rename, and
+whoever holds it removes temporary folders that a killed run left behind.
 
 Files (docs/outputs.md): ``<name>.csv`` per asset, ``schedule.csv`` (wide),
 ``summary.json``, and with ``formats=("csv", "parquet")`` the same tables as
@@ -16,9 +25,11 @@ Files (docs/outputs.md): ``<name>.csv`` per asset, ``schedule.csv`` (wide),
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
+import stat
 import shutil
 import tempfile
 import uuid
@@ -101,6 +112,15 @@ def _check_target(out: Path, result) -> None:
         if src_dir == out_r or out_r in src_dir.parents:
             raise OutputFolderError(
                 f"output folder {out} contains the portfolio's own files; choose another folder")
+    try:
+        cwd = Path.cwd().resolve()
+        out_r = out.resolve()
+        if out_r == cwd or out_r in cwd.parents:
+            raise OutputFolderError(
+                f"output folder {out} is the working folder or holds it; choose a new folder "
+                f"(it is replaced as a whole)")
+    except OSError:
+        pass
     if not out.exists() and not out.is_symlink():
         return
     if not out.is_dir() or out.is_symlink():
@@ -141,7 +161,76 @@ def _write_all(result, folder: Path, formats) -> List[str]:
     written.append("summary.json")
     (folder / MARKER).write_text(json.dumps({"written_by": "portfolio", "files": written}) + "\n",
                                  encoding="utf-8")
+    for name in written + [MARKER]:
+        _fsync(folder / name)
+    _fsync(folder)
     return written
+
+
+def _fsync(path: Path) -> None:
+    """Flush a file's or a folder's data to disk (a folder: its entries)."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+_ACL_KEYS = ("system.posix_acl_access", "system.posix_acl_default")
+
+
+def _copy_access(old: Path, new: Path) -> None:
+    """Give ``new`` (and its files) the permission bits, group and ACLs of ``old``."""
+    st = os.stat(old)
+    with contextlib.suppress(OSError):          # only the owner or root may change the group
+        os.chown(new, -1, st.st_gid)
+    os.chmod(new, stat.S_IMODE(st.st_mode))
+    file_mode = stat.S_IMODE(st.st_mode) & 0o666
+    for f in new.iterdir():
+        with contextlib.suppress(OSError):
+            os.chown(f, -1, st.st_gid)
+        os.chmod(f, file_mode & ~_umask())
+    for key in _ACL_KEYS:                       # Linux: POSIX ACLs live in extended attributes
+        with contextlib.suppress(OSError, AttributeError):
+            os.setxattr(new, key, os.getxattr(old, key))
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+@contextlib.contextmanager
+def _turn(parent: Path, name: str):
+    """Hold the advisory lock of output folder ``name`` in ``parent``; while it
+    is held, remove temporary folders left by writers that were killed.
+
+    The lock file is removed on release; a writer that waited on a file since
+    removed (another inode now at the path, or none) tries again, so two
+    writers never both hold it.
+    """
+    import fcntl
+
+    lock_path = parent / f".{name}.lock"
+    while True:
+        fd = os.open(lock_path, os.O_RDWR | os.O_CREAT, 0o666)
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        try:
+            if os.stat(lock_path).st_ino == os.fstat(fd).st_ino:
+                break
+        except FileNotFoundError:
+            pass
+        os.close(fd)
+    try:
+        for stale in list(parent.glob(f".{name}.tmp-*")) + list(parent.glob(f".{name}.old-*")):
+            if stale.is_dir() and not stale.is_symlink():
+                shutil.rmtree(stale, ignore_errors=True)
+        yield
+    finally:
+        with contextlib.suppress(OSError):
+            os.unlink(lock_path)
+        os.close(fd)          # releases the lock
 
 
 def check_output_folder(out_dir, portfolio) -> None:
@@ -188,12 +277,22 @@ def write(result, out_dir, formats=("csv",)) -> Path:
     except OSError as exc:
         raise OutputFolderError(f"cannot create {parent}: {exc.strerror or exc}") from None
     try:
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.tmp-", dir=parent))
-        os.chmod(tmp, 0o755)
+        with _turn(parent, out.name):
+            _check_target(out, result)        # again: another writer may have been first
+            _replace(result, out, parent, formats)
     except OSError as exc:
         raise OutputFolderError(f"cannot write in {parent}: {exc.strerror or exc}") from None
+    return out
+
+
+def _replace(result, out: Path, parent: Path, formats) -> None:
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.tmp-", dir=parent))
     try:
         _write_all(result, tmp, formats)
+        if out.exists():
+            _copy_access(out, tmp)
+        else:
+            os.chmod(tmp, 0o777 & ~_umask())
         if out.exists():
             old = parent / f".{out.name}.old-{uuid.uuid4().hex[:8]}"
             os.rename(out, old)
@@ -205,10 +304,10 @@ def write(result, out_dir, formats=("csv",)) -> Path:
             shutil.rmtree(old, ignore_errors=True)
         else:
             os.rename(tmp, out)
+        _fsync(parent)
     except OSError as exc:
         shutil.rmtree(tmp, ignore_errors=True)
         raise OutputFolderError(f"writing {out} failed: {exc.strerror or exc}") from exc
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    return out

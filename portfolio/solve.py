@@ -208,12 +208,44 @@ def _use_threads(threads: Optional[int]) -> None:
             _threads_in_use[0] = threads
 
 
+class _Highs(highspy.Highs):
+    """A Highs whose ``run()`` a Ctrl-C can stop.
+
+    HiGHS runs in a worker thread while this (main) thread waits in Python,
+    where a KeyboardInterrupt can land at once; it then asks HiGHS to stop
+    (highspy's user-interrupt callbacks, checked by the simplex, the interior
+    point method and the MIP search), waits for it, and re-raises.  Nothing is
+    printed (highspy's own ``solve()`` prints on Ctrl-C).
+    """
+
+    def run(self):
+        self.HandleUserInterrupt = True
+        self.startSolve()
+        try:
+            return self._finish_run()
+        except KeyboardInterrupt:
+            self.cancelSolve()
+            while True:                  # HiGHS stops at its next callback
+                try:
+                    self._finish_run()
+                    break
+                except KeyboardInterrupt:
+                    continue
+            raise
+
+    def _finish_run(self):
+        while True:
+            done, status = self.wait(0.1)
+            if done:
+                return status
+
+
 def new_highs(options: SolveOptions, seconds: Optional[float] = None) -> highspy.Highs:
     """A configured, silent Highs; ``seconds`` is its time limit (None: the
     options' limit, if any; a phase passes what is left of the dispatch's)."""
     _quiet_banner()
     _use_threads(options.threads)
-    h = highspy.Highs()
+    h = _Highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("mip_rel_gap", float(options.mip_gap))
     limit = seconds if seconds is not None else options.time_limit

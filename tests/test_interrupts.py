@@ -1,0 +1,111 @@
+"""Ctrl-C on the real command, as a terminal sends it: SIGINT to the process
+group of a running ``portfolio dispatch`` (its SIGINT handler at the default,
+as a shell leaves it).  What must hold: exit code 130 with one line on stderr
+and no traceback; a prompt stop (HiGHS is asked to stop at its next callback,
+not left to finish a phase that would run for a minute); the previous output
+folder untouched; nothing half-written beside it.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "tests" / "bench"))
+
+STOP_WITHIN = 20.0    # seconds from the signal; an uninterrupted run takes minutes
+
+
+def _command():
+    exe = shutil.which("portfolio", path=str(Path(sys.executable).parent))
+    if exe is None:
+        pytest.skip("the portfolio command is not installed beside this Python")
+    return exe
+
+
+def _month_of_quarter_hours(folder: Path) -> Path:
+    """Ten storages with exclusive modes, minimum output and run rules over
+    30 days of quarter-hours: a build of about a second, then a warm start
+    and a search that run for minutes on two cores."""
+    from bench_scaling import make_text
+
+    text = make_text(10)
+    steps = 96 * 30
+    rng = np.random.default_rng(1)
+
+    def values(base):
+        q = np.arange(steps)
+        v = base + 30 * np.sin(q / 96 * 2 * np.pi) + rng.normal(0, 8, steps)
+        return "[" + ", ".join(f"{x:.2f}" for x in v) + "]"
+
+    text = text.replace("length 24 h", "length 720 h")
+    text = re.sub(r"price north values \[[^\]]*\]", "price north values " + values(55), text)
+    text = re.sub(r"price valley values \[[^\]]*\]", "price valley values " + values(50), text)
+    path = folder / "month.folio"
+    path.write_text(text)
+    return path
+
+
+@pytest.fixture()
+def previous(tmp_path):
+    """An output folder from an earlier, finished dispatch of the demo."""
+    out = tmp_path / "out"
+    demo = ROOT / "examples" / "kestrel_bay" / "kestrel_bay.folio"
+    done = subprocess.run([_command(), "dispatch", str(demo), "--out", str(out), "--quiet"],
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    return out, {p.name: p.read_bytes() for p in out.iterdir()}
+
+
+def _interrupt(argv, after: float):
+    p = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                         start_new_session=True,
+                         preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    time.sleep(after)
+    sent = time.monotonic()
+    os.killpg(p.pid, signal.SIGINT)
+    try:
+        out, err = p.communicate(timeout=STOP_WITHIN + 60)
+    except subprocess.TimeoutExpired:
+        os.killpg(p.pid, signal.SIGKILL)
+        p.communicate()
+        pytest.fail("the command did not stop after Ctrl-C")
+    return p.returncode, out, err, time.monotonic() - sent
+
+
+def _same_as_before(previous):
+    out, files = previous
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == files
+    assert sorted(p.name for p in out.parent.iterdir() if p.name.startswith(".out")) == []
+
+
+@pytest.mark.parametrize("extra, after", [((), 6.0), (("--no-warm-start",), 6.0)],
+                         ids=["during the warm start", "during the search"])
+def test_ctrl_c_stops_promptly_and_keeps_the_previous_folder(tmp_path, previous, extra, after):
+    src = _month_of_quarter_hours(tmp_path)
+    code, out, err, took = _interrupt(
+        [_command(), "dispatch", str(src), "--out", str(previous[0]), *extra], after)
+    assert code == 130, (code, err)
+    assert "Traceback" not in err and "interrupted" in err
+    assert took < STOP_WITHIN, took
+    _same_as_before(previous)
+
+
+def test_ctrl_c_at_start_up_gives_no_traceback(tmp_path, previous):
+    demo = ROOT / "examples" / "kestrel_bay" / "kestrel_bay.folio"
+    code, out, err, took = _interrupt(
+        [_command(), "dispatch", str(demo), "--out", str(previous[0])], 0.4)
+    assert "Traceback" not in err
+    assert code in (130, 0), (code, err)       # 0 only if it had already finished
+    if code == 130:
+        _same_as_before(previous)

@@ -20,8 +20,8 @@ from lark import Token, Tree
 
 from . import model as M
 from . import units as U
-from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting,
-                          HorizonMisfit, LimitInconsistent, MissingSetting, OutOfRange,
+from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced,
+                          HorizonMisfit, ImportUnpriced, LimitInconsistent, MissingSetting, OutOfRange,
                           RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
                           UnusedSetting, WrongDimension, WrongNameKind)
@@ -444,10 +444,23 @@ class Checker:
         if "direction_exclusive" in s:
             vals["exclusive"] = True
             spans["exclusive"] = self.span(s["direction_exclusive"])
-        if "sell" not in s and "buy" not in s:
-            self.sink.add(UnusedSetting, self.span(st.children[0]),
-                          f"connection '{name}' has no 'sell at' or 'buy at' price: energy through it is worth nothing")
+        self.check_prices(name, st.children[0], s, vals)
         return M.Connection(name=name, span=self.span(st), spans=spans, **vals)
+
+    def check_prices(self, name: str, name_tok: Token, s: Dict[str, Tree], vals: dict) -> None:
+        """Every direction a connection can carry needs a price: a missing buy price
+        would make imports free (an error), a missing sell price makes exports worthless."""
+        sp = self.span(name_tok)
+        if "buy" not in s and vals.get("import_max", 1.0) != 0:
+            self.sink.add(ImportUnpriced, sp, f"connection '{name}' can import but has no 'buy at' price: "
+                          "imported energy would be free",
+                          "note: write 'buy at 0 per MWh' if free import is really meant",
+                          "note: or 'import max 0 MW' if the connection cannot import")
+        if "sell" not in s and vals.get("export_max", 1.0) != 0:
+            self.sink.add(ExportUnpriced, sp, f"connection '{name}' can export but has no 'sell at' price: "
+                          "exported energy earns nothing",
+                          "note: write 'sell at 0 per MWh' if exports really earn nothing",
+                          "note: or 'export max 0 MW' if the connection cannot export")
 
     def price_expr(self, node: Tree, owner: str) -> Optional[M.PriceExpr]:
         sp = self.span(node)

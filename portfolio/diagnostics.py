@@ -173,6 +173,8 @@ LimitInconsistent = _kind("P307", ERROR, "a minimum exceeds its maximum, or a ru
 UnusedSetting = _kind("P308", WARNING, "a setting has no effect as declared", "UnusedSetting")
 UnusedPreset = _kind("P309", WARNING, "a preset is declared but no storage takes it", "UnusedPreset")
 RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the horizon or not a whole number of steps", "RuleTooLong")
+ImportUnpriced = _kind("P311", ERROR, "a connection can import but has no 'buy at' price (imports would be free)", "ImportUnpriced")
+ExportUnpriced = _kind("P312", WARNING, "a connection can export but has no 'sell at' price (exports earn nothing)", "ExportUnpriced")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")

@@ -44,7 +44,7 @@ def test_minimum_run_is_rounded_up_to_whole_steps(run, objective):
 def test_loss_per_day_compounds_to_the_stated_daily_loss():
     p, _ = solve("""
 horizon start 2027-01-01T00:00 length 24 h step 1 h
-connection c { sell at 1 per MWh }
+connection c { sell at 1 per MWh  buy at 1 per MWh }
 site s at c { storage b { energy 10 MWh charge max 1 MW discharge max 1 MW loss 50% per d } }
 """)
     l = p.storages["b"].loss_per_h

@@ -878,14 +878,7 @@ class StorageBuilder:
                 sink.add(UnusedSetting, self.sp(key),
                          f"'{word} at least' has no effect on '{nm}' without a minimum output: {why}",
                          "note: add 'min P when running' to 'charge max' or 'discharge max'")
-        if ((v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and "modes" in s
-                and str(s["modes"].children[0]) == "free"):
-            sink.add(UnusedSetting, self.sp("modes"),
-                     f"'modes free' is overridden on '{nm}': a run or rest rule makes its modes exclusive")
-        if (v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and not v.get("exclusive", False):
-            # rest is idle time between runs of either mode; a run rule could otherwise be kept
-            # alive by charging and discharging at once
-            v["exclusive"] = True
+        self.exclusive_from_rules()
         if "ramp" in s:
             got = self.q("ramp", (U.RAMP,), "the ramp limit")
             spans["ramp_mw_per_h"] = self.sp("ramp")
@@ -920,6 +913,28 @@ class StorageBuilder:
             return None
         v = {k: x for k, x in v.items() if x is not None}
         return M.Storage(name=nm, site=self.site, span=self.span_, spans=dict(spans), **v)
+
+    RULE_WORDS = (("charge_min", "minimum charge when running"),
+                  ("discharge_min", "minimum discharge when running"),
+                  ("min_run_h", "minimum run"), ("min_rest_h", "minimum rest"))
+
+    def exclusive_from_rules(self) -> None:
+        """A minimum output, run or rest makes the modes exclusive (:func:`model.rules_make_exclusive`):
+        charging and discharging at once could net below a minimum output, keep a run alive
+        or skip a rest.  The rows that keep the modes apart then point at the first such rule."""
+        v, spans = self.vals, self.spans
+        rules = [(f, words) for f, words in self.RULE_WORDS if (v.get(f) or 0) > 0]
+        if not rules or v.get("exclusive"):
+            return
+        if "modes" in self.s:   # 'modes free', or it would be exclusive already
+            said = " and ".join(f"its {words}" for _, words in rules)
+            self.ck.sink.add(UnusedSetting, self.sp("modes"),
+                             f"'modes free' is overridden on '{self.name}': {said} "
+                             f"make{'s' if len(rules) == 1 else ''} its modes exclusive",
+                             "note: charging and discharging at once could net below a minimum output, "
+                             "keep a run alive or skip a rest; remove 'modes free'")
+        v["exclusive"] = True
+        spans["exclusive"] = spans.get(rules[0][0], self.span_)
 
     def loss_per_hour(self) -> Optional[float]:
         """``X% per P``: lose X % of the content over each period P, compounded.

@@ -262,7 +262,9 @@ class _Audit:
                 self.bad(f"{n}: mode at {self.times[t]} is {mode[t]!r} but the flows say {str(expect[t])!r} "
                          f"(charge {c[t]:.9g}, discharge {d[t]:.9g})")
                 return
-        exclusive = s.exclusive or s.min_rest_h > 0
+        # docs/language.md: a minimum output, run or rest makes the modes exclusive
+        exclusive = (s.exclusive or s.charge_min > 0 or s.discharge_min > 0
+                     or s.min_run_h > 0 or s.min_rest_h > 0)
         if exclusive:
             both = [t for t in range(self.T) if mode[t] == "both"]
             if both:

@@ -871,13 +871,18 @@ class StorageBuilder:
                     elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
                                  f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
-        for key, word in (("min_run", "run"), ("min_rest", "rest")):
-            if v.get(f"{key}_h", 0) > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
-                why = ("a run may go on at 0 MW" if word == "run"
-                       else "a run may go on at 0 MW instead of resting")
+        for key, what in (("min_run", "holds each charge or discharge run on for at least {h}, but without "
+                                      "a minimum output a run may go on at 0 MW: the rule then only keeps "
+                                      "the other direction blocked for that long"),
+                          ("min_rest", "keeps it idle for at least {h} after each run, but without a minimum "
+                                       "output a run may go on at 0 MW instead of stopping: the rest then only "
+                                       "separates a charge run from a discharge run")):
+            h = v.get(f"{key}_h", 0)
+            if h > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
                 sink.add(UnusedSetting, self.sp(key),
-                         f"'{word} at least' has no effect on '{nm}' without a minimum output: {why}",
-                         "note: add 'min P when running' to 'charge max' or 'discharge max'")
+                         f"'{_word(key)}' on '{nm}' {what.format(h=f'{_fmt(h)} h')}",
+                         "note: add 'min P when running' to 'charge max' or 'discharge max' "
+                         "if a run must deliver power")
         self.exclusive_from_rules()
         if "ramp" in s:
             got = self.q("ramp", (U.RAMP,), "the ramp limit")

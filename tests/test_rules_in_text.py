@@ -91,3 +91,32 @@ site s at c {
     assert arrived == pytest.approx(6.0, abs=1e-6)
     assert r.summary["routes"][route.name]["in_transit_end_mwh"] == pytest.approx(released + 4.0, abs=1e-6)
     assert math.isclose(released, 10.0, abs_tol=1e-6)        # it sells all it holds
+
+
+HOLD = """
+horizon start 2027-01-01T00:00 length 6 h step 1 h
+price p values [10, 100, 10, 100, 10, 100]
+connection c {{ sell at p  buy at p }}
+site s at c {{
+  storage b {{ energy 1 MWh  charge max 1 MW  discharge max 1 MW  soc start 0 MWh end free  modes exclusive{rule} }}
+}}
+"""
+
+
+@pytest.mark.parametrize("variant", ["tight", "plain"])
+@pytest.mark.parametrize("rule, objective", [("", 270.0), ("  run at least 2 h", 90.0)])
+def test_a_run_rule_without_minimum_output_still_holds_the_mode(rule, objective, variant):
+    # No minimum output, so a run may continue at 0 MW, but it still blocks the other direction.
+    # Without the rule: charge 1 MWh at 10, sell it at 100, three times: 3 x 90 = 270.
+    # With runs of at least two steps the mode cannot switch every hour.  A cycle needs a charge
+    # at 10 (steps 0, 2, 4) and a later discharge at 100 (steps 1, 3, 5) in a different run.  The
+    # first charge run covers two steps, so the discharge run starts at step 2 at the earliest
+    # and sells at step 3; a second charge run then starts at step 4 at the earliest and, being
+    # at least two steps long unless the horizon cuts it, leaves no step for a discharge: one
+    # cycle, 90.  (Runs C{0,1} D{2,3} C{4,5}, or C{0..3} D{4,5}, reach it.)
+    r = lint_text(HOLD.format(rule=rule), "case.folio")
+    assert r.ok
+    assert [d.code for d in r.diagnostics] == (["P308"] if rule else [])   # warns: no minimum output
+    res = dispatch(r.portfolio, SolveOptions(mip_gap=0, variant=variant))
+    assert res.status == "optimal"
+    assert res.objective == pytest.approx(objective, abs=1e-6)

@@ -25,6 +25,7 @@ from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateS
                           RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
                           UnusedSetting, WrongDimension, WrongNameKind)
+from .check_state import check_carried_state, steps_rounded_up
 from .series import SeriesSpec, load_series
 from .spans import Span
 
@@ -865,12 +866,12 @@ class StorageBuilder:
                     continue
                 v[fld] = got[1]
                 if step:
-                    n = got[1] / step
-                    if ck.horizon and n > ck.horizon.steps:
+                    whole = steps_rounded_up(got[1], step)
+                    if ck.horizon and got[1] / step > ck.horizon.steps:
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} is longer than the whole horizon")
-                    elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
+                    elif whole is not None:
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
-                                 f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
+                                 f"number of steps; it is rounded up to {whole} steps")
         for key, what in (("min_run", "holds each charge or discharge run on for at least {h}, but without "
                                       "a minimum output a run may go on at 0 MW: the rule then only keeps "
                                       "the other direction blocked for that long"),
@@ -891,6 +892,7 @@ class StorageBuilder:
                 if got[1] <= 0:
                     sink.add(OutOfRange, self.sp("ramp"), "the ramp limit must be above zero")
                 v["ramp_mw_per_h"] = got[1]
+        check_carried_state(self)
         if "spill" in s:
             node = s["spill"]
             spans["spill_allowed"] = self.sp("spill")

@@ -34,6 +34,11 @@ KIND_RESERVOIR = "reservoir"
 KIND_THERMAL = "thermal"
 KNOWN_KINDS = (KIND_BATTERY, KIND_RESERVOIR, KIND_THERMAL)
 
+# States carried in from before the horizon (Storage.prior_mode).
+PRIOR_IDLE = "idle"
+PRIOR_CHARGE = "charge"
+PRIOR_DISCHARGE = "discharge"
+
 # End-of-horizon rules for state of charge.
 END_FREE = "free"          # no condition
 END_AT_LEAST = "at_least"  # soc[T] >= value
@@ -155,6 +160,11 @@ class Storage(Decl):
     inflow: Optional[str] = None         # power Series of natural inflow (MW)
     spill_allowed: bool = False
     spill_max: Optional[float] = None    # MW equivalent, None = unlimited
+    # The state carried in from before the horizon ('was ...'); None: not declared, so idle
+    # and rested, and no ramp limit on the first step.
+    prior_mode: Optional[str] = None     # PRIOR_IDLE, PRIOR_CHARGE or PRIOR_DISCHARGE
+    prior_h: Optional[float] = None      # hours in that state before step 0; None: longer than any rule
+    prior_net_mw: float = 0.0            # net output just before step 0, MW: discharge +, charge -, idle 0
 
     def __post_init__(self) -> None:
         if not self.exclusive and rules_make_exclusive(self.charge_min, self.discharge_min,

@@ -454,9 +454,9 @@ class Checker:
         sp = self.span(name_tok)
         if "buy" not in s and vals.get("import_max", 1.0) != 0:
             self.sink.add(ImportUnpriced, sp, f"connection '{name}' can import but has no 'buy at' price: "
-                          "imported energy would be free",
-                          "note: write 'buy at 0 per MWh' if free import is really meant",
-                          "note: or 'import max 0 MW' if the connection cannot import")
+                          "imported energy would be free; write 'buy at 0 per MWh' if that is really meant",
+                          "note: give the price it buys at, e.g. 'buy at spot plus 9.5 per MWh'",
+                          "note: or write 'import max 0 MW' if the connection cannot import")
         if "sell" not in s and vals.get("export_max", 1.0) != 0:
             self.sink.add(ExportUnpriced, sp, f"connection '{name}' can export but has no 'sell at' price: "
                           "exported energy earns nothing",

@@ -120,3 +120,21 @@ def test_a_run_rule_without_minimum_output_still_holds_the_mode(rule, objective,
     res = dispatch(r.portfolio, SolveOptions(mip_gap=0, variant=variant))
     assert res.status == "optimal"
     assert res.objective == pytest.approx(objective, abs=1e-6)
+
+
+FREE = """
+horizon start 2027-01-01T00:00 length 2 h step 1 h
+price p values [-20, 30]
+connection c {{ sell at p {buy} }}
+site s at c {{ storage b {{ energy 1 MWh  charge max 1 MW  discharge max 1 MW  soc end free }} }}
+"""
+
+
+def test_import_without_a_price_is_an_error_that_says_how_to_mean_it():
+    r = lint_text(FREE.format(buy=""), "case.folio")
+    (e,) = r.errors
+    assert e.code == "P311" and "write 'buy at 0 per MWh'" in e.message
+    # Said explicitly, free import is allowed: charge 1 MWh for nothing in the first hour
+    # (exporting nothing at -20) and sell it at 30 in the second: 30.
+    p, res = solve(FREE.format(buy=" buy at 0 per MWh"))
+    assert res.objective == pytest.approx(30.0, abs=1e-6)

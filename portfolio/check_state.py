@@ -19,7 +19,6 @@ from . import units as U
 from .diagnostics import LimitInconsistent, OutOfRange, RuleTooLong, UnusedSetting
 
 EPS = 1e-9
-_WORDS = {M.PRIOR_IDLE: "idle", M.PRIOR_CHARGE: "charging", M.PRIOR_DISCHARGE: "discharging"}
 
 
 def steps_rounded_up(hours: float, step_h: float) -> Optional[int]:
@@ -44,7 +43,7 @@ def check_carried_state(b) -> None:
     else:
         mode = M.PRIOR_CHARGE if str(parts.pop(0)) == "charging" else M.PRIOR_DISCHARGE
         out_q = parts.pop()
-    word = _WORDS[mode]
+    word = M.PRIOR_WORDS[mode]
     ok = True
     hours = None
     rules = (v.get("min_run_h") or 0) > 0 or (v.get("min_rest_h") or 0) > 0
@@ -87,7 +86,7 @@ def _output_fits(b, mode, out, out_span, was_span) -> bool:
     """The output before the horizon is one the store could have run at."""
     sink, nm, v = b.ck.sink, b.name, b.vals
     key = "charge" if mode == M.PRIOR_CHARGE else "discharge"
-    word = _WORDS[mode]
+    word = M.PRIOR_WORDS[mode]
     mx, mn = v.get(f"{key}_max") or 0.0, v.get(f"{key}_min") or 0.0
     if mx <= 0:
         sink.add(LimitInconsistent, was_span, f"'{nm}' was {word} before the horizon, but it cannot {key}",

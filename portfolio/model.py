@@ -38,6 +38,7 @@ KNOWN_KINDS = (KIND_BATTERY, KIND_RESERVOIR, KIND_THERMAL)
 PRIOR_IDLE = "idle"
 PRIOR_CHARGE = "charge"
 PRIOR_DISCHARGE = "discharge"
+PRIOR_WORDS = {PRIOR_IDLE: "idle", PRIOR_CHARGE: "charging", PRIOR_DISCHARGE: "discharging"}  # as written
 
 # End-of-horizon rules for state of charge.
 END_FREE = "free"          # no condition

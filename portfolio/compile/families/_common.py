@@ -6,7 +6,7 @@ import math
 from typing import Dict, List, Optional, Tuple
 
 from ..context import Ctx, Origin
-from ...model import PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, Storage
+from ...model import PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, PRIOR_WORDS, Storage
 
 
 def charge_terms(ctx: Ctx, k: str, t: int, coef: float = 1.0) -> List[Tuple[float, object]]:
@@ -55,8 +55,7 @@ def steps_before(s: Storage, dt: float) -> Optional[int]:
 
 def prior_origin(k: str, s: Storage) -> Origin:
     """The origin of every row built from a store's carried-in state: its 'was' statement."""
-    word = {PRIOR_IDLE: "idle", PRIOR_CHARGE: "charging", PRIOR_DISCHARGE: "discharging"}[s.prior_mode]
-    text = f'storage "{k}" was {word}'
+    text = f'storage "{k}" was {PRIOR_WORDS[s.prior_mode]}'
     if s.prior_h is not None:
         text += f" for {fmt(s.prior_h)} h"
     if s.prior_mode != PRIOR_IDLE:

@@ -20,11 +20,12 @@ from lark import Token, Tree
 
 from . import model as M
 from . import units as U
-from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting,
-                          HorizonMisfit, LimitInconsistent, MissingSetting, OutOfRange,
+from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced,
+                          HorizonMisfit, ImportUnpriced, LimitInconsistent, MissingSetting, OutOfRange,
                           RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
                           UnusedSetting, WrongDimension, WrongNameKind)
+from .check_state import check_carried_state, steps_rounded_up
 from .series import SeriesSpec, load_series
 from .spans import Span
 
@@ -444,10 +445,23 @@ class Checker:
         if "direction_exclusive" in s:
             vals["exclusive"] = True
             spans["exclusive"] = self.span(s["direction_exclusive"])
-        if "sell" not in s and "buy" not in s:
-            self.sink.add(UnusedSetting, self.span(st.children[0]),
-                          f"connection '{name}' has no 'sell at' or 'buy at' price: energy through it is worth nothing")
+        self.check_prices(name, st.children[0], s, vals)
         return M.Connection(name=name, span=self.span(st), spans=spans, **vals)
+
+    def check_prices(self, name: str, name_tok: Token, s: Dict[str, Tree], vals: dict) -> None:
+        """Every direction a connection can carry needs a price: a missing buy price
+        would make imports free (an error), a missing sell price makes exports worthless."""
+        sp = self.span(name_tok)
+        if "buy" not in s and vals.get("import_max", 1.0) != 0:
+            self.sink.add(ImportUnpriced, sp, f"connection '{name}' can import but has no 'buy at' price: "
+                          "imported energy would be free; write 'buy at 0 per MWh' if that is really meant",
+                          "note: give the price it buys at, e.g. 'buy at spot plus 9.5 per MWh'",
+                          "note: or write 'import max 0 MW' if the connection cannot import")
+        if "sell" not in s and vals.get("export_max", 1.0) != 0:
+            self.sink.add(ExportUnpriced, sp, f"connection '{name}' can export but has no 'sell at' price: "
+                          "exported energy earns nothing",
+                          "note: write 'sell at 0 per MWh' if exports really earn nothing",
+                          "note: or 'export max 0 MW' if the connection cannot export")
 
     def price_expr(self, node: Tree, owner: str) -> Optional[M.PriceExpr]:
         sp = self.span(node)
@@ -852,27 +866,25 @@ class StorageBuilder:
                     continue
                 v[fld] = got[1]
                 if step:
-                    n = got[1] / step
-                    if ck.horizon and n > ck.horizon.steps:
+                    whole = steps_rounded_up(got[1], step)
+                    if ck.horizon and got[1] / step > ck.horizon.steps:
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} is longer than the whole horizon")
-                    elif abs(n - round(n)) > max(1e-6, 1e-9 * n):
+                    elif whole is not None:
                         sink.add(RuleTooLong, self.sp(key), f"the minimum {word} of {_fmt(got[1])} h is not a whole "
-                                 f"number of steps; it is rounded up to {math.ceil(n - 1e-9)} steps")
-        for key, word in (("min_run", "run"), ("min_rest", "rest")):
-            if v.get(f"{key}_h", 0) > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
-                why = ("a run may go on at 0 MW" if word == "run"
-                       else "a run may go on at 0 MW instead of resting")
+                                 f"number of steps; it is rounded up to {whole} steps")
+        for key, what in (("min_run", "holds each charge or discharge run on for at least {h}, but without "
+                                      "a minimum output a run may go on at 0 MW: the rule then only keeps "
+                                      "the other direction blocked for that long"),
+                          ("min_rest", "keeps it idle for at least {h} after each run, but without a minimum "
+                                       "output a run may go on at 0 MW instead of stopping: the rest then only "
+                                       "separates a charge run from a discharge run")):
+            h = v.get(f"{key}_h", 0)
+            if h > 0 and v.get("charge_min", 0) <= 0 and v.get("discharge_min", 0) <= 0:
                 sink.add(UnusedSetting, self.sp(key),
-                         f"'{word} at least' has no effect on '{nm}' without a minimum output: {why}",
-                         "note: add 'min P when running' to 'charge max' or 'discharge max'")
-        if ((v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and "modes" in s
-                and str(s["modes"].children[0]) == "free"):
-            sink.add(UnusedSetting, self.sp("modes"),
-                     f"'modes free' is overridden on '{nm}': a run or rest rule makes its modes exclusive")
-        if (v.get("min_rest_h", 0) > 0 or v.get("min_run_h", 0) > 0) and not v.get("exclusive", False):
-            # rest is idle time between runs of either mode; a run rule could otherwise be kept
-            # alive by charging and discharging at once
-            v["exclusive"] = True
+                         f"'{_word(key)}' on '{nm}' {what.format(h=f'{_fmt(h)} h')}",
+                         "note: add 'min P when running' to 'charge max' or 'discharge max' "
+                         "if a run must deliver power")
+        self.exclusive_from_rules()
         if "ramp" in s:
             got = self.q("ramp", (U.RAMP,), "the ramp limit")
             spans["ramp_mw_per_h"] = self.sp("ramp")
@@ -880,6 +892,7 @@ class StorageBuilder:
                 if got[1] <= 0:
                     sink.add(OutOfRange, self.sp("ramp"), "the ramp limit must be above zero")
                 v["ramp_mw_per_h"] = got[1]
+        check_carried_state(self)
         if "spill" in s:
             node = s["spill"]
             spans["spill_allowed"] = self.sp("spill")
@@ -907,6 +920,28 @@ class StorageBuilder:
             return None
         v = {k: x for k, x in v.items() if x is not None}
         return M.Storage(name=nm, site=self.site, span=self.span_, spans=dict(spans), **v)
+
+    RULE_WORDS = (("charge_min", "minimum charge when running"),
+                  ("discharge_min", "minimum discharge when running"),
+                  ("min_run_h", "minimum run"), ("min_rest_h", "minimum rest"))
+
+    def exclusive_from_rules(self) -> None:
+        """A minimum output, run or rest makes the modes exclusive (:func:`model.rules_make_exclusive`):
+        charging and discharging at once could net below a minimum output, keep a run alive
+        or skip a rest.  The rows that keep the modes apart then point at the first such rule."""
+        v, spans = self.vals, self.spans
+        rules = [(f, words) for f, words in self.RULE_WORDS if (v.get(f) or 0) > 0]
+        if not rules or v.get("exclusive"):
+            return
+        if "modes" in self.s:   # 'modes free', or it would be exclusive already
+            said = " and ".join(f"its {words}" for _, words in rules)
+            self.ck.sink.add(UnusedSetting, self.sp("modes"),
+                             f"'modes free' is overridden on '{self.name}': {said} "
+                             f"make{'s' if len(rules) == 1 else ''} its modes exclusive",
+                             "note: charging and discharging at once could net below a minimum output, "
+                             "keep a run alive or skip a rest; remove 'modes free'")
+        v["exclusive"] = True
+        spans["exclusive"] = spans.get(rules[0][0], self.span_)
 
     def loss_per_hour(self) -> Optional[float]:
         """``X% per P``: lose X % of the content over each period P, compounded.

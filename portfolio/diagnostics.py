@@ -170,9 +170,11 @@ SocInconsistent = _kind("P304", ERROR, "state-of-charge bounds, start and end ru
 UnknownZone = _kind("P305", ERROR, "the time zone is not an IANA zone name", "UnknownZone")
 HorizonMisfit = _kind("P306", ERROR, "the horizon length is not a whole number of steps", "HorizonMisfit")
 LimitInconsistent = _kind("P307", ERROR, "a minimum exceeds its maximum, or a rule needs a limit that is absent", "LimitInconsistent")
-UnusedSetting = _kind("P308", WARNING, "a setting has no effect as declared", "UnusedSetting")
+UnusedSetting = _kind("P308", WARNING, "a setting has no effect as declared, or less than it appears to", "UnusedSetting")
 UnusedPreset = _kind("P309", WARNING, "a preset is declared but no storage takes it", "UnusedPreset")
-RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the horizon or not a whole number of steps", "RuleTooLong")
+RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the horizon, or it or a state carried in from before the horizon is not a whole number of steps", "RuleTooLong")
+ImportUnpriced = _kind("P311", ERROR, "a connection can import but has no 'buy at' price (imports would be free)", "ImportUnpriced")
+ExportUnpriced = _kind("P312", WARNING, "a connection can export but has no 'sell at' price (exports earn nothing)", "ExportUnpriced")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")

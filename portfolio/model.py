@@ -34,6 +34,12 @@ KIND_RESERVOIR = "reservoir"
 KIND_THERMAL = "thermal"
 KNOWN_KINDS = (KIND_BATTERY, KIND_RESERVOIR, KIND_THERMAL)
 
+# States carried in from before the horizon (Storage.prior_mode).
+PRIOR_IDLE = "idle"
+PRIOR_CHARGE = "charge"
+PRIOR_DISCHARGE = "discharge"
+PRIOR_WORDS = {PRIOR_IDLE: "idle", PRIOR_CHARGE: "charging", PRIOR_DISCHARGE: "discharging"}  # as written
+
 # End-of-horizon rules for state of charge.
 END_FREE = "free"          # no condition
 END_AT_LEAST = "at_least"  # soc[T] >= value
@@ -118,6 +124,18 @@ class Demand(Decl):
     profile: str = ""                    # name of a power Series
 
 
+def rules_make_exclusive(charge_min: float, discharge_min: float, min_run_h: float,
+                         min_rest_h: float) -> bool:
+    """Whether a store's rules make its modes exclusive (docs/language.md).
+
+    A minimum output would otherwise be dodged by charging and discharging at
+    once, netting below it; a run could be kept alive, and a rest skipped, the
+    same way.  The checker sets ``Storage.exclusive`` from this; a Storage
+    built with one of these rules and ``exclusive=False`` is refused.
+    """
+    return charge_min > 0 or discharge_min > 0 or min_run_h > 0 or min_rest_h > 0
+
+
 @dataclass(frozen=True)
 class Storage(Decl):
     site: str = ""
@@ -136,13 +154,24 @@ class Storage(Decl):
     end_value: float = 0.0               # MWh, used unless end_rule is free
     loss_per_h: float = 0.0              # fraction of content lost per hour
     wear: float = 0.0                    # money per MWh discharged (grid side)
-    exclusive: bool = False              # no simultaneous charge and discharge
+    exclusive: bool = False              # no simultaneous charge and discharge (implied by the rules below)
     min_run_h: float = 0.0               # minimum length of a discharge (or charge) run
     min_rest_h: float = 0.0              # minimum idle time between runs
     ramp_mw_per_h: Optional[float] = None  # limit on change of net output
     inflow: Optional[str] = None         # power Series of natural inflow (MW)
     spill_allowed: bool = False
     spill_max: Optional[float] = None    # MW equivalent, None = unlimited
+    # The state carried in from before the horizon ('was ...'); None: not declared, so idle
+    # and rested, and no ramp limit on the first step.
+    prior_mode: Optional[str] = None     # PRIOR_IDLE, PRIOR_CHARGE or PRIOR_DISCHARGE
+    prior_h: Optional[float] = None      # hours in that state before step 0; None: longer than any rule
+    prior_net_mw: float = 0.0            # net output just before step 0, MW: discharge +, charge -, idle 0
+
+    def __post_init__(self) -> None:
+        if not self.exclusive and rules_make_exclusive(self.charge_min, self.discharge_min,
+                                                        self.min_run_h, self.min_rest_h):
+            raise ValueError(f"storage {self.name!r}: a minimum output, run or rest makes the modes "
+                             "exclusive; build it with exclusive=True (the checker does)")
 
     @property
     def needs_modes(self) -> bool:

@@ -115,6 +115,7 @@ EXPECTED_WORDS = {
     "TIMESTAMP": "a date and time such as 2027-03-01T00:00",
     "ALLOWED": "'allowed' or 'forbidden'",
     "MODES": "'exclusive' or 'free'",
+    "RUNNING_MODE": "'charging' or 'discharging'",
     "SIGN": "'plus' or 'minus'",
     "ROUTE_KIND": "'release', 'spill' or 'transfer'",
     "$END": "the end of the file",

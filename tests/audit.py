@@ -14,6 +14,9 @@ largest term in that row (balances of a 300 MWh store are checked to about
 revenues) use the same rule with the sum of the absolute terms as scale,
 because the written tables clip values below 1e-9 to zero.
 
+A state carried in from before the horizon (``was ...``) starts the run and
+rest automaton below and bounds the first step's ramp.
+
 Minimum run and rest are checked on the ``mode`` column as the model
 defines them: a storage's mode binary may be "on" in a step where its flow
 is zero (when its minimum output is zero), so the auditor asks whether SOME
@@ -32,7 +35,7 @@ from typing import Dict, List, Optional
 import numpy as np
 import pandas as pd
 
-from portfolio.model import END_AT_LEAST, END_EQUAL, Portfolio
+from portfolio.model import END_AT_LEAST, END_EQUAL, PRIOR_CHARGE, PRIOR_IDLE, Portfolio
 
 TOL = 1e-6
 MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
@@ -250,6 +253,12 @@ class _Audit:
             self.at_most(n, "ramp (change of net output) above the ramp limit",
                          np.abs(np.diff(net)), s.ramp_mw_per_h * self.dt,
                          scale=np.maximum(np.abs(net[1:]), np.abs(net[:-1])))
+        if s.ramp_mw_per_h is not None and s.prior_mode is not None and self.T:
+            # from the net output declared before the horizon (discharge +, charge -, idle 0)
+            first = d[0] - c[0]
+            self.at_most(n, "ramp from the output before the horizon to the first step above the ramp limit",
+                         abs(first - s.prior_net_mw), s.ramp_mw_per_h * self.dt,
+                         scale=max(abs(first), abs(s.prior_net_mw)))
 
     def check_modes(self, s) -> None:
         n = s.name
@@ -262,7 +271,9 @@ class _Audit:
                 self.bad(f"{n}: mode at {self.times[t]} is {mode[t]!r} but the flows say {str(expect[t])!r} "
                          f"(charge {c[t]:.9g}, discharge {d[t]:.9g})")
                 return
-        exclusive = s.exclusive or s.min_rest_h > 0
+        # docs/language.md: a minimum output, run or rest makes the modes exclusive
+        exclusive = (s.exclusive or s.charge_min > 0 or s.discharge_min > 0
+                     or s.min_run_h > 0 or s.min_rest_h > 0)
         if exclusive:
             both = [t for t in range(self.T) if mode[t] == "both"]
             if both:
@@ -273,10 +284,9 @@ class _Audit:
         if s.discharge_min > 0:
             self.at_least(n, "discharge below its minimum when running", np.where(dc, d, np.inf),
                           s.discharge_min)
-        R = int(round(s.min_run_h / self.dt)) if s.min_run_h > 0 else 0
-        D = int(round(s.min_rest_h / self.dt)) if s.min_rest_h > 0 else 0
+        R, D = _steps_up(s.min_run_h, self.dt), _steps_up(s.min_rest_h, self.dt)
         if R > 1 or D > 0:
-            bad_t = _run_rest_unexplained(mode, s, R, D, exclusive)
+            bad_t = _run_rest_unexplained(mode, s, R, D, exclusive, _start_state(s, R, D, self.dt))
             if bad_t is not None:
                 self.bad(f"{n}: no choice of modes matching the mode column satisfies "
                          f"min run {R} step(s) / min rest {D} step(s) (fails at {self.times[bad_t]})")
@@ -576,15 +586,37 @@ class _Audit:
                 self.money(cn, "summary revenue = its cashflow", e["revenue"], float(v.sum()), v)
 
 
-def _run_rest_unexplained(mode, s, R: int, D: int, exclusive: bool) -> Optional[int]:
+def _steps_up(hours: float, dt: float) -> int:
+    """Whole steps, rounded up (docs/language.md: run, rest and carried-in times)."""
+    return int(math.ceil(hours / dt - 1e-9)) if hours > 0 else 0
+
+
+def _start_state(s, R: int, D: int, dt: float) -> tuple:
+    """The automaton's state before step 0 from the declared 'was ...' (docs/language.md):
+    (uc, ud, steps into a charge run, steps into a discharge run, rest steps still owed).
+    Not declared: idle and rested.  A duration left out is longer than any rule."""
+    if s.prior_mode is None:
+        return (0, 0, 0, 0, 0)
+    steps = None if s.prior_h is None else _steps_up(s.prior_h, dt)
+    if s.prior_mode == PRIOR_IDLE:
+        return (0, 0, 0, 0, 0 if steps is None else max(D - steps, 0))
+    ran = R if steps is None else min(steps, R)
+    if s.prior_mode == PRIOR_CHARGE:
+        return (1, 0, ran, 0, 0)
+    return (0, 1, 0, ran, 0)
+
+
+def _run_rest_unexplained(mode, s, R: int, D: int, exclusive: bool,
+                          start: tuple = (0, 0, 0, 0, 0)) -> Optional[int]:
     """First step at which no mode assignment can explain the mode column, or None.
 
     Binaries uc, ud per step: 1 where that mode's flow shows, 0 where it does
     not and the mode has a minimum output (flow >= min x binary), free
     otherwise; a mode the store cannot use (max 0) is always 0.  Rules (from
-    the model): idle and rested before the horizon; a run of either mode lasts
-    at least R steps unless the horizon cuts it; after a run ends the store
-    is idle (neither mode) for D steps; exclusive: never both.
+    the model): before the horizon the state ``start`` (default idle and
+    rested; see :func:`_start_state`); a run of either mode lasts at least R
+    steps unless the horizon cuts it; after a run ends the store is idle
+    (neither mode) for D steps; exclusive: never both.
     """
     T = len(mode)
 
@@ -599,7 +631,7 @@ def _run_rest_unexplained(mode, s, R: int, D: int, exclusive: bool) -> Optional[
         return (0, 1)
 
     # state: (uc, ud, run_c, run_d, rest_left)
-    states = {(0, 0, 0, 0, 0)}
+    states = {start}
     for t in range(T):
         nxt = set()
         for (uc, ud, kc, kd, rest) in states:

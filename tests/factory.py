@@ -19,7 +19,8 @@ import numpy as np
 import pandas as pd
 
 from portfolio.model import (END_AT_LEAST, END_EQUAL, END_FREE, Cap, Connection, Demand, Horizon,
-                             Inflow, Portfolio, PriceExpr, Route, Series, Site, Storage)
+                             Inflow, Portfolio, PriceExpr, Route, Series, Site, Storage,
+                             rules_make_exclusive)
 from portfolio.spans import Span
 
 PATH = "factory.folio"
@@ -54,12 +55,16 @@ def storage(name: str = "store", site: str = "site", energy: float = 1.0,
             where: Optional[Span] = None, **kw) -> Storage:
     """A storage; ``power`` sets both charge_max and discharge_max unless given.
 
-    soc_max defaults to ``energy``; the end rule defaults to free.
+    soc_max defaults to ``energy``; the end rule defaults to free; ``exclusive``
+    defaults to what the checker would set (a minimum output, run or rest makes
+    the modes exclusive).
     """
     kw.setdefault("charge_max", power if power is not None else 0.0)
     kw.setdefault("discharge_max", power if power is not None else 0.0)
     kw.setdefault("soc_max", energy)
     kw.setdefault("end_rule", END_FREE)
+    kw.setdefault("exclusive", rules_make_exclusive(kw.get("charge_min", 0.0), kw.get("discharge_min", 0.0),
+                                                    kw.get("min_run_h", 0.0), kw.get("min_rest_h", 0.0)))
     return Storage(name=name, site=site, energy=energy, **kw, **_decl_kw(at, where))
 
 

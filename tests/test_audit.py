@@ -236,5 +236,5 @@ def test_missing_file_is_reported_not_raised(copy):
 ])
 def test_run_rest_automaton(modes, dmin, R, D, exclusive, bad):
     st = F.storage("s", energy=5.0, power=1.0, discharge_min=dmin, min_run_h=float(R),
-                   min_rest_h=float(D), exclusive=exclusive)
+                   min_rest_h=float(D))   # the automaton is told separately whether modes are exclusive
     assert _run_rest_unexplained(modes, st, R, D, exclusive) == bad

@@ -51,7 +51,7 @@ def test_demo_dispatches_and_writes_every_asset(demo_out):
 def test_lint_errors_stop_dispatch_and_nothing_is_written(tmp_path):
     bad = tmp_path / "bad.folio"
     bad.write_text('horizon start 2027-01-01T00:00 length 2 h step 1 h\n'
-                   'connection c { export max 5 MWh sell at 4 per MWh }\n'
+                   'connection c { export max 5 MWh sell at 4 per MWh buy at 4 per MWh }\n'
                    'site s at c { storage b { energy 1 MWh charge max 1 MW discharge max 1 MW } }\n')
     code, text, err = run("dispatch", bad, "--out", tmp_path / "o")
     assert code == 1

@@ -6,6 +6,7 @@ import pytest
 
 import factory as F
 from portfolio.dispatch import dispatch
+from portfolio.model import rules_make_exclusive
 from portfolio.solve import SolveOptions
 
 
@@ -18,13 +19,15 @@ def _case(seed):
         power = float(rng.choice([1.0, 2.0]))
         kw = dict(energy=float(rng.choice([2.0, 3.0])), power=power,
                   eta_charge=float(rng.choice([0.9, 1.0])), eta_discharge=0.9,
-                  exclusive=bool(rng.integers(0, 2)),
+                  exclusive=bool(rng.integers(0, 2)),   # or implied by the rules below
                   charge_min=float(rng.choice([0.0, 0.5 * power])),
                   discharge_min=float(rng.choice([0.0, 0.5 * power])),
                   min_run_h=float(rng.choice([0.0, 2.0, 3.0])),
                   min_rest_h=float(rng.choice([0.0, 1.0, 2.0])),
                   soc_start=1.0, end_rule=F.END_AT_LEAST, end_value=0.5,
                   wear=float(rng.choice([0.0, 2.0])))
+        kw["exclusive"] = kw["exclusive"] or rules_make_exclusive(
+            kw["charge_min"], kw["discharge_min"], kw["min_run_h"], kw["min_rest_h"])
         if rng.integers(0, 3) == 0:
             kw["ramp_mw_per_h"] = 1.0
         stores.append(F.storage(f"s{j}", **kw))
@@ -38,7 +41,10 @@ def test_tight_and_plain_agree(seed):
     rp = dispatch(p, SolveOptions(mip_gap=0.0, variant="plain"))
     assert rt.status == rp.status
     if rt.status == "optimal":
-        assert rt.objective == pytest.approx(rp.objective, abs=1e-6)
+        # both are proven optima of the same problem; they may differ by what HiGHS's
+        # tolerances let through (mip_feasibility_tolerance 1e-6 on a binary times a
+        # big-M of up to 2 MW, at prices near 100: a few 1e-6 in money, seen 2e-6)
+        assert rt.objective == pytest.approx(rp.objective, abs=1e-5)
 
 
 def test_exclusive_only_uses_one_binary_in_tight_and_two_in_plain():

@@ -53,7 +53,7 @@ def test_edge_label_names_the_limit():
 
 def test_lint_errors_stop_drawing(tmp_path):
     bad = tmp_path / "bad.folio"
-    bad.write_text('horizon start 2027-01-01T00:00 length 2 h step 1 h\nconnection c { export max 5 MWh }\n')
+    bad.write_text('horizon start 2027-01-01T00:00 length 2 h step 1 h\nconnection c { export max 5 MWh buy at 4 per MWh }\n')
     out = tmp_path / "net.svg"
     assert main(["graph", str(bad), "--out", str(out)]) == 1
     assert not out.exists()

@@ -44,7 +44,7 @@ def test_minimum_run_is_rounded_up_to_whole_steps(run, objective):
 def test_loss_per_day_compounds_to_the_stated_daily_loss():
     p, _ = solve("""
 horizon start 2027-01-01T00:00 length 24 h step 1 h
-connection c { sell at 1 per MWh }
+connection c { sell at 1 per MWh  buy at 1 per MWh }
 site s at c { storage b { energy 10 MWh charge max 1 MW discharge max 1 MW loss 50% per d } }
 """)
     l = p.storages["b"].loss_per_h
@@ -91,3 +91,50 @@ site s at c {
     assert arrived == pytest.approx(6.0, abs=1e-6)
     assert r.summary["routes"][route.name]["in_transit_end_mwh"] == pytest.approx(released + 4.0, abs=1e-6)
     assert math.isclose(released, 10.0, abs_tol=1e-6)        # it sells all it holds
+
+
+HOLD = """
+horizon start 2027-01-01T00:00 length 6 h step 1 h
+price p values [10, 100, 10, 100, 10, 100]
+connection c {{ sell at p  buy at p }}
+site s at c {{
+  storage b {{ energy 1 MWh  charge max 1 MW  discharge max 1 MW  soc start 0 MWh end free  modes exclusive{rule} }}
+}}
+"""
+
+
+@pytest.mark.parametrize("variant", ["tight", "plain"])
+@pytest.mark.parametrize("rule, objective", [("", 270.0), ("  run at least 2 h", 90.0)])
+def test_a_run_rule_without_minimum_output_still_holds_the_mode(rule, objective, variant):
+    # No minimum output, so a run may continue at 0 MW, but it still blocks the other direction.
+    # Without the rule: charge 1 MWh at 10, sell it at 100, three times: 3 x 90 = 270.
+    # With runs of at least two steps the mode cannot switch every hour.  A cycle needs a charge
+    # at 10 (steps 0, 2, 4) and a later discharge at 100 (steps 1, 3, 5) in a different run.  The
+    # first charge run covers two steps, so the discharge run starts at step 2 at the earliest
+    # and sells at step 3; a second charge run then starts at step 4 at the earliest and, being
+    # at least two steps long unless the horizon cuts it, leaves no step for a discharge: one
+    # cycle, 90.  (Runs C{0,1} D{2,3} C{4,5}, or C{0..3} D{4,5}, reach it.)
+    r = lint_text(HOLD.format(rule=rule), "case.folio")
+    assert r.ok
+    assert [d.code for d in r.diagnostics] == (["P308"] if rule else [])   # warns: no minimum output
+    res = dispatch(r.portfolio, SolveOptions(mip_gap=0, variant=variant))
+    assert res.status == "optimal"
+    assert res.objective == pytest.approx(objective, abs=1e-6)
+
+
+FREE = """
+horizon start 2027-01-01T00:00 length 2 h step 1 h
+price p values [-20, 30]
+connection c {{ sell at p {buy} }}
+site s at c {{ storage b {{ energy 1 MWh  charge max 1 MW  discharge max 1 MW  soc end free }} }}
+"""
+
+
+def test_import_without_a_price_is_an_error_that_says_how_to_mean_it():
+    r = lint_text(FREE.format(buy=""), "case.folio")
+    (e,) = r.errors
+    assert e.code == "P311" and "write 'buy at 0 per MWh'" in e.message
+    # Said explicitly, free import is allowed: charge 1 MWh for nothing in the first hour
+    # (exporting nothing at -20) and sell it at 30 in the second: 30.
+    p, res = solve(FREE.format(buy=" buy at 0 per MWh"))
+    assert res.objective == pytest.approx(30.0, abs=1e-6)

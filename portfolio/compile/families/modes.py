@@ -14,7 +14,8 @@ Variant "tight":
   with charge_max 0 has only ud):
       c <= charge_max * uc,   c >= charge_min * uc   (``mode_charge_on``, ``mode_charge_min``)
       d <= discharge_max * ud, d >= discharge_min * ud (``mode_discharge_on``, ``mode_discharge_min``)
-      uc + ud <= 1   if exclusive or a minimum rest is set  (``mode_exclusive``)
+      uc + ud <= 1   if exclusive  (``mode_exclusive``; a minimum output, run or
+                     rest always makes a store exclusive: ``model.rules_make_exclusive``)
 
 Variant "plain" always uses the two-binary form (for benchmarks).
 
@@ -68,6 +69,7 @@ def build(ctx: Ctx) -> None:
                         f'minimum charge of storage "{k}" when charging ({fmt(s.charge_min)} MW)')
         o_dmin = Origin(s.where("discharge_min"),
                         f'minimum discharge of storage "{k}" when discharging ({fmt(s.discharge_min)} MW)')
+        o_excl = Origin(s.where("exclusive"), f'storage "{k}" may not charge and discharge at once')
         for t in ctx.steps:
             if hc:
                 uc = ctx.v("mode_charge", k, t)
@@ -83,11 +85,8 @@ def build(ctx: Ctx) -> None:
                 if s.discharge_min > 0:
                     ctx.row("mode_discharge_min", (k, t),
                             discharge_terms(ctx, k, t) + [(-s.discharge_min, ud)], lo=0.0, origin=o_dmin)
-            if hc and hd and (s.exclusive or s.min_rest_h > 0):
-                ctx.row("mode_exclusive", (k, t), [(1.0, uc), (1.0, ud)], hi=1.0,
-                        origin=Origin(s.where("exclusive") if "exclusive" in s.spans
-                                      else s.where("min_rest_h"),
-                                      f'storage "{k}" may not charge and discharge at once'))
+            if hc and hd and s.exclusive:
+                ctx.row("mode_exclusive", (k, t), [(1.0, uc), (1.0, ud)], hi=1.0, origin=o_excl)
         bins[k] = {"charge": "mode_charge" if hc else None,
                    "discharge": "mode_discharge" if hd else None}
     ctx.expr["mode_bins"] = bins

@@ -386,10 +386,16 @@ def run() -> None:  # console-script entry point
     try:
         code = main()
         sys.stdout.flush()
+        if code == 130:               # interrupted (main said so on stderr)
+            sys.stderr.flush()
+            os._exit(130)             # see below: do not wait for a cancelled HiGHS run
     except KeyboardInterrupt:
         _quiet_stdout()
         print("portfolio: interrupted", file=sys.stderr)
-        code = 130
+        sys.stderr.flush()
+        # a cancelled HiGHS run may still be busy in a worker thread until its
+        # next check: leave without waiting for it (nothing is being written)
+        os._exit(130)
     except BrokenPipeError:
         _quiet_stdout()                 # the reader has gone: nothing more to say
         code = 141                      # 128 + SIGPIPE, as a shell reports it

@@ -36,7 +36,7 @@ from .certify import TOL, check_vector, objective
 
 TIE_TOL = 1e-9        # share of the objective the tie-break may give up ...
 TIE_ABS = 1e-6        # ... or this much money, whichever is larger
-GAIN_TOL = 1e-9       # a polish gain below this share of the objective is noise
+GAIN_TOL = 1e-8       # a polish gain or loss below this share of the objective is noise
 TIDY_MIN = 1e-9       # MWh of spill and curtailment below which no tie-break runs
 
 
@@ -98,11 +98,15 @@ def polish(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float],
             xp = np.asarray(h.getSolution().col_value, dtype=float)
             xp[ints] = vals
             gain = sense * (objective(mx, xp) - best.objective)
-            if check_vector(mx, xp)[0] <= TOL and gain > GAIN_TOL * max(1.0, abs(best.objective)):
-                best.gained = gain
+            noise = GAIN_TOL * max(1.0, abs(best.objective))
+            # kept unless worse beyond noise: the LP's vertex is also the cleaner
+            # vector (a search's schedule may sit up to 1e-6 outside a row)
+            if check_vector(mx, xp)[0] <= TOL and gain >= -noise:
                 best.x, best.objective = xp, objective(mx, xp)
-                best.notes.append(f"polish: with its integer decisions fixed, the search's schedule "
-                                  f"earns {gain:.6g} more; the better schedule is returned")
+                if gain > noise:
+                    best.gained = gain
+                    best.notes.append(f"polish: with its integer decisions fixed, the search's "
+                                      f"schedule earns {gain:.6g} more; the better schedule is returned")
         else:
             best.notes.append("polish: the fixed-integer LP did not solve "
                               f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")

@@ -214,30 +214,39 @@ class _Highs(highspy.Highs):
     HiGHS runs in a worker thread while this (main) thread waits in Python,
     where a KeyboardInterrupt can land at once; it then asks HiGHS to stop
     (highspy's user-interrupt callbacks, checked by the simplex, the interior
-    point method and the MIP search), waits for it, and re-raises.  Nothing is
+    point method and the MIP search) and waits up to :data:`GRACE` seconds.
+    Some HiGHS phases check no callback (the MIP set-up after presolve, the
+    root LP of a large MIP: seen to run 30 s), so the KeyboardInterrupt is
+    re-raised after the grace period even if HiGHS is still busy; that run
+    ends by itself at its next check (the command exits at once).  Nothing is
     printed (highspy's own ``solve()`` prints on Ctrl-C).
     """
+
+    GRACE = 2.0
 
     def run(self):
         self.HandleUserInterrupt = True
         self.startSolve()
         try:
-            return self._finish_run()
+            return self._wait_until(None)
         except KeyboardInterrupt:
             self.cancelSolve()
-            while True:                  # HiGHS stops at its next callback
+            until = time.monotonic() + self.GRACE
+            while time.monotonic() < until:
                 try:
-                    self._finish_run()
-                    break
+                    if self._wait_until(until):
+                        break
                 except KeyboardInterrupt:
                     continue
             raise
 
-    def _finish_run(self):
-        while True:
+    def _wait_until(self, until: Optional[float]):
+        """Wait for the run; its status, or None when ``until`` passes first."""
+        while until is None or time.monotonic() < until:
             done, status = self.wait(0.1)
             if done:
-                return status
+                return status if status is not None else highspy.HighsStatus.kOk
+        return None
 
 
 def new_highs(options: SolveOptions, seconds: Optional[float] = None) -> highspy.Highs:

@@ -23,8 +23,12 @@ from portfolio.dispatch import dispatch
 from portfolio.solve import SolveOptions, new_highs, to_highs_lp
 
 # Found by checking generated portfolios against the independent PuLP/CBC
-# formulation (tests/oracle_pulp.py); the optimum 355.60 is CBC's, and
-# HiGHS's with presolve off or without the start.
+# formulation (tests/oracle_pulp.py).  The optimum 342.444... is CBC's, and
+# HiGHS's with presolve off or without the start.  (When it was found, a
+# minimum output did not yet imply exclusive modes, and charging and
+# discharging at once reached 355.60; the dispatch then returned the warm
+# start's 342.44 as "optimal" below that optimum.  Given its start, HiGHS
+# 1.16.0 reports 552.44 for this schedule worth 342.44.)
 REPRODUCER = """
 portfolio yard_case
 horizon start 2027-01-04T00:00 length 6 h step 1 h
@@ -37,7 +41,7 @@ site yard at grid {
                   efficiency charge 90% discharge 100%  soc start 4 MWh end free  wear 2 per MWh }
 }
 """
-OPTIMUM = 355.60
+OPTIMUM = 342.4444444444
 
 
 def _reproducer():
@@ -64,8 +68,8 @@ def test_the_reproducer_against_the_independent_formulation():
 def test_highs_alone_is_judged_by_the_certificate_whatever_it_reports():
     # The minimal highspy-only reproducer: the matrix of the case above, the
     # optimum itself handed over as the start.  HiGHS 1.16.0 with presolve on
-    # reports "Optimal" at 604.0 for a schedule worth 355.60 (1.15.1 and
-    # earlier report 355.60).  Whatever the installed HiGHS says, the
+    # reports "Optimal" at 552.44 for a schedule worth 342.44 (1.15.1 and
+    # earlier report 342.44).  Whatever the installed HiGHS says, the
     # certificate must accept the answer exactly when the figures are right.
     import highspy
 

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import List, Optional, Union
 
+from . import files
 from .check import check
 from .diagnostics import Diagnostic, PortfolioError, Sink, UnreadableFile
 from .graph import build_graph, check_topology
@@ -79,9 +80,10 @@ def _stages(text: str, path: str, base: Path, sink: Sink, result: LintResult) ->
 
 def read_source(path: Union[str, Path]):
     """Return (text, None) or (None, diagnostic) for an unreadable file."""
-    p = Path(path)
     try:
-        data = p.read_bytes()
+        data = files.read_bytes(path)
+    except files.InputError as e:
+        why = str(e)
     except IsADirectoryError:
         why = "it is a folder, not a file"
     except FileNotFoundError:

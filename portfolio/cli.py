@@ -18,7 +18,7 @@ from typing import List, Optional
 
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
-from .render import format_json, format_text
+from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
 # are used, so that `--help` is quick and a Ctrl-C during start-up is handled.
@@ -152,7 +152,7 @@ def _lint_first(path, err, consequence: str):
     if r.unreadable:
         return r, EXIT_USAGE
     if not r.ok:
-        print(f"portfolio: {len(r.errors)} error(s) in {path}; {consequence}", file=err)
+        print(printable(f"portfolio: {len(r.errors)} error(s) in {path}; {consequence}"), file=err)
         return r, EXIT_ERRORS
     return r, None
 
@@ -162,7 +162,7 @@ def cmd_graph(args, out, err) -> int:
 
     target = Path(args.out)
     if target.suffix.lower() not in (".svg", ".png", ".dot", ".gv"):
-        print(f"portfolio: error: cannot draw to '{target}': use a .svg, .png or .dot file name", file=err)
+        print(printable(f"portfolio: error: cannot draw to '{target}': use a .svg, .png or .dot file name"), file=err)
         return EXIT_USAGE
     r, code = _lint_first(args.file, err, "nothing was drawn")
     if code is not None:
@@ -171,12 +171,12 @@ def cmd_graph(args, out, err) -> int:
         print("portfolio: error: the picture would overwrite the portfolio file", file=err)
         return EXIT_USAGE
     if not target.parent.exists():
-        print(f"portfolio: error: the folder '{target.parent}' does not exist", file=err)
+        print(printable(f"portfolio: error: the folder '{target.parent}' does not exist"), file=err)
         return EXIT_USAGE
     try:
         write_picture(r.graph, target)
     except (OSError, ValueError) as e:
-        print(f"portfolio: error: cannot write '{target}': {e}", file=err)
+        print(printable(f"portfolio: error: cannot write '{target}': {e}"), file=err)
         return EXIT_USAGE
     print(f"network of {r.portfolio.name} drawn to {target}", file=out)
     return EXIT_OK
@@ -204,7 +204,7 @@ def cmd_dispatch(args, out, err) -> int:
         except OutputFolderError as e:
             problem = str(e)
     if problem:
-        print(f"portfolio: error: {problem}", file=err)
+        print(printable(f"portfolio: error: {problem}"), file=err)
         return EXIT_USAGE
     kw = {}
     if args.time_limit is not None:
@@ -230,13 +230,13 @@ def cmd_dispatch(args, out, err) -> int:
             result.write(out_dir, formats=formats)
         except (OSError, ValueError, OutputFolderError) as e:
             print(_status_line(result), file=out)
-            print(f"portfolio: error: cannot write '{out_dir}': {e}", file=err)
+            print(printable(f"portfolio: error: cannot write '{out_dir}': {e}"), file=err)
             return EXIT_USAGE
         _print_result(result, out)
         if not args.quiet:
             from .schedule import CAUTION   # one wording for the terminal and summary.json
             _print_assets(result, out)
-            print(f"schedule written to {out_dir}/", file=out)
+            print(printable(f"schedule written to {out_dir}/"), file=out)
             print(f"caution: {CAUTION}", file=out)
     else:
         try:   # no schedule, but the summary (status, limits that gave) for tools to read
@@ -246,7 +246,7 @@ def cmd_dispatch(args, out, err) -> int:
             written = f"portfolio: could not write the summary to '{out_dir}': {e}"
         _print_result(result, out)
         _explain_failure(result, err)
-        print(written, file=err)
+        print(printable(written), file=err)
     return exit_code(status)
 
 
@@ -263,7 +263,7 @@ def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
 def _print_result(result, out) -> None:
     print(_status_line(result), file=out)
     for note in result.summary.get("notes", ()):
-        print(f"note: {note}", file=out)
+        print(printable(f"note: {note}"), file=out)
 
 
 def _status_line(result) -> str:
@@ -285,13 +285,14 @@ def _explain_failure(result, err) -> None:
         "no_schedule": "no schedule was found within the limits (with a --time-limit, try a longer one); no schedule",
         "error": "the solver failed; no schedule",
     }
-    print(f"portfolio: {messages.get(result.status, result.status)}", file=err)
+    print(printable(f"portfolio: {messages.get(result.status, result.status)}"), file=err)
     relaxed = getattr(result, "relaxed", None) or []
     if relaxed:
         print("these limits had to give for a schedule to exist (largest first):", file=err)
         for r in relaxed[:20]:
             first = f", first at {r.first.isoformat()}" if getattr(r, "first", None) is not None else ""
-            print(f"  {r.span}: {r.description} (by {r.amount:.6g} over {r.steps} step(s){first})", file=err)
+            print(printable(f"  {r.span}: {r.description} (by {r.amount:.6g} over {r.steps} step(s){first})"),
+                  file=err)
         if len(relaxed) > 20:
             print(f"  ... and {len(relaxed) - 20} more", file=err)
 
@@ -403,7 +404,7 @@ def run() -> None:  # console-script entry point
         if e.errno not in (errno.ENOSPC, errno.EIO, errno.EDQUOT):
             raise
         _quiet_stdout()
-        print(f"portfolio: cannot write to standard output: {e.strerror}", file=sys.stderr)
+        print(printable(f"portfolio: cannot write to standard output: {e.strerror}"), file=sys.stderr)
         code = EXIT_USAGE
     sys.exit(code)
 

@@ -48,9 +48,22 @@ def source_line(path: str, line: int, texts: Optional[Dict[str, str]] = None) ->
     return lines[line - 1]
 
 
+def printable(text: str) -> str:
+    """``text`` safe for a terminal: every control or otherwise unprintable
+    character (ESC and its colour or cursor sequences, carriage returns, bells,
+    U+2028 ...) shown as a visible escape such as ``\\x1b``.
+
+    Everything echoed from outside (file names, CSV headers and cells quoted
+    in messages, notes) goes through this before it is printed.
+    """
+    if text.isprintable():
+        return text
+    return "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text)
+
+
 def format_text(d: Diagnostic, texts: Optional[Dict[str, str]] = None, context: bool = True) -> str:
     sp = d.span
-    head = f"{sp.path}:{sp.line}:{sp.col}: {d.severity}[{d.code}]: {d.message}"
+    head = printable(f"{sp.path}:{sp.line}:{sp.col}: {d.severity}[{d.code}]: {d.message}")
     out = [head]
     if context:
         src = source_line(sp.path, sp.line, texts)
@@ -62,7 +75,7 @@ def format_text(d: Diagnostic, texts: Optional[Dict[str, str]] = None, context: 
             out.append(gutter + src)
             out.append(" " * (len(gutter) - 2) + "| " + " " * (sp.col - 1) + "^" + "~" * (width - 1))
     for note in d.notes:
-        out.append(f"  = {note}")
+        out.append(f"  = {printable(note)}")
     return "\n".join(out)
 
 

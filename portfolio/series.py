@@ -41,6 +41,7 @@ from typing import Dict, List, Optional, Sequence, Tuple
 import numpy as np
 import pandas as pd
 
+from . import files
 from .diagnostics import (
     SeriesBadTime,
     SeriesBadValue,
@@ -345,7 +346,9 @@ class _Table:
 def _read_table(resolved: Path, shown: str) -> _Table:
     """Read one CSV file; raise :class:`_Unreadable` when it cannot be read."""
     try:
-        data = resolved.read_bytes()
+        data = files.read_bytes(resolved)
+    except files.InputError as e:
+        raise _Unreadable(str(e)) from None
     except FileNotFoundError:
         raise _Unreadable("no such file") from None
     except IsADirectoryError:

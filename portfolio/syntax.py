@@ -66,32 +66,14 @@ def _keyword_terminals(grammar: str) -> Dict[str, Callable]:
     return {n: _keyword_boundary for n in names}
 
 
-def _cache_path():
-    """Lark's parse-table cache (2-3x faster start), in the user's cache folder.
-
-    Lark keys the file by the grammar's hash and options; False disables it
-    when no cache folder can be written.
-    """
-    import os
-    import tempfile
-    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
-    folder = os.path.join(base, "portfolio")
-    try:
-        os.makedirs(folder, exist_ok=True)
-        probe = tempfile.NamedTemporaryFile(dir=folder, delete=True)
-        probe.close()
-    except OSError:
-        return False
-    import hashlib
-    digest = hashlib.sha256(grammar_text().encode()).hexdigest()[:16]
-    return os.path.join(folder, f"grammar-{digest}.lark-cache")
-
-
 @lru_cache(maxsize=1)
 def parser() -> Lark:
+    # No parse-table cache on disk: Lark's cache is a pickle, and unpickling a
+    # file from a user-writable folder runs whatever it holds.  Building the
+    # tables takes about 50 ms.
     text = grammar_text()
     return Lark(text, parser="lalr", lexer="contextual", propagate_positions=True,
-                maybe_placeholders=False, cache=_cache_path(), lexer_callbacks=_keyword_terminals(text))
+                maybe_placeholders=False, lexer_callbacks=_keyword_terminals(text))
 
 
 @lru_cache(maxsize=1)
@@ -222,6 +204,7 @@ def _open_braces(text: str) -> Optional[Span]:
 _UNIT_NOTE = "note: every quantity carries a unit: MW, kW, GW, MWh, kWh, GWh, %, h, min, or 'per MWh' for money"
 _TIMESTAMP_LIKE = re.compile(r"\d{4}-\d")
 _STATEMENT_WORDS = {"portfolio", "horizon", "price", "preset", "connection", "site", "route", "total"}
+_TAIL = 256   # characters before a token searched for "number, then keyword"
 _NUMBER_THEN_WORD = re.compile(r"([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s+([A-Za-z_][A-Za-z0-9_]*)\s*$")
 
 
@@ -229,13 +212,20 @@ def _number_before_keyword(text: str, tok: Token, prev: Optional[Token]):
     """'energy 40 charge max ...': the keyword after 40 was read as its unit."""
     if tok.start_pos is None:
         return None
-    m = _NUMBER_THEN_WORD.search(text[:tok.start_pos])
+    # Search only the tail before the token (a regex search over the whole
+    # prefix is quadratic in a long digit run); a number cut by the window is
+    # followed back to its first digit, in linear time.
+    lo = max(0, tok.start_pos - _TAIL)
+    m = _NUMBER_THEN_WORD.search(text, lo, tok.start_pos)
     if not m or m.group(2) not in keywords():
         return None
     pos = m.start(1)
+    if pos == lo:
+        while pos > 0 and (text[pos - 1].isdigit() or text[pos - 1] in ".eE+-"):
+            pos -= 1
     line = text.count("\n", 0, pos) + 1
     col = pos - (text.rfind("\n", 0, pos) + 1) + 1
-    return m.group(1), pos, line, col
+    return text[pos:m.end(1)], pos, line, col
 
 
 def parse(text: str, path: str, sink: Sink) -> Optional[Tree]:

@@ -1,0 +1,71 @@
+"""Reading the files a portfolio names: regular files only, of bounded size.
+
+Every input file (the portfolio file itself, every series CSV) is read here
+and nowhere else.  A path may name anything: ``/dev/zero`` would be read
+forever, a FIFO would block forever, ``/dev/urandom`` would fill the memory.
+So a file is opened without blocking, must be a regular file, and may hold
+at most :func:`limit_bytes` (256 MiB unless the environment variable
+``PORTFOLIO_MAX_INPUT_MB`` says otherwise; docs/series.md).
+"""
+
+from __future__ import annotations
+
+import os
+import stat
+from pathlib import Path
+from typing import Union
+
+DEFAULT_MB = 256
+ENV = "PORTFOLIO_MAX_INPUT_MB"
+
+
+class InputError(OSError):
+    """A file that will not be read, with the reason in plain words."""
+
+
+def limit_bytes() -> int:
+    """The largest input file read, in bytes (``PORTFOLIO_MAX_INPUT_MB``)."""
+    raw = os.environ.get(ENV, "").strip()
+    try:
+        mb = float(raw) if raw else DEFAULT_MB
+    except ValueError:
+        mb = DEFAULT_MB
+    if not mb > 0:
+        mb = DEFAULT_MB
+    return int(mb * 1024 * 1024)
+
+
+def read_bytes(path: Union[str, Path]) -> bytes:
+    """The whole content of a regular file of at most :func:`limit_bytes`.
+
+    Raises :class:`InputError` (plain reason) for anything else, and the
+    usual ``FileNotFoundError``, ``PermissionError``, ``IsADirectoryError``.
+    """
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
+    try:
+        st = os.fstat(fd)
+        if stat.S_ISDIR(st.st_mode):
+            raise IsADirectoryError(21, "Is a directory", str(path))
+        if not stat.S_ISREG(st.st_mode):
+            raise InputError(f"it is not a regular file (a device, pipe or socket); "
+                             f"only files are read")
+        limit = limit_bytes()
+        if st.st_size > limit:
+            raise InputError(_too_big(st.st_size, limit))
+        chunks, total = [], 0
+        while True:
+            chunk = os.read(fd, min(1 << 20, limit + 1 - total))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            total += len(chunk)
+            if total > limit:                 # it grew while being read
+                raise InputError(_too_big(total, limit))
+        return b"".join(chunks)
+    finally:
+        os.close(fd)
+
+
+def _too_big(size: int, limit: int) -> str:
+    return (f"it is larger ({size / 2**20:.3g} MiB) than the {limit / 2**20:.3g} MiB read at "
+            f"most (set {ENV} to read larger files)")

@@ -1,4 +1,4 @@
-"""Pictures of the network graph: SVG and PNG (matplotlib), DOT text (pydot).
+"""Pictures of the network graph: SVG and PNG (matplotlib), DOT text (written here).
 
 Our own visual style, explained in docs/graph.md and in the legend drawn on
 every picture.  Layers, top to bottom: connections, sites, then each site's
@@ -160,21 +160,26 @@ def draw(g: nx.MultiDiGraph, path: Path, title: str = "") -> None:
 
 
 def to_dot(g: nx.MultiDiGraph) -> str:
-    """DOT text with the same colours and shapes, for those who use graphviz."""
-    import pydot
+    """DOT text with the same colours and shapes, for those who use graphviz.
 
+    Written directly (DOT is a small text format; every identifier and label
+    is a quoted string, escaped by :func:`_quote`); tests read it back with
+    pydot to check it parses.
+    """
     shapes = {"h": "hexagon", "s": "box", "o": "ellipse", "^": "triangle", "v": "invtriangle"}
-    d = pydot.Dot(graph_name=_dot_id(g.graph.get("name", "portfolio")), graph_type="digraph", rankdir="TB")
+    lines = [f"digraph {_dot_id(g.graph.get('name', 'portfolio'))} {{", "rankdir=TB;"]
     for n, a in g.nodes(data=True):
         marker, colour, _ = NODE_STYLE[_style_key(a)]
-        d.add_node(pydot.Node(_dot_id(n), label=_quote(n), shape=shapes[marker], style="filled",
-                              fillcolor=_quote(colour), fontcolor=_quote("white" if a["kind"] == "connection" else "black")))
+        font = "white" if a["kind"] == "connection" else "black"
+        lines.append(f"{_dot_id(n)} [label={_quote(n)}, shape={shapes[marker]}, style=filled, "
+                     f"fillcolor={_quote(colour)}, fontcolor={_quote(font)}];")
     for u, v, k, a in g.edges(keys=True, data=True):
         group = "route" if "route" in a else _EDGE_GROUP.get(k, "grid")
         colour, style, _ = EDGE_STYLE[group]
-        d.add_edge(pydot.Edge(_dot_id(u), _dot_id(v), label=_quote(edge_label(k, a)), color=_quote(colour),
-                              style=style))
-    return d.to_string()
+        lines.append(f"{_dot_id(u)} -> {_dot_id(v)} [label={_quote(edge_label(k, a))}, "
+                     f"color={_quote(colour)}, style={style}];")
+    lines.append("}")
+    return "\n".join(lines) + "\n"
 
 
 def _dot_id(name: str) -> str:

@@ -59,73 +59,88 @@ def tidy_total(x: np.ndarray, cols: np.ndarray, dt: float) -> float:
 
 def polish(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float],
            tidy_cols: Sequence[int], dt: float, hot=None) -> Polished:
-    """Polish ``x`` and break ties (see the module docstring).
+    """Both steps (see the module docstring): :func:`improve`, then :func:`tie_break`.
 
     ``lp`` is the HighsLp of ``mx``; ``new_highs(seconds)`` gives a configured
     Highs; ``hot``, for an LP, is the Highs that solved it (the tie-break then
     starts from its basis).  ``seconds`` None means no limit.
     """
+    t0 = time.perf_counter()
+    best, h = improve(mx, lp, x, new_highs, seconds)
+    left = None if seconds is None else seconds - (time.perf_counter() - t0)
+    tie_break(mx, lp, best, h if h is not None else hot, new_highs, left, tidy_cols, dt)
+    best.seconds = time.perf_counter() - t0
+    return best
+
+
+def improve(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float]):
+    """Step 1 for a MILP: (Polished, the Highs holding the fixed-integer LP, or None).
+
+    For a model without integers, ``x`` comes back as it is (an LP's optimum
+    is certified by its duals instead)."""
     import highspy
 
     t0 = time.perf_counter()
-    cols = np.asarray(tidy_cols, dtype=np.int32)
     best = Polished(x=np.asarray(x, dtype=float), objective=objective(mx, x))
-
-    def left() -> Optional[float]:
-        return None if seconds is None else seconds - (time.perf_counter() - t0)
-
-    def out_of_time(step: str) -> bool:
-        if left() is not None and left() <= 0:
-            best.notes.append(f"{step} skipped: no time left within the time limit")
-            return True
-        return False
-
     ints = np.nonzero(mx.integer)[0].astype(np.int32)
+    if not ints.size:
+        return best, None
+    if seconds is not None and seconds <= 0:
+        best.notes.append("polish (integers fixed, LP re-solved) skipped: no time left within "
+                          "the time limit")
+        return best, None
     sense = 1.0 if mx.maximize else -1.0
-    h = hot
-    if ints.size:
-        if out_of_time("polish (integers fixed, LP re-solved)"):
-            best.seconds = time.perf_counter() - t0
-            return best
-        h = new_highs(left())
-        h.passModel(lp)
-        vals = np.round(best.x[ints])
-        h.changeColsBounds(len(ints), ints, vals, vals)
-        h.changeColsIntegrality(len(ints), ints,
-                                np.full(len(ints), highspy.HighsVarType.kContinuous))
-        h.run()
-        if h.getModelStatus() == highspy.HighsModelStatus.kOptimal:
-            xp = np.asarray(h.getSolution().col_value, dtype=float)
-            xp[ints] = vals
-            gain = sense * (objective(mx, xp) - best.objective)
-            noise = GAIN_TOL * max(1.0, abs(best.objective))
-            # kept unless worse beyond noise: the LP's vertex is also the cleaner
-            # vector (a search's schedule may sit up to 1e-6 outside a row)
-            if check_vector(mx, xp)[0] <= TOL and gain >= -noise:
-                best.x, best.objective = xp, objective(mx, xp)
-                if gain > noise:
-                    best.gained = gain
-                    best.notes.append(f"polish: with its integer decisions fixed, the search's "
-                                      f"schedule earns {gain:.6g} more; the better schedule is returned")
-        else:
-            best.notes.append("polish: the fixed-integer LP did not solve "
-                              f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
-            h = None
+    h = new_highs(seconds)
+    h.passModel(lp)
+    vals = np.round(best.x[ints])
+    h.changeColsBounds(len(ints), ints, vals, vals)
+    h.changeColsIntegrality(len(ints), ints, np.full(len(ints), highspy.HighsVarType.kContinuous))
+    h.run()
+    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+        best.notes.append("polish: the fixed-integer LP did not solve "
+                          f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
+        best.seconds = time.perf_counter() - t0
+        return best, None
+    xp = np.asarray(h.getSolution().col_value, dtype=float)
+    xp[ints] = vals
+    gain = sense * (objective(mx, xp) - best.objective)
+    noise = GAIN_TOL * max(1.0, abs(best.objective))
+    # kept unless worse beyond noise: the LP's vertex is also the cleaner
+    # vector (a search's schedule may sit up to 1e-6 outside a row)
+    if check_vector(mx, xp)[0] <= TOL and gain >= -noise:
+        best.x, best.objective = xp, objective(mx, xp)
+        if gain > noise:
+            best.gained = gain
+            best.notes.append(f"polish: with its integer decisions fixed, the search's schedule "
+                              f"earns {gain:.6g} more; the better schedule is returned")
+    best.seconds = time.perf_counter() - t0
+    return best, h
+
+
+def tie_break(mx, lp, best: Polished, h, new_highs: Callable, seconds: Optional[float],
+              tidy_cols: Sequence[int], dt: float) -> None:
+    """Step 2, in place on ``best``: least spill and curtailment at its value.
+
+    ``h`` holds the model already solved with the integers fixed (or, for an
+    LP, the LP itself), or is None: then a new Highs is made for an LP, and a
+    MILP (whose fixed-integer LP did not solve) is left as it is."""
+    t0 = time.perf_counter()
+    cols = np.asarray(tidy_cols, dtype=np.int32)
     if cols.size:
         best.tidy_before = best.tidy_after = tidy_total(best.x, cols, dt)
-    if not cols.size or best.tidy_before <= TIDY_MIN or not mx.maximize \
-            or out_of_time("tie-break (less spill and curtailment)"):
-        best.seconds = time.perf_counter() - t0
-        return best
+    if not cols.size or best.tidy_before <= TIDY_MIN or not mx.maximize:
+        return
+    if seconds is not None and seconds <= 0:
+        best.notes.append("tie-break (less spill and curtailment) skipped: no time left within "
+                          "the time limit")
+        return
     if h is None:
-        if ints.size:          # the fixed-integer LP did not solve: nothing to start from
-            best.seconds = time.perf_counter() - t0
-            return best
-        h = new_highs(left())
+        if mx.integer.any():
+            return
+        h = new_highs(seconds)
         h.passModel(lp)
-    _tie_break(mx, h, best, cols, dt, left())
-    best.seconds = time.perf_counter() - t0
-    return best
+    _tie_break(mx, h, best, cols, dt, seconds)
+    best.seconds += time.perf_counter() - t0
 
 
 def _tie_break(mx, h, best: Polished, cols: np.ndarray, dt: float, seconds: Optional[float]) -> None:

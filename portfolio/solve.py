@@ -88,6 +88,10 @@ HIGHS_STATUS: Dict[object, str] = {
     _S.kPostsolveError: ERROR,
 }
 
+# what a failing solve may raise (highspy.HighsError exists from highspy 1.16 on)
+_SOLVER_ERRORS = tuple(e for e in (getattr(highspy, "HighsError", None),) if e is not None) + (
+    ValueError, RuntimeError, MemoryError)
+
 INTERFACES = ("matrix", "pyomo")
 MAX_THREADS = 256     # HiGHS aborts the whole process (C++) on absurd thread counts
 VARIANTS = ("tight", "plain")
@@ -462,6 +466,7 @@ class _Pick:
     cert: Optional[certify.Certificate] = None
     x: Optional[np.ndarray] = None
     hot: object = None
+    gained: float = 0.0               # what the polish added to the solver's schedule
 
 
 def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
@@ -488,11 +493,11 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
 
     pick = _Pick()
     if given is not None:
-        cert = certify.certify(mx, certify.Claim(given, optimal=True, source="the warm start"),
-                               options.mip_gap, lp_bound)
-        if cert.status == certify.OPTIMAL and cert.ok:
+        first = _judge(built, lp, is_mip, options, deadline, lp_bound, sol,
+                       certify.Claim(given, optimal=True, source="the warm start"))
+        if first is not None and first.cert.status == certify.OPTIMAL and first.cert.ok:
             # the verified LP bound already proves the start within the gap: no search
-            pick = _Pick(cert, given)
+            pick = first
             sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
     if pick.cert is None:
         pick = _search(built, lp, is_mip, options, deadline, given, lp_bound, progress, sol)
@@ -509,6 +514,41 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
         return sol
     _finish(built, lp, is_mip, options, deadline, lp_bound, pick, sol)
     return sol
+
+
+def _judge(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
+           lp_bound: Optional[float], sol: Solution, claim: certify.Claim,
+           hot=None) -> Optional[_Pick]:
+    """Certify a claim and, for a MILP, polish it (:func:`portfolio.polish.improve`).
+
+    None when the vector breaks the model.  A polished schedule worth more
+    than the claimed bound proves the bound wrong: a failure of the claim,
+    and the bound is dropped.
+    """
+    mx = built.matrix
+    cert = certify.certify(mx, claim, options.mip_gap, lp_bound)
+    if not cert.feasible:
+        return None
+    x, gained = np.asarray(claim.x, dtype=float), 0.0
+    if is_mip and not built.relax:
+        pol, h = polish.improve(mx, lp, x, lambda s: new_highs(options, s), deadline.left())
+        sol.notes += pol.notes
+        hot, gained = h, pol.gained
+        if pol.x is not x:
+            bound = claim.bound
+            failures = list(cert.failures)
+            tol = certify.OBJ_TOL * max(1.0, abs(pol.objective))
+            sense = 1.0 if mx.maximize else -1.0
+            if bound is not None and sense * (pol.objective - bound) > tol:
+                failures.append(f"{claim.source} reported the bound {bound:.10g}, but fixing its "
+                                f"integer decisions gives a schedule worth {pol.objective:.10g}")
+                bound = None
+            x = pol.x
+            cert = certify.certify(mx, certify.Claim(x, optimal=claim.optimal and not failures,
+                                                     bound=bound, source=claim.source),
+                                   options.mip_gap, lp_bound)
+            cert.failures = failures + cert.failures
+    return _Pick(cert, x, hot, gained)
 
 
 def _search(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
@@ -538,9 +578,16 @@ def _search(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
             if run.error:
                 sol.message = f"HiGHS stopped with an error (model status: {run.highs_status})"
             break
-        cert = certify.certify(mx, run.claim, options.mip_gap, lp_bound)
-        if cert.feasible and (pick.cert is None or cert.ok or _better(mx, cert, pick.cert)):
-            pick = _Pick(cert, np.asarray(run.claim.x, dtype=float), run.highs)
+        judged = _judge(built, lp, is_mip, options, deadline, lp_bound, sol, run.claim, run.highs)
+        if judged is None:
+            nxt = tries[i + 1][0] if i + 1 < len(tries) else None
+            viol, where = certify.check_vector(mx, np.asarray(run.claim.x, dtype=float))
+            sol.notes.append(f"{label} returned a schedule that breaks the model ({where}, by "
+                             f"{viol:.3g}): not reported" + (f"; solved again ({nxt})" if nxt else ""))
+            continue
+        cert = judged.cert
+        if pick.cert is None or cert.ok or _better(mx, cert, pick.cert):
+            pick = judged
         if cert.ok:
             break
         nxt = tries[i + 1][0] if i + 1 < len(tries) else None
@@ -557,26 +604,23 @@ def _finish(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
     t0 = time.perf_counter()
     x, chosen = pick.x, pick.cert
     if not built.relax:
-        pol = polish.polish(mx, lp, x, lambda s: new_highs(options, s), deadline.left(),
-                            _tidy_columns(built), built.step_hours,
-                            hot=None if is_mip else pick.hot)
+        pol = polish.Polished(x=x, objective=certify.objective(mx, x), gained=pick.gained)
+        polish.tie_break(mx, lp, pol, pick.hot, lambda s: new_highs(options, s), deadline.left(),
+                         _tidy_columns(built), built.step_hours)
         sol.notes += pol.notes
-        sol.polish = {"gained": pol.gained, "seconds": pol.seconds}
+        sol.polish = {"gained": pol.gained}
         sol.tie_break = {"spilled_and_curtailed_mwh_before": pol.tidy_before,
                          "spilled_and_curtailed_mwh_after": pol.tidy_after,
                          "objective_given_up": pol.tidy_cost}
-        final = certify.certify(mx, certify.Claim(pol.x, optimal=chosen.status == certify.OPTIMAL,
-                                                  bound=chosen.bound, source="the polished schedule"),
-                                options.mip_gap, lp_bound)
-        if not final.ok and final.feasible:
-            sol.notes += [f"{f}: the search's bound is dropped" for f in final.failures]
-            final = certify.certify(mx, certify.Claim(pol.x, optimal=False,
-                                                      source="the polished schedule"),
+        if pol.x is not x:
+            final = certify.certify(mx, certify.Claim(pol.x, optimal=chosen.status == certify.OPTIMAL,
+                                                      bound=chosen.bound, source="the tie-break"),
                                     options.mip_gap, lp_bound)
-        if final.feasible:
-            if final.bound is not None and final.bound == chosen.bound:
+            if final.feasible and final.ok:
                 final.bound_source = chosen.bound_source
-            chosen, x = final, pol.x
+                chosen, x = final, pol.x
+            else:
+                sol.notes.append("tie-break: its schedule failed the final checks; schedule kept")
     sol.polish_seconds = time.perf_counter() - t0
     sol.values = _values_by_family(built, x)
     sol.solved = True
@@ -685,7 +729,7 @@ def solve(built, options: Optional[SolveOptions] = None,
         raise exc.original
     except _Infeasible as exc:
         return Solution(status=INFEASIBLE, message=str(exc))
-    except (highspy.HighsError, ValueError, RuntimeError, MemoryError) as exc:
+    except _SOLVER_ERRORS as exc:
         return Solution(status=ERROR, message=f"{type(exc).__name__}: {exc}")
     if progress is not None:
         progress(sol.handoff_seconds + sol.solve_seconds, sol.objective, sol.best_bound, sol.mip_gap)

@@ -148,6 +148,7 @@ class Ctx:
         self._var_start: Dict[str, int] = {}                    # family -> first column
         self._col_of: Dict[str, Dict[Hashable, int]] = {}       # asset -> column of step 0
         self._var_ub: Dict[str, Optional[float]] = {}
+        self._implied: List[Tuple[int, float]] = []    # (column, upper bound) from portfolio.reach
         self.binary_vars: List[str] = []
         self.families: Dict[str, Family] = {}
         self.expr: Dict[str, object] = {}        # expressions shared between modules
@@ -247,6 +248,13 @@ class Ctx:
         oi = fam.origin_index(origin) if origin is not None else -1
         fam.bounds.append((col, lo, hi, oi))
 
+    def implied(self, var: str, asset: Hashable, t: int, hi: float) -> None:
+        """An upper bound that every schedule can meet once written canonically
+        (see :mod:`portfolio.reach`): applied in both modes, never relaxed, no origin."""
+        col = self.v(var, asset, t)
+        if col is not None:
+            self._implied.append((col, float(hi)))
+
     def origin_only(self, family: str, origin: Origin, kind: str = "rows") -> None:
         """Register an origin for a family whose rows carry none individually."""
         self.family(family, kind).origin_index(origin)
@@ -275,6 +283,9 @@ class Ctx:
             if ub is not None:
                 col_upper[start:stop] = ub
             integer[start:stop] = binary[name]
+        if self._implied:
+            cols, his = zip(*self._implied)
+            np.minimum.at(col_upper, np.asarray(cols, dtype=np.int64), np.asarray(his, dtype=float))
 
         rows_r: List[np.ndarray] = []     # triplets of every row family, global row numbers
         rows_c: List[np.ndarray] = []

@@ -9,8 +9,8 @@ The binary is added at every step when ``Connection.exclusive`` is set, and
 AUTOMATICALLY at every step where the buy price is below the sell price:
 otherwise the LP would import and export at once for a fake profit.
 
-Me and Mi are the connection's limits; where a limit is None, a safe bound
-from the assets behind it is used:
+Me and Mi are what the connection can carry: its limits, or where lower,
+what the assets behind it can move (:func:`portfolio.reach.connection_reach`):
 
     Me[c,t] = sum_{s at c} min(Site.export_max, sum_k discharge_max[k] + sum_i a[i,t])
     Mi[c,t] = sum_{s at c} min(Site.import_max, sum_k charge_max[k] + sum_j demand[j,t])
@@ -22,42 +22,9 @@ off a feasible schedule.  Both rows are identities (never relaxed).
 
 from __future__ import annotations
 
-import numpy as np
 
+from ...reach import connection_reach
 from ..context import Ctx, Origin
-
-
-def _safe_bounds(ctx: Ctx, cname: str):
-    p = ctx.p
-    me = np.zeros(ctx.T)
-    mi = np.zeros(ctx.T)
-    for sname, site in p.sites.items():
-        if site.connection != cname:
-            continue
-        out = np.zeros(ctx.T)
-        inn = np.zeros(ctx.T)
-        for s in p.storages.values():
-            if s.site == sname:
-                out += s.discharge_max
-                inn += s.charge_max
-        for f in p.inflows.values():
-            if f.site == sname and "site" in f.targets:
-                out += p.profile(f.profile)
-        for d in p.demands.values():
-            if d.site == sname:
-                inn += p.profile(d.profile)
-        if site.export_max is not None:
-            out = np.minimum(out, site.export_max)
-        if site.import_max is not None:
-            inn = np.minimum(inn, site.import_max)
-        me += out
-        mi += inn
-    c = p.connections[cname]
-    if c.export_max is not None:
-        me = np.minimum(me, c.export_max)
-    if c.import_max is not None:
-        mi = np.minimum(mi, c.import_max)
-    return me, mi
 
 
 def build(ctx: Ctx) -> None:
@@ -78,7 +45,8 @@ def build(ctx: Ctx) -> None:
     ctx.add_var("export_on", list(needed), binary=True)
     for cname, steps in needed.items():
         c = p.connections[cname]
-        me, mi = _safe_bounds(ctx, cname)
+        # in relax mode the declared limits may give: the big-M may not lean on them
+        me, mi = connection_reach(p, cname, declared=not ctx.relax)
         if c.exclusive:
             o = Origin(c.where("exclusive"), f'connection "{cname}" may not import and export at once')
         else:

@@ -11,16 +11,37 @@
     sum_c conn_import[c,t] <= Cap.import_max   (family ``cap_import``)
 
 None means no limit.  Single-variable limits are bounds (rows in relax mode).
+
+Every site and connection flow also gets the bound of what the assets behind
+it can move (:mod:`portfolio.reach`; never relaxed, never binding on a
+schedule written canonically), so a declared limit far above it (1e12 MW)
+never reaches the solver as a number.
 """
 
 from __future__ import annotations
 
+from ...reach import connection_reach, site_reach
 from ..context import Ctx, Origin
 from ._common import fmt
 
 
+def _implied(ctx: Ctx) -> None:
+    p = ctx.p
+    for sname in p.sites:
+        out, inn = site_reach(p, sname)
+        for t in ctx.steps:
+            ctx.implied("site_export", sname, t, out[t])
+            ctx.implied("site_import", sname, t, inn[t])
+    for cname in p.connections:
+        out, inn = connection_reach(p, cname)
+        for t in ctx.steps:
+            ctx.implied("conn_export", cname, t, out[t])
+            ctx.implied("conn_import", cname, t, inn[t])
+
+
 def build(ctx: Ctx) -> None:
     p = ctx.p
+    _implied(ctx)
     for sname, s in p.sites.items():
         for side, lim in (("export", s.export_max), ("import", s.import_max)):
             if lim is None:

@@ -64,52 +64,10 @@ def test_random_linked_portfolio_matches_oracle(seed):
 
 def test_the_families_cover_the_rules():
     """The seeds exercise every rule the comparison is meant to cover."""
-    seen = set()
-    for fam, seeds in (("single", RP.SINGLE_SEEDS), ("linked", RP.LINKED_SEEDS)):
-        for s in seeds:
-            p = RP.make(fam, s)
-            for k in p.storages.values():
-                seen |= {n for n, on in (
-                    ("exclusive", k.exclusive), ("charge_min", k.charge_min > 0),
-                    ("discharge_min", k.discharge_min > 0), ("min_run", k.min_run_h > 0),
-                    ("min_rest", k.min_rest_h > 0), ("ramp", k.ramp_mw_per_h is not None),
-                    ("loss", k.loss_per_h > 0), ("wear", k.wear > 0), ("spill", k.spill_allowed),
-                    ("spill_max", k.spill_max is not None), ("natural", k.inflow is not None),
-                    ("end_equal", k.end_rule == "equal"), ("end_at_least", k.end_rule == "at_least"),
-                    ("run_with_min", k.min_run_h > 0 and (k.charge_min > 0 or k.discharge_min > 0))) if on}
-            for i in p.inflows.values():
-                seen |= {n for n, on in (("into_site", "site" in i.targets),
-                                         ("into_store", any(t != "site" for t in i.targets)),
-                                         ("curtail", i.curtail_allowed),
-                                         ("no_curtail", not i.curtail_allowed)) if on}
-            seen |= {"demand"} if p.demands else set()
-            for c in p.connections.values():
-                buy, sell = p.price(c.buy), p.price(c.sell)
-                seen |= {n for n, on in (("conn_export_max", c.export_max is not None),
-                                         ("conn_import_max", c.import_max is not None),
-                                         ("direction_exclusive", c.exclusive),
-                                         ("buy_below_sell", bool(np.any(buy < sell))),
-                                         ("buy_above_sell", bool(np.any(buy > sell)))) if on}
-            for st in p.sites.values():
-                seen |= {n for n, on in (("site_export_max", st.export_max is not None),
-                                         ("site_import_max", st.import_max is not None)) if on}
-            for rt in p.routes:
-                seen |= {rt.kind}
-                seen |= {n for n, on in (("delay", rt.delay_steps > 0), ("factor", rt.factor != 1),
-                                         ("max_mw", rt.max_mw is not None),
-                                         ("in_transit", rt.in_transit > 0),
-                                         ("cross_site", p.storages[rt.source].site != p.storages[rt.target].site)) if on}
-            if p.cap is not None:
-                seen.add("cap")
-            if len(p.connections) > 1:
-                seen.add("two_connections")
-    want = {"exclusive", "charge_min", "discharge_min", "min_run", "min_rest", "ramp", "loss", "wear",
-            "spill", "spill_max", "natural", "end_equal", "end_at_least", "run_with_min", "into_site",
-            "into_store", "curtail", "no_curtail", "demand", "conn_export_max", "conn_import_max",
-            "direction_exclusive", "buy_below_sell", "buy_above_sell", "site_export_max",
-            "site_import_max", "release", "spill", "transfer", "delay", "factor", "max_mw", "in_transit",
-            "cross_site", "cap", "two_connections"}
-    assert want <= seen, sorted(want - seen)
+    seen = set().union(*(RP.features(RP.make(fam, s))
+                         for fam, seeds in (("single", RP.SINGLE_SEEDS), ("linked", RP.LINKED_SEEDS))
+                         for s in seeds))
+    assert RP.RULES <= seen, sorted(RP.RULES - seen)
 
 
 # -- the oracle on cases with known optima ------------------------------------------

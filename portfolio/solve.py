@@ -488,6 +488,17 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
                          certify.gap(start.objective, start.lp_bound, mx.maximize))
             except BaseException as exc:   # propagates from solve(), as from the search
                 raise _ProgressFailed(exc) from exc
+    if is_mip and options.warm_start and not built.relax and (start is None or start.x is None):
+        # nothing from the relaxation: a schedule that stands still, if that is
+        # allowed, so that a short limit still returns a schedule
+        idle = warmstart.idle(built, lp, lambda: new_highs(options, deadline.left()),
+                              warmstart.idle_budget(deadline.left()))
+        sol.start_seconds += idle.seconds
+        if idle.x is not None:
+            lp_bound = start.lp_bound if start is not None else None
+            start = warmstart.Start(idle.x, idle.objective, lp_bound, sol.start_seconds,
+                                    note="idle: every mode binary at 0")
+            sol.start_objective = idle.objective
     given = start.x if start is not None else None
     lp_bound = start.lp_bound if start is not None else None
 
@@ -501,6 +512,14 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
             sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
     if pick.cert is None:
         pick = _search(built, lp, is_mip, options, deadline, given, lp_bound, progress, sol)
+        if pick.cert is not None and given is not None:
+            held = certify.certify(mx, certify.Claim(given, optimal=False, source="the start"),
+                                   options.mip_gap, lp_bound)
+            if held.feasible and _better(mx, held, pick.cert):
+                # more time must never give a worse answer than the one in hand
+                sol.notes.append("the search returned a schedule worth less than its start; "
+                                 "the start is returned")
+                pick = _Pick(held, given)
     if pick.cert is None and given is not None:
         pick = _Pick(certify.certify(mx, certify.Claim(given, optimal=False, source="the warm start"),
                                      options.mip_gap, lp_bound), given)

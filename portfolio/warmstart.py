@@ -60,6 +60,17 @@ def budget(time_limit: Optional[float]) -> float:
     return max(0.0, min(MAX_SECONDS, SHARE * float(time_limit)))
 
 
+IDLE_FLOOR = 1.0      # seconds the idle fallback may take even when the limit is spent
+
+
+def idle_budget(time_left: Optional[float]) -> float:
+    """Seconds the idle fallback may take of what is left of a time limit: at
+    least :data:`IDLE_FLOOR` (a schedule in hand is worth a short overrun)."""
+    if time_left is None:
+        return MAX_SECONDS
+    return max(IDLE_FLOOR, min(MAX_SECONDS, SHARE * float(time_left)))
+
+
 def find(built, lp, new_highs: Callable, seconds: float) -> Start:
     """Search for a first schedule of ``built`` within ``seconds``.
 
@@ -129,3 +140,43 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
         return Start(None, None, lp_bound, elapsed, len(fix), free,
                      note="the neighbourhood's schedule does not satisfy the model")
     return Start(x, objective(mx, x), lp_bound, elapsed, len(fix), free)
+
+
+# Mode binaries (portfolio/compile/families/modes.py): at 0 a store neither
+# charges nor discharges ("mode_u" at 0 only forbids charging).
+IDLE_FAMILIES = ("mode_u", "mode_charge", "mode_discharge")
+
+
+def idle(built, lp, new_highs: Callable, seconds: float) -> Start:
+    """A schedule with every store's mode binaries at 0: doing nothing, or
+    the best that can be done without switching a mode on.
+
+    The fallback when :func:`find` gives nothing, so that a schedule is in
+    hand whenever standing still is allowed (it may not be: an end rule, a
+    run carried in from before the horizon, a source that may not be
+    curtailed).  What is left is an LP, plus the direction binaries of the
+    connections (few, and kept integer).  Checked like any start.
+    """
+    import highspy
+
+    t0 = time.perf_counter()
+    mx = built.matrix
+    cols = [np.arange(*mx.var_ranges[n]) for n in IDLE_FAMILIES if n in mx.var_ranges]
+    if not cols or seconds <= 0:
+        return Start(None, None, None, 0.0, note="no mode binaries" if not cols else "no time left")
+    fix = np.concatenate(cols).astype(np.int32)
+    h = new_highs()
+    h.passModel(lp)
+    h.changeColsBounds(len(fix), fix, np.zeros(len(fix)), np.zeros(len(fix)))
+    h.setOptionValue("time_limit", max(seconds, 0.01))
+    h.run()
+    found = h.getInfo().primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
+    x = np.asarray(h.getSolution().col_value, dtype=float) if found else None
+    elapsed = time.perf_counter() - t0
+    if x is None:
+        return Start(None, None, None, elapsed,
+                     note=f"standing still is not a schedule ({h.modelStatusToString(h.getModelStatus())})")
+    x = np.where(mx.integer, np.round(x), x)
+    if check_vector(mx, x)[0] > TOL:
+        return Start(None, None, None, elapsed, note="the idle schedule does not satisfy the model")
+    return Start(x, objective(mx, x), None, elapsed, fixed=len(fix))

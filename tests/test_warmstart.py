@@ -113,10 +113,22 @@ def test_the_check_catches_a_broken_bound_row_and_binary():
     assert check_vector(mx, start.x[:-1])[0] == np.inf
 
 
-def test_a_start_that_finds_nothing_leaves_the_search_as_it_was(monkeypatch):
+def test_when_the_relaxation_gives_nothing_the_idle_schedule_is_the_start(monkeypatch):
     p = _fleet(0)
     monkeypatch.setattr(warmstart, "find",
                         lambda *a, **k: warmstart.Start(None, None, None, 0.0, note="nothing"))
+    r = dispatch(p, SolveOptions(mip_gap=0.0))
+    ref = dispatch(p, SolveOptions(mip_gap=0.0, warm_start=False))
+    # standing still: every store keeps its content (soc start = end value here), earns 0
+    assert r.summary["start_objective"] == pytest.approx(0.0, abs=1e-9)
+    assert r.status == "optimal" and r.objective == pytest.approx(ref.objective, abs=1e-6)
+
+
+def test_a_start_that_finds_nothing_leaves_the_search_as_it_was(monkeypatch):
+    p = _fleet(0)
+    nothing = lambda *a, **k: warmstart.Start(None, None, None, 0.0, note="nothing")  # noqa: E731
+    monkeypatch.setattr(warmstart, "find", nothing)
+    monkeypatch.setattr(warmstart, "idle", nothing)
     r = dispatch(p, SolveOptions(mip_gap=0.0))
     ref = dispatch(p, SolveOptions(mip_gap=0.0, warm_start=False))
     assert r.status == "optimal" and r.summary["start_objective"] is None
@@ -259,3 +271,12 @@ def test_a_loss_making_horizon_with_the_start():
     assert loose.objective <= exact.objective + 1e-6
     assert loose.objective >= exact.objective - 0.01 * abs(exact.objective) - 1e-6
     assert loose.best_bound >= exact.objective - 1e-6
+
+
+def test_a_tiny_time_limit_still_returns_the_idle_schedule():
+    # far too little time for the relaxation or the search: standing still is a
+    # schedule (worth 0 here), so the answer is "feasible", never "no schedule"
+    r = dispatch(_fleet(2, n=8, steps=48), SolveOptions(time_limit=0.02))
+    assert r.status in ("feasible", "optimal") and r.has_schedule
+    assert r.objective >= -1e-6
+    assert r.best_bound is None or r.best_bound >= r.objective - 1e-6

@@ -515,7 +515,7 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
         if pick.cert is not None and given is not None:
             held = certify.certify(mx, certify.Claim(given, optimal=False, source="the start"),
                                    options.mip_gap, lp_bound)
-            if held.feasible and _better(mx, held, pick.cert):
+            if held.feasible and _better(mx, held, pick.cert, certify.OBJ_TOL):
                 # more time must never give a worse answer than the one in hand
                 sol.notes.append("the search returned a schedule worth less than its start; "
                                  "the start is returned")
@@ -647,9 +647,11 @@ def _finish(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadline,
     _settle(sol, chosen)
 
 
-def _better(mx, a: certify.Certificate, b: certify.Certificate) -> bool:
+def _better(mx, a: certify.Certificate, b: certify.Certificate, rel: float = 0.0) -> bool:
+    """Whether ``a`` is worth more than ``b`` (by more than ``rel`` of its value)."""
     sense = 1.0 if mx.maximize else -1.0
-    return sense * ((a.objective or 0.0) - (b.objective or 0.0)) > 0
+    va, vb = a.objective or 0.0, b.objective or 0.0
+    return sense * (va - vb) > rel * max(1.0, abs(vb))
 
 
 def _tidy_columns(built) -> np.ndarray:

@@ -18,7 +18,7 @@ from .diagnostics import Diagnostic, PortfolioError, Sink, UnreadableFile
 from .graph import build_graph, check_topology
 from .model import Portfolio
 from .spans import Span
-from .syntax import parse
+from .syntax import lines_of, parse
 
 
 @dataclass
@@ -53,6 +53,7 @@ def _tidy(items: List[Diagnostic]) -> List[Diagnostic]:
 def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] = None) -> LintResult:
     """Run every stage up to the network graph on ``text``; never raises for bad input."""
     sink = Sink()
+    text = lines_of(text)
     base = Path(base_dir) if base_dir is not None else Path(path).parent
     result = LintResult(path)
     was_enabled = gc.isenabled()

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Dict, List, Optional, Tuple
@@ -21,6 +22,7 @@ from lark import Token, Tree
 from . import model as M
 from . import units as U
 from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced,
+                          NameCaseClash, NameTooLong,
                           HorizonMisfit, ImportUnpriced, LimitInconsistent, MissingSetting, OutOfRange,
                           RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
@@ -69,6 +71,7 @@ class Checker:
         self.base_dir = base_dir
         self.sink = sink
         self.names: Dict[str, _Decl] = {}
+        self._folded: Dict[str, str] = {}     # casefolded name -> the name as declared
         self.presets: Dict[str, Tree] = {}
         self.used_presets: set = set()
         self.circles: set = set()   # preset circles already reported
@@ -98,7 +101,19 @@ class Checker:
             self.sink.add(DuplicateName, sp, f"'{name}' is already declared (as {_a(first.kind)})",
                           f"note: first declared at {first.span}")
             return False
+        if len(str(name).encode()) > MAX_NAME_BYTES:
+            self.sink.add(NameTooLong, sp, f"the name '{str(name)[:40]}...' is {len(str(name))} characters "
+                          f"long; an output file is named after it, so at most {MAX_NAME_BYTES}",
+                          "note: choose a shorter name")
+            return False
+        other = self._folded.get(str(name).casefold())
+        if other is not None:
+            self.sink.add(NameCaseClash, sp, f"'{name}' differs from '{other}' only in letter case; their "
+                          f"output files would overwrite each other where file names ignore case",
+                          f"note: '{other}' is declared at {self.names[other].span}; rename one of them")
+            return False
         self.names[str(name)] = _Decl(kind, sp, node)
+        self._folded[str(name).casefold()] = str(name)
         return True
 
     def quantity(self, q: Tree, dims: Tuple[U.Dim, ...], what: str) -> Optional[Tuple[U.Dim, float]]:
@@ -315,13 +330,22 @@ class Checker:
         try:
             start + pd.Timedelta(hours=step_h * steps)
         except (OverflowError, ValueError):
-            self.sink.add(OutOfRange, lsp, "the horizon ends too far in the future (after the year 2262)")
+            self.sink.add(OutOfRange, lsp, f"the horizon ends after {LAST_YEAR}, the last year supported")
             return None
         return M.Horizon(start=start, steps=steps, step_hours=step_h, zone=zone, span=hsp)
 
     def timestamp(self, tok: Token, zone: str) -> Optional[pd.Timestamp]:
         text = str(tok)
         sp = self.span(tok)
+        m = re.match(r"(\d{4}-\d{2}-\d{2})T24:00(?::00(?:\.0+)?)?(.*)$", text)
+        if m:     # ISO 8601's end of day: say which instant it is, in the language's spelling
+            try:
+                nxt = (pd.Timestamp(m.group(1)) + pd.Timedelta(days=1)).strftime("%Y-%m-%d")
+                hint = f"; write the next day's start, '{nxt}T00:00{m.group(2)}'"
+            except (ValueError, OverflowError):
+                hint = ""
+            self.sink.add(BadTimestamp, sp, f"'{text}': 24:00 (the end of a day) is not accepted{hint}")
+            return None
         try:
             ts = pd.Timestamp(text)
         except (ValueError, OverflowError):
@@ -329,6 +353,10 @@ class Checker:
             return None
         if ts is pd.NaT:
             self.sink.add(BadTimestamp, sp, f"'{text}' is not a valid date and time")
+            return None
+        if not FIRST_YEAR <= ts.year <= LAST_YEAR:
+            self.sink.add(BadTimestamp, sp, f"'{text}' is outside the years supported "
+                          f"({FIRST_YEAR} to {LAST_YEAR})")
             return None
         if ts.tzinfo is None:
             try:
@@ -1047,12 +1075,23 @@ def _fmt(x: float) -> str:
 
 
 _ZONES = None
+# the years a timestamp may fall in: pandas' nanosecond timestamps run from
+# 1677-09-21 to 2262-04-11; whole years inside that
+FIRST_YEAR, LAST_YEAR = 1678, 2261
+# an asset's output file is "<name>.parquet": 255 bytes at most on common file systems
+MAX_NAME_BYTES = 255 - len(".parquet")
+
+
+_NOT_ZONES = {"localtime", "posixrules", "Factory"}   # files of the system's zone folder, not IANA names
 
 
 def _zones():
+    """IANA zone names (the system's aliases such as "localtime", which mean
+    something else on every machine, and the posix/ and right/ copies left out)."""
     global _ZONES
     if _ZONES is None:
-        _ZONES = available_timezones() | {"UTC"}
+        _ZONES = {z for z in available_timezones()
+                  if z not in _NOT_ZONES and not z.startswith(("posix/", "right/"))} | {"UTC"}
     return _ZONES
 
 

@@ -291,7 +291,7 @@ def _explain_failure(result, err) -> None:
         print("these limits had to give for a schedule to exist (largest first):", file=err)
         for r in relaxed[:20]:
             first = f", first at {r.first.isoformat()}" if getattr(r, "first", None) is not None else ""
-            print(printable(f"  {r.span}: {r.description} (by {r.amount:.6g} over {r.steps} step(s){first})"),
+            print(printable(f"  {r.span}: {r.description} (by {r.amount:.5g} over {r.steps} step(s){first})"),
                   file=err)
         if len(relaxed) > 20:
             print(f"  ... and {len(relaxed) - 20} more", file=err)

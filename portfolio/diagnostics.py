@@ -161,6 +161,8 @@ DuplicateSetting = _kind("P203", ERROR, "the same setting is given twice in one 
 MissingSetting = _kind("P204", ERROR, "a required setting or statement is missing", "MissingSetting")
 ReservedName = _kind("P206", ERROR, "a name is reserved for an output file (schedule, summary)", "ReservedName")
 WrongNameKind = _kind("P205", ERROR, "a name refers to a declaration of the wrong kind", "WrongNameKind")
+NameTooLong = _kind("P207", ERROR, "a name is too long to name its output file", "NameTooLong")
+NameCaseClash = _kind("P208", ERROR, "two names differ only in letter case (their output files would collide)", "NameCaseClash")
 
 # --- P3xx: units and values ---------------------------------------------------
 UnknownUnit = _kind("P301", ERROR, "a unit is not one the language knows", "UnknownUnit")

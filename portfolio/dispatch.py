@@ -64,7 +64,7 @@ class Relaxation:
                 "first": self.first.isoformat() if self.first is not None else None}
 
     def __str__(self) -> str:
-        return f"{self.span}: {self.description} (gives {self.amount:g} over {self.steps} step(s))"
+        return f"{self.span}: {self.description} (gives {self.amount:.5g} over {self.steps} step(s))"
 
 
 @dataclass

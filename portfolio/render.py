@@ -18,7 +18,8 @@ from .diagnostics import Diagnostic
 def _split(text: str, path: str) -> List[str]:
     """Lines as the stage that made the span counts them."""
     if path.endswith(".folio") or "." not in Path(path).name:
-        return [ln.rstrip("\r") for ln in text.split("\n")]   # the parser: only '\n' ends a line
+        from .syntax import lines_of
+        return lines_of(text).split("\n")                    # as the parser counts them
     return [ln.rstrip("\r\n") for ln in io.StringIO(text, newline="")]  # CSV: \r, \n or \r\n
 
 

@@ -228,6 +228,15 @@ def _number_before_keyword(text: str, tok: Token, prev: Optional[Token]):
     return text[pos:m.end(1)], pos, line, col
 
 
+def lines_of(text: str) -> str:
+    """``text`` with every line ending as ``\n``: Windows (CR LF) and old Mac
+    (CR alone) files read like any other.  The parser's line numbers count
+    these lines; the renderer splits the file the same way."""
+    if "\r" not in text:
+        return text
+    return text.replace("\r\n", "\n").replace("\r", "\n")
+
+
 def parse(text: str, path: str, sink: Sink) -> Optional[Tree]:
     """Parse ``text``; on failure add one diagnostic and return None."""
     _current.text = text

@@ -84,3 +84,21 @@ def test_escape_sequences_from_a_csv_header_never_reach_the_terminal(tmp_path):
     assert code == 1 and "error[P4" in shown        # the column is not found, and says which it saw
     assert "\x1b" not in shown and "\x07" not in shown
     assert "\\x1b" in shown                                   # shown, visibly escaped
+
+
+def test_old_mac_and_windows_line_endings_read_like_any_other(tmp_path):
+    import io
+
+    from portfolio.cli import main
+
+    lines = ['portfolio cr', '# a comment', 'horizon start 2027-01-01T00:00 length 3 h step 1 h',
+             'site s at g { storage b { energy 4 MW } }']
+    for ending in ("\r", "\r\n"):
+        src = tmp_path / f"e{len(ending)}.folio"
+        src.write_bytes(ending.join(lines).encode() + ending.encode())
+        out = io.StringIO()
+        assert main(["lint", str(src)], out=out, err=io.StringIO()) == 1
+        shown = out.getvalue()
+        # the faults are on line 4, and its text is what is shown under them
+        assert f"{src}:4:11: error[P201]" in shown and f"{src}:4:34: error[P302]" in shown
+        assert "    4 | site s at g { storage b { energy 4 MW } }" in shown

@@ -1,8 +1,8 @@
 """Benchmark: our formulation and warm start vs a plain one, modes and minimum run (not collected by pytest).
 
 20 storages x 96 quarter-hours, exclusive modes, 1 h minimum run, minimum
-output when running.  Time to a 0.01 % gap (and to 1 % and 0.1 %, from the
-progress callback) for what `portfolio dispatch` does ("ours": tight
+output when running.  Time to a certified 0.01 % gap (the dispatch's status
+"optimal" after its checks; 1 % and 0.1 % from HiGHS's progress reports) for what `portfolio dispatch` does ("ours": tight
 formulation and warm start) and the naive baseline ("plain": two binaries,
 big-M, no start), several seeds, the median ratio, and a check that all
 reach the same optimum.  ``--configs`` adds "tight-nostart" and
@@ -88,9 +88,16 @@ def run(seeds, time_limit, rules, label, n=20, configs=("ours", "plain")):
 
             r = dispatch(p, SolveOptions(variant=variant, mip_gap=1e-4, time_limit=time_limit,
                                          warm_start=warm), progress=progress)
+            # the 0.01 % figure rests on the certified result only (docs/model.md,
+            # "Certified results"): the time to the end of the checks and the
+            # polish when the status is optimal, else the limit; 1 % and 0.1 %
+            # are HiGHS's own progress reports, for information
+            total = r.solve_seconds + r.summary.get("polish_seconds", 0.0)
+            reached.pop(1e-4, None)
             if r.status == "optimal":
-                for th in THRESHOLDS:   # the final call carries the total time
-                    reached.setdefault(th, r.solve_seconds)
+                reached[1e-4] = total
+                for th in THRESHOLDS:
+                    reached.setdefault(th, total)
             res[config] = r
             times[config].append(reached.get(1e-4, time_limit))
             cells = [f"{reached[th]:7.1f}" if th in reached else "      -" for th in THRESHOLDS]

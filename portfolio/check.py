@@ -22,7 +22,7 @@ from lark import Token, Tree
 from . import model as M
 from . import units as U
 from .diagnostics import (BadTimestamp, DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced,
-                          NameCaseClash, NameTooLong,
+                          Implausible, NameCaseClash, NameTooLong,
                           HorizonMisfit, ImportUnpriced, LimitInconsistent, MissingSetting, OutOfRange,
                           RouteDuplicate, RouteKindMismatch, RouteToSelf, ReservedName, RuleTooLong, Sink, SocInconsistent,
                           SpillNotAllowed, UnknownName, UnknownUnit, UnknownZone, UnusedPreset,
@@ -143,6 +143,12 @@ class Checker:
             return None
         if not math.isfinite(value) or not math.isfinite(value * f):
             self.sink.add(OutOfRange, sp, f"{what} must be a finite number")
+            return None
+        limit, shown = U.PLAUSIBLE.get(dim, (None, ""))
+        if limit is not None and abs(value * f) > limit:
+            self.sink.add(Implausible, sp, f"{what} is {number} {U.written(unit, per)}, beyond any plausible "
+                          f"plant or market (at most {limit:g} {shown}); check the number and its unit",
+                          "note: values this large are typing errors, and they would wreck the solver's arithmetic")
             return None
         return dim, float(f"{value * f:.12g}")  # 95 % -> 0.95, not 0.9500000000000001
 
@@ -667,6 +673,9 @@ class Checker:
             f = float(opts["factor"].children[0].children[0])
             if not (f > 0 and math.isfinite(f)):
                 self.sink.add(OutOfRange, self.span(opts["factor"]), f"the factor must be above zero, found {_fmt(f)}")
+            elif f > U.FACTOR_PLAUSIBLE:
+                self.sink.add(Implausible, self.span(opts["factor"]), f"the factor {_fmt(f)} is beyond any "
+                              f"plausible conversion (at most {U.FACTOR_PLAUSIBLE:g})")
             vals["factor"] = f
             spans["factor"] = self.span(opts["factor"])
         if "route_max" in opts:

@@ -177,6 +177,7 @@ UnusedPreset = _kind("P309", WARNING, "a preset is declared but no storage takes
 RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the horizon, or it or a state carried in from before the horizon is not a whole number of steps", "RuleTooLong")
 ImportUnpriced = _kind("P311", ERROR, "a connection can import but has no 'buy at' price (imports would be free)", "ImportUnpriced")
 ExportUnpriced = _kind("P312", WARNING, "a connection can export but has no 'sell at' price (exports earn nothing)", "ExportUnpriced")
+Implausible = _kind("P313", ERROR, "a value is beyond any plausible plant or market (1 TW, 1 PWh, 1e8 per MWh, ...)", "Implausible")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")
@@ -189,6 +190,7 @@ SeriesCoverage = _kind("P407", ERROR, "a series does not cover the whole horizon
 SeriesLength = _kind("P408", ERROR, "an inline list does not have one value per step", "SeriesLength")
 SeriesEmpty = _kind("P409", ERROR, "a series file has no data rows", "SeriesEmpty")
 SeriesNegative = _kind("P410", ERROR, "a power profile has negative values", "SeriesNegative")
+SeriesImplausible = _kind("P411", ERROR, "a series has values beyond any plausible plant or market", "SeriesImplausible")
 
 # --- P5xx: topology -----------------------------------------------------------
 NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection or demand", "NoPathToGrid")

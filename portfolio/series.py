@@ -42,6 +42,7 @@ import numpy as np
 import pandas as pd
 
 from . import files
+from . import units as U
 from .diagnostics import (
     SeriesBadTime,
     SeriesBadValue,
@@ -51,6 +52,7 @@ from .diagnostics import (
     SeriesEmpty,
     SeriesFileMissing,
     SeriesLength,
+    SeriesImplausible,
     SeriesNegative,
     SeriesUnsorted,
     Sink,
@@ -256,6 +258,8 @@ def _load_inline(spec: SeriesSpec, grid: _Grid, sink: Sink) -> Optional[Series]:
     if not np.isfinite(values).all():
         sink.add(SeriesBadValue, where, f"series '{spec.name}': the list's values are too large")
         return None
+    if _implausible_in_values(spec, values, "list entry", where, sink):
+        return None
     if spec.quantity == "power":
         neg = np.flatnonzero(values < 0)
         if neg.size:
@@ -278,6 +282,8 @@ def _load_constant(spec: SeriesSpec, grid: _Grid, sink: Sink) -> Optional[Series
                  f"series '{spec.name}': {spec.constant!r} is not a finite number")
         return None
     value *= spec.factor
+    if _implausible_in_values(spec, np.array([value]), "the constant, value", spec.span, sink):
+        return None
     if spec.quantity == "power" and value < 0:
         sink.add(SeriesNegative, spec.span,
                  f"power series '{spec.name}' is negative ({spec.constant!r})",
@@ -489,6 +495,19 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
         users = [s for _, s, _, v in wanted if v == v_idx]
         numbers[v_idx] = _parse_numbers(table, v_idx, users, sink)
 
+    # beyond plausibility: once per (column, quantity, factor)
+    implausible: Dict[Tuple[int, str, float], bool] = {}
+    for _, spec, _, v_idx in wanted:
+        raw = numbers[v_idx]
+        key = (v_idx, spec.quantity, spec.factor)
+        if raw is None or key in implausible:
+            continue
+        users = [s for _, s, _, v in wanted
+                 if v == v_idx and (s.quantity, s.factor) == (spec.quantity, spec.factor)]
+        with np.errstate(all="ignore"):
+            scaled = raw * spec.factor
+        implausible[key] = _report_implausible(table, v_idx, scaled, spec.quantity, users, sink)
+
     # negative power: once per (column, sign of factor)
     negative: Dict[Tuple[int, bool], bool] = {}
     for _, spec, _, v_idx in wanted:
@@ -509,6 +528,8 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
         if t is None or raw is None:
             continue
         if spec.quantity == "power" and negative.get((v_idx, spec.factor >= 0)):
+            continue
+        if implausible.get((v_idx, spec.quantity, spec.factor)):
             continue
         if not _covers(spec, table, t, t_idx, grid, sink):
             continue
@@ -714,6 +735,41 @@ def _report_dst(table: _Table, col: int, cells, rows: np.ndarray, local: np.ndar
                 f"or {late[k].isoformat()})")
 
     _report_cells(SeriesDstGap, table, col, rows, message, users, sink, extra=[advice])
+
+
+def _plausible_limit(quantity: str) -> Tuple[float, str]:
+    """The largest magnitude a series of this quantity may hold (units.PLAUSIBLE)."""
+    return U.PLAUSIBLE[U.POWER if quantity == "power" else U.PRICE]
+
+
+def _implausible_in_values(spec: SeriesSpec, values: np.ndarray, what: str, where: Span,
+                           sink: Sink) -> bool:
+    """P411 for a list or constant holding a value beyond plausibility."""
+    limit, shown = _plausible_limit(spec.quantity)
+    bad = np.flatnonzero(np.abs(values) > limit)
+    if not bad.size:
+        return False
+    sink.add(SeriesImplausible, where,
+             f"series '{spec.name}': {what} {bad[0] + 1} is {values[bad[0]]:g} {shown}, beyond any "
+             f"plausible plant or market (at most {limit:g} {shown}); check the number and its unit")
+    return True
+
+
+def _report_implausible(table: _Table, col: int, values: np.ndarray, quantity: str,
+                        users, sink: Sink) -> bool:
+    limit, shown = _plausible_limit(quantity)
+    bad = np.flatnonzero(np.abs(values) > limit)
+    if not bad.size:
+        return False
+    name = table.header[col]
+    cells = table.cells(col)
+
+    def message(row: int) -> str:
+        return (f"value {cells[row]} in column '{name}' on line {table.lines[row]} is beyond any "
+                f"plausible plant or market (at most {limit:g} {shown})")
+
+    _report_cells(SeriesImplausible, table, col, bad, message, users, sink)
+    return True
 
 
 def _report_negative(table: _Table, col: int, values: np.ndarray, users, sink: Sink) -> bool:

@@ -43,6 +43,15 @@ RAMP = Dim("ramp", "MW/h", "a power per time", "10 MW per min")
 
 ALL = (POWER, ENERGY, TIME, FRACTION, PRICE, RATE, RAMP)
 
+# The largest magnitude accepted per dimension, in canonical units: far beyond
+# any plant or market (1 TW, 1 PWh, 1e8 money per MWh, which leaves room for
+# currencies with small units), and small enough that the solver's arithmetic
+# stays sound.  A value beyond is a typing error (lint P313, P411 for a
+# series).  Durations, fractions and rates have their own range checks.
+PLAUSIBLE = {POWER: (1e6, "MW"), ENERGY: (1e9, "MWh"), PRICE: (1e8, "per MWh"),
+             RAMP: (1e7, "MW per h")}
+FACTOR_PLAUSIBLE = 1e3     # a route's factor (a plain number)
+
 
 class UnitProblem(Exception):
     """``kind`` is 'unknown' (the unit is not in the vocabulary) or 'dimension'."""

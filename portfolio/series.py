@@ -755,37 +755,32 @@ def _implausible_in_values(spec: SeriesSpec, values: np.ndarray, what: str, wher
     return True
 
 
+def _report_rows(kind, table: _Table, col: int, bad: np.ndarray, text, users, sink: Sink,
+                 extra=()) -> bool:
+    """Report the rows ``bad`` of column ``col``; ``text(cell, column, line)`` words each."""
+    if not bad.size:
+        return False
+    name, cells = table.header[col], table.cells(col)
+    _report_cells(kind, table, col, bad, lambda row: text(cells[row], name, table.lines[row]),
+                  users, sink, extra=extra)
+    return True
+
+
 def _report_implausible(table: _Table, col: int, values: np.ndarray, quantity: str,
                         users, sink: Sink) -> bool:
     limit, shown = _plausible_limit(quantity)
-    bad = np.flatnonzero(np.abs(values) > limit)
-    if not bad.size:
-        return False
-    name = table.header[col]
-    cells = table.cells(col)
-
-    def message(row: int) -> str:
-        return (f"value {cells[row]} in column '{name}' on line {table.lines[row]} is beyond any "
-                f"plausible plant or market (at most {limit:g} {shown})")
-
-    _report_cells(SeriesImplausible, table, col, bad, message, users, sink)
-    return True
+    return _report_rows(
+        SeriesImplausible, table, col, np.flatnonzero(np.abs(values) > limit),
+        lambda cell, name, line: (f"value {cell} in column '{name}' on line {line} is beyond any "
+                                  f"plausible plant or market (at most {limit:g} {shown})"),
+        users, sink)
 
 
 def _report_negative(table: _Table, col: int, values: np.ndarray, users, sink: Sink) -> bool:
-    bad = np.flatnonzero(values < 0)
-    if not bad.size:
-        return False
-    name = table.header[col]
-    cells = table.cells(col)
-
-    def message(row: int) -> str:
-        return (f"negative value {cells[row]} in power column '{name}' "
-                f"on line {table.lines[row]}")
-
-    _report_cells(SeriesNegative, table, col, bad, message, users, sink,
-                  extra=_negative_notes(0, "", []))
-    return True
+    return _report_rows(
+        SeriesNegative, table, col, np.flatnonzero(values < 0),
+        lambda cell, name, line: f"negative value {cell} in power column '{name}' on line {line}",
+        users, sink, extra=_negative_notes(0, "", []))
 
 
 def _covers(spec: SeriesSpec, table: _Table, t: _Times, col: int, grid: _Grid,

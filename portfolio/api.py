@@ -50,8 +50,12 @@ def _tidy(items: List[Diagnostic]) -> List[Diagnostic]:
     return sorted(out, key=lambda d: (d.span.path, d.span.line, d.span.col))
 
 
-def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] = None) -> LintResult:
-    """Run every stage up to the network graph on ``text``; never raises for bad input."""
+def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] = None,
+              confine: bool = False) -> LintResult:
+    """Run every stage up to the network graph on ``text``; never raises for bad input.
+
+    ``confine``: read no series file outside ``base_dir`` (lint P412).
+    """
     sink = Sink()
     text = lines_of(text)
     base = Path(base_dir) if base_dir is not None else Path(path).parent
@@ -59,7 +63,7 @@ def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] 
     was_enabled = gc.isenabled()
     gc.disable()   # the tree and model hold no reference cycles worth collecting mid-run
     try:
-        _stages(text, path, base, sink, result)
+        _stages(text, path, base, sink, result, confine)
     finally:
         if was_enabled:
             gc.enable()
@@ -67,10 +71,11 @@ def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] 
     return result
 
 
-def _stages(text: str, path: str, base: Path, sink: Sink, result: LintResult) -> None:
+def _stages(text: str, path: str, base: Path, sink: Sink, result: LintResult,
+            confine: bool = False) -> None:
     tree = parse(text, path, sink)
     if tree is not None:
-        p = check(tree, path, base, sink)
+        p = check(tree, path, base, sink, confine=confine)
         if p is not None:
             g = build_graph(p)
             check_topology(p, g, sink)
@@ -103,19 +108,20 @@ def read_source(path: Union[str, Path]):
     return None, UnreadableFile(Span.whole_file(str(path)), f"cannot read '{path}': {why}")
 
 
-def lint_file(path: Union[str, Path]) -> LintResult:
+def lint_file(path: Union[str, Path], confine: bool = False) -> LintResult:
+    """Lint a portfolio file; ``confine``: read no series file outside its folder."""
     text, problem = read_source(path)
     if problem is not None:
         return LintResult(str(path), [problem], unreadable=True)
     if "\x00" in text:
         return LintResult(str(path), [UnreadableFile(Span.whole_file(str(path)),
                                                      f"cannot read '{path}': it holds binary data")], unreadable=True)
-    return lint_text(text, str(path), Path(path).parent)
+    return lint_text(text, str(path), Path(path).parent, confine=confine)
 
 
-def load(path: Union[str, Path]) -> Portfolio:
+def load(path: Union[str, Path], confine: bool = False) -> Portfolio:
     """Read and check a portfolio file; raise :class:`PortfolioError` if it has errors."""
-    result = lint_file(path)
+    result = lint_file(path, confine=confine)
     if not result.ok:
         raise PortfolioError(result.diagnostics)
     return replace(result.portfolio, warnings=tuple(result.diagnostics))

@@ -31,7 +31,9 @@ from .check_state import check_carried_state, steps_rounded_up
 from .series import SeriesSpec, load_series
 from .spans import Span
 
-MAX_STEPS = 1_000_000
+# a leap year of 5-minute steps; a longer horizon is a study for the windowed
+# dispatch, not one model (1,000,000 steps of one store took 7.4 GB)
+MAX_STEPS = 366 * 288
 RESERVED_NAMES = {"schedule", "summary"}   # output files schedule.csv and summary.json
 MIN_STEP_H = 1 / 3600  # one second
 
@@ -66,10 +68,11 @@ class _Decl:
 
 
 class Checker:
-    def __init__(self, path: str, base_dir: Path, sink: Sink):
+    def __init__(self, path: str, base_dir: Path, sink: Sink, confine: bool = False):
         self.path = path
         self.base_dir = base_dir
         self.sink = sink
+        self.confine = confine      # read no series file outside base_dir
         self.names: Dict[str, _Decl] = {}
         self._folded: Dict[str, str] = {}     # casefolded name -> the name as declared
         self.presets: Dict[str, Tree] = {}
@@ -227,7 +230,8 @@ class Checker:
 
         series = {}
         if self.horizon is not None:
-            series = load_series(self.specs, self.horizon, self.base_dir, self.sink)
+            series = load_series(self.specs, self.horizon, self.base_dir, self.sink,
+                                 confine=self.confine)
         if self.sink.has_errors or self.horizon is None:
             return None
         if name is None:
@@ -1104,5 +1108,6 @@ def _zones():
     return _ZONES
 
 
-def check(tree: Tree, path: str, base_dir: Path, sink: Sink) -> Optional[M.Portfolio]:
-    return Checker(path, base_dir, sink).run(tree)
+def check(tree: Tree, path: str, base_dir: Path, sink: Sink,
+          confine: bool = False) -> Optional[M.Portfolio]:
+    return Checker(path, base_dir, sink, confine).run(tree)

@@ -24,6 +24,8 @@ EPS = 1e-9
 def steps_rounded_up(hours: float, step_h: float) -> Optional[int]:
     """The whole steps ``hours`` rounds up to, or None when it is whole already."""
     n = hours / step_h
+    if not math.isfinite(n) or n > 1e15:          # far past any horizon: said elsewhere
+        return None
     if abs(n - round(n)) > max(1e-6, 1e-9 * n):   # relative: 1 min is 0.0166666666667 h
         return math.ceil(n - 1e-9)
     return None

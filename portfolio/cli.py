@@ -50,6 +50,10 @@ MAX_THREADS = 256     # as portfolio.solve.MAX_THREADS (not imported here: start
 _threads = _checked(int, lambda v: 1 <= v <= MAX_THREADS, f"from 1 to {MAX_THREADS}")
 
 
+_CONFINE_HELP = ("read no file outside the portfolio file's folder (no absolute paths, '..' or "
+                 "links leading out): for CI and services")
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = _Parser(prog="portfolio", description="Dispatch several linked energy-storage assets from a .folio file.")
     ap.add_argument("--version", action="version", version=f"portfolio {__version__}")
@@ -60,6 +64,7 @@ def build_parser() -> argparse.ArgumentParser:
     lint.add_argument("files", nargs="+", metavar="FILE")
     lint.add_argument("--format", choices=("text", "json"), default="text")
     lint.add_argument("--quiet", "-q", action="store_true", help="print only the problems, no summary")
+    lint.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
 
     codes = sub.add_parser("codes", help="list every diagnostic code")
     codes.add_argument("--format", choices=("text", "markdown"), default="text")
@@ -74,10 +79,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="skip the first schedule from the LP relaxation before the search")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
+    d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
 
     gr = sub.add_parser("graph", help="draw the portfolio's network (SVG, PNG or DOT)")
     gr.add_argument("file", metavar="FILE")
     gr.add_argument("--out", required=True, metavar="PATH", help="picture to write: .svg, .png or .dot")
+    gr.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
     return ap
 
 
@@ -109,7 +116,7 @@ def cmd_lint(args, out, err) -> int:
     report = Report()
     results = []
     for f in args.files:
-        r = lint_file(f)
+        r = lint_file(f, confine=args.confine)
         results.append(r)
         if r.unreadable:
             report.add_unreadable()
@@ -142,11 +149,11 @@ def codes_markdown() -> str:
     return "\n".join(lines) + "\n"
 
 
-def _lint_first(path, err, consequence: str):
+def _lint_first(path, err, consequence: str, confine: bool = False):
     """Lint ``path`` and print its findings; (result, None) to go on, or (result, exit code)."""
     from .api import lint_file
 
-    r = lint_file(path)
+    r = lint_file(path, confine=confine)
     for d in r.diagnostics:
         print(format_text(d), file=err)
     if r.unreadable:
@@ -164,7 +171,7 @@ def cmd_graph(args, out, err) -> int:
     if target.suffix.lower() not in (".svg", ".png", ".dot", ".gv"):
         print(printable(f"portfolio: error: cannot draw to '{target}': use a .svg, .png or .dot file name"), file=err)
         return EXIT_USAGE
-    r, code = _lint_first(args.file, err, "nothing was drawn")
+    r, code = _lint_first(args.file, err, "nothing was drawn", args.confine)
     if code is not None:
         return code
     if target.resolve() == Path(args.file).resolve():
@@ -188,7 +195,7 @@ def cmd_dispatch(args, out, err) -> int:
     from .dispatch import dispatch, exit_code
     from .solve import SolveOptions
 
-    r, code = _lint_first(args.file, err, "nothing was dispatched or written")
+    r, code = _lint_first(args.file, err, "nothing was dispatched or written", args.confine)
     if code is not None:
         return code
     out_dir = Path(args.out)
@@ -282,10 +289,14 @@ def _explain_failure(result, err) -> None:
     messages = {
         "infeasible": "the portfolio's limits cannot all hold at once; no schedule",
         "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); no schedule",
-        "no_schedule": "no schedule was found within the limits (with a --time-limit, try a longer one); no schedule",
+        "no_schedule": _no_schedule_reason(result.summary),
         "error": "the solver failed; no schedule",
     }
     print(printable(f"portfolio: {messages.get(result.status, result.status)}"), file=err)
+    said = result.summary.get("message") or ""
+    solver = result.summary.get("solver_status") or ""
+    if result.status == "error" and (said or solver):
+        print(printable(f"  what the solver said: {said or solver}"), file=err)
     relaxed = getattr(result, "relaxed", None) or []
     if relaxed:
         print("these limits had to give for a schedule to exist (largest first):", file=err)
@@ -295,6 +306,20 @@ def _explain_failure(result, err) -> None:
                   file=err)
         if len(relaxed) > 20:
             print(f"  ... and {len(relaxed) - 20} more", file=err)
+
+
+def _no_schedule_reason(summary: dict) -> str:
+    """Why no schedule came back, in the words of what actually stopped it."""
+    solver = (summary.get("solver_status") or "").lower()
+    limit = summary.get("time_limit")
+    if "memory" in solver:
+        return "the solver ran out of memory before it found a schedule; no schedule"
+    if "time limit" in solver or limit is not None:
+        return (f"no schedule was found within the time limit ({limit:g} s); a longer --time-limit "
+                f"may find one; no schedule" if limit is not None else
+                "no schedule was found within the solver's time limit; no schedule")
+    shown = summary.get("solver_status") or "it stopped without a reason"
+    return f"the solver stopped before it found a schedule ({shown}); no schedule"
 
 
 def _print_assets(result, out) -> None:

@@ -191,6 +191,7 @@ SeriesLength = _kind("P408", ERROR, "an inline list does not have one value per 
 SeriesEmpty = _kind("P409", ERROR, "a series file has no data rows", "SeriesEmpty")
 SeriesNegative = _kind("P410", ERROR, "a power profile has negative values", "SeriesNegative")
 SeriesImplausible = _kind("P411", ERROR, "a series has values beyond any plausible plant or market", "SeriesImplausible")
+SeriesOutsideFolder = _kind("P412", ERROR, "confined mode: a series file lies outside the portfolio's folder", "SeriesOutsideFolder")
 
 # --- P5xx: topology -----------------------------------------------------------
 NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection or demand", "NoPathToGrid")

@@ -123,6 +123,19 @@ def _explain(p: Portfolio, options: SolveOptions, index, deadline: Deadline) -> 
     return out, float(s.sum())
 
 
+def _infeasible_was_false(built: Built, options: SolveOptions, deadline: Deadline, notes: list):
+    """Solve again with presolve off after a false "infeasible": (solution, status, message)."""
+    again = solve(built, replace(options, presolve=False), deadline=deadline)
+    if again.solved:
+        notes.append("HiGHS said infeasible, but the portfolio holds with every limit kept (its "
+                     "explanation needed no slack): solved again with presolve off")
+        notes.extend(again.notes)
+        return again, again.status, again.message
+    return again, ERROR, ("HiGHS said infeasible, but the portfolio holds with every limit kept "
+                          "(its explanation needed no slack): numerical trouble in the solver, and "
+                          f"solving again with presolve off gave {again.status}")
+
+
 def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
              progress: Optional[Progress] = None) -> DispatchResult:
     """Schedule ``p``; see the module docstring."""
@@ -146,8 +159,12 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
         if found is None:
             status = INFEASIBLE if status == INFEASIBLE else ERROR
             message = message or "the solver could not tell infeasible from unbounded"
+        elif not found and status == INFEASIBLE_OR_UNBOUNDED:
+            status = UNBOUNDED
         elif not found:
-            status = UNBOUNDED if status == INFEASIBLE_OR_UNBOUNDED else INFEASIBLE
+            # HiGHS said infeasible, yet every limit holds with no slack at all: the
+            # relaxed solve proves a schedule exists, so that claim was false
+            sol, status, message = _infeasible_was_false(built, options, deadline, notes)
         else:
             status = INFEASIBLE
             relaxed = found
@@ -188,6 +205,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
         "portfolio": p.name,
         "variant": options.variant,
         "warm_start": options.warm_start and options.interface == "matrix",
+        "solver_status": sol.highs_status,
         "caution": CAUTION,
     }
     summary.update(parts)

@@ -69,3 +69,27 @@ def read_bytes(path: Union[str, Path]) -> bytes:
 def _too_big(size: int, limit: int) -> str:
     return (f"it is larger ({size / 2**20:.3g} MiB) than the {limit / 2**20:.3g} MiB read at "
             f"most (set {ENV} to read larger files)")
+
+
+def outside(base_dir: Union[str, Path], written: str) -> Union[str, None]:
+    """Why a path as written in a portfolio leaves its folder, or None.
+
+    The confined mode (``--confine``; docs/series.md) reads only files inside
+    the portfolio file's folder: no absolute path, no ``~``, no ``..``, and no
+    symbolic link that leads out of the folder.
+    """
+    p = Path(written)
+    if written.startswith("~"):
+        return "it starts with '~' (a home folder)"
+    if p.is_absolute():
+        return "it is an absolute path"
+    if ".." in p.parts:
+        return "it climbs out with '..'"
+    base = Path(base_dir).resolve()
+    try:
+        real = (base / p).resolve()
+    except (OSError, RuntimeError):
+        return "it cannot be resolved"
+    if real != base and base not in real.parents:
+        return "a symbolic link on the way leads out of the portfolio's folder"
+    return None

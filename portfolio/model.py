@@ -91,6 +91,7 @@ class Series(Decl):
     values: np.ndarray = field(default_factory=lambda: np.zeros(0))
     quantity: str = "power"      # "power" (MW) or "price" (money per MWh)
     origin: str = ""             # human description, e.g. 'spot.csv column "price"'
+    source: Optional[str] = None  # the file it was read from (resolved), if any
 
 
 @dataclass(frozen=True)
@@ -260,6 +261,12 @@ class Portfolio:
         """The network graph (:func:`portfolio.graph.build_graph`)."""
         from .graph import build_graph
         return build_graph(self)
+
+    @property
+    def inputs(self) -> tuple:
+        """Every file this portfolio was read from: its own file and its series files."""
+        own = (self.path,) if self.path else ()
+        return own + tuple(dict.fromkeys(s.source for s in self.series.values() if s.source))
 
     def storages_at(self, site: str):
         return [s for s in self.storages.values() if s.site == site]

@@ -54,6 +54,7 @@ from .diagnostics import (
     SeriesLength,
     SeriesImplausible,
     SeriesNegative,
+    SeriesOutsideFolder,
     SeriesUnsorted,
     Sink,
 )
@@ -100,21 +101,28 @@ class SeriesSpec:
 # ---------------------------------------------------------------------------
 
 def load_series(specs: Sequence[SeriesSpec], horizon: Horizon, base_dir: Path,
-                sink: Sink) -> Dict[str, Series]:
+                sink: Sink, confine: bool = False) -> Dict[str, Series]:
     """Load every spec onto ``horizon``; faults go to ``sink``.
 
     Returns ``{name: Series}`` for the specs that loaded without error, in
     the order of ``specs``.  Each CSV file is read once however many specs
-    name it.
+    name it.  ``confine``: read no file outside ``base_dir`` (P412).
     """
     base_dir = Path(base_dir)
     grid = _Grid.of(horizon)
     loaded: Dict[int, Series] = {}
-    files: Dict[Path, List[Tuple[int, SeriesSpec]]] = {}
+    by_file: Dict[Path, List[Tuple[int, SeriesSpec]]] = {}
     for i, spec in enumerate(specs):
         _check_contract(spec)
         if spec.path is not None:
-            files.setdefault(_resolve(base_dir, spec.path), []).append((i, spec))
+            why = files.outside(base_dir, spec.path) if confine else None
+            if why is not None:
+                sink.add(SeriesOutsideFolder, spec.path_span or spec.span,
+                         f"series '{spec.name}': '{spec.path}' is not read in confined mode: {why}",
+                         "note: put the file in the portfolio's folder (or below it) and name it "
+                         "relative to that folder")
+                continue
+            by_file.setdefault(_resolve(base_dir, spec.path), []).append((i, spec))
         elif spec.values is not None:
             s = _load_inline(spec, grid, sink)
             if s is not None:
@@ -123,7 +131,7 @@ def load_series(specs: Sequence[SeriesSpec], horizon: Horizon, base_dir: Path,
             s = _load_constant(spec, grid, sink)
             if s is not None:
                 loaded[i] = s
-    for resolved, group in files.items():
+    for resolved, group in by_file.items():
         shown = _display_path(base_dir, group[0][1].path)
         loaded.update(_load_file(resolved, shown, group, grid, sink))
     return {specs[i].name: loaded[i] for i in sorted(loaded)}
@@ -162,12 +170,13 @@ def _spans_of(spec: SeriesSpec) -> MappingProxyType:
     return MappingProxyType({k: v for k, v in fields.items() if v is not None})
 
 
-def _make_series(spec: SeriesSpec, values: np.ndarray, origin: str) -> Series:
+def _make_series(spec: SeriesSpec, values: np.ndarray, origin: str,
+                 source: Optional[Path] = None) -> Series:
     if spec.factor != 1.0:
         origin += f" scaled by {spec.factor:g}"
     return Series(name=spec.name, span=spec.span, spans=_spans_of(spec),
                   values=np.asarray(values, dtype=float), quantity=spec.quantity,
-                  origin=origin)
+                  origin=origin, source=str(source) if source is not None else None)
 
 
 # ---------------------------------------------------------------------------
@@ -541,7 +550,7 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
                      "are too large to average")
             continue
         origin = f'{shown} column "{table.header[v_idx]}"'
-        out[i] = _make_series(spec, values, origin)
+        out[i] = _make_series(spec, values, origin, source=resolved)
     return out
 
 

@@ -111,6 +111,8 @@ class SolveOptions:
                 (Pyomo's ``highs`` interface).
     explain_infeasible: re-solve with slacks when infeasible (fills
                 ``DispatchResult.relaxed``).
+    presolve:   HiGHS's presolve (off only to work around a solver fault: a
+                dispatch turns it off by itself when an "infeasible" proves false).
     warm_start: before the search of a MILP, find a first schedule from the
                 LP relaxation (:mod:`portfolio.warmstart`) and give it to
                 HiGHS (matrix interface only; its time counts against
@@ -124,6 +126,7 @@ class SolveOptions:
     interface: str = "matrix"
     explain_infeasible: bool = True
     warm_start: bool = True
+    presolve: bool = True
 
     def __post_init__(self):
         if self.time_limit is not None and not (self.time_limit > 0):
@@ -261,6 +264,8 @@ def new_highs(options: SolveOptions, seconds: Optional[float] = None) -> highspy
     h = _Highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("mip_rel_gap", float(options.mip_gap))
+    if not options.presolve:
+        h.setOptionValue("presolve", "off")
     limit = seconds if seconds is not None else options.time_limit
     if limit is not None:
         h.setOptionValue("time_limit", max(float(limit), 0.01))
@@ -501,6 +506,7 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
             sol.start_objective = idle.objective
     given = start.x if start is not None else None
     lp_bound = start.lp_bound if start is not None else None
+    sol.solve_seconds = sol.start_seconds          # the search, if any, adds its time
 
     pick = _Pick()
     if given is not None:

@@ -102,16 +102,19 @@ def _check_names(result) -> None:
 
 def _check_target(out: Path, result) -> None:
     p = getattr(result, "portfolio", None)
-    src = getattr(p, "path", "") if p is not None else ""
-    if src:
+    inputs = p.inputs if p is not None and hasattr(p, "inputs") else ()
+    try:
+        out_r = out.resolve()
+    except OSError:
+        out_r = out
+    for src in inputs:
         src_dir = Path(src).absolute().resolve().parent
-        try:
-            out_r = out.resolve()
-        except OSError:
-            out_r = out
         if src_dir == out_r or out_r in src_dir.parents:
+            what = ("the portfolio's own files" if src == getattr(p, "path", None)
+                    else f"a file the portfolio reads ({src})")
             raise OutputFolderError(
-                f"output folder {out} contains the portfolio's own files; choose another folder")
+                f"output folder {out} contains {what}; the folder is replaced as a whole, so "
+                f"choose another folder")
     try:
         cwd = Path.cwd().resolve()
         out_r = out.resolve()

@@ -349,3 +349,24 @@ def test_an_expired_limit_skips_the_later_phases(monkeypatch):
     assert r.status in ("infeasible", "no_schedule")
     assert r.summary["start_seconds"] == 0.0
     assert any("no time left" in n for n in r.summary["notes"])
+
+
+def test_a_false_infeasible_is_solved_again_with_presolve_off(monkeypatch):
+    # HiGHS says infeasible; the explanation then needs no slack at all, which
+    # proves a schedule exists: the dispatch must not report "infeasible"
+    import portfolio.dispatch as D
+
+    real = D.solve
+    calls = []
+
+    def lying_once(built, options=None, progress=None, deadline=None):
+        calls.append((built.relax, options.presolve))
+        if len(calls) == 1:
+            return solve.Solution(status="infeasible")
+        return real(built, options, progress, deadline=deadline)
+
+    monkeypatch.setattr(D, "solve", lying_once)
+    r = dispatch(_reproducer(), SolveOptions(mip_gap=0.0))
+    assert calls == [(False, True), (True, True), (False, False)]
+    assert r.status == "optimal" and r.objective == pytest.approx(OPTIMUM, abs=1e-6)
+    assert any("solved again with presolve off" in n for n in r.summary["notes"])

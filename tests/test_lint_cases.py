@@ -6,6 +6,7 @@ lines at its top, one per diagnostic::
     # expect: P201 at 6:11                         (a position in the case file)
     # expect: P403 at profiles/bad_cell.csv:4:19   (a position in a series file)
     # expect: nothing                              (a case that must lint clean)
+    # options: confine                             (lint it as `--confine` does)
 
 The test compares the exact multiset of (code, file, line, column).  The
 expectations were written by hand from the case text (the column is where the
@@ -50,8 +51,17 @@ def expectations(path: Path):
     return found
 
 
+def options(path: Path) -> set:
+    """Options of a case: a leading line '# options: confine' lints it with --confine."""
+    found = set()
+    for line in path.read_text(encoding="utf-8", errors="replace").splitlines():
+        if line.startswith("# options:"):
+            found |= set(line.split(":", 1)[1].split())
+    return found
+
+
 def actual(path: Path):
-    result = lint_file(path)
+    result = lint_file(path, confine="confine" in options(path))
     got = [(d.code, Path(d.span.path).resolve(), d.span.line, d.span.col) for d in result.diagnostics]
     return result, got
 

@@ -280,3 +280,9 @@ def test_a_tiny_time_limit_still_returns_the_idle_schedule():
     assert r.status in ("feasible", "optimal") and r.has_schedule
     assert r.objective >= -1e-6
     assert r.best_bound is None or r.best_bound >= r.objective - 1e-6
+
+
+def test_the_start_counts_in_the_solve_time_when_no_search_runs():
+    r = dispatch(_fleet(0, n=6, steps=32), SolveOptions(mip_gap=0.01))
+    assert r.summary["certificate"]["bound_source"] == "LP relaxation"     # no search ran
+    assert r.solve_seconds >= r.summary["start_seconds"] > 0

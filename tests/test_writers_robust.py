@@ -116,3 +116,28 @@ def test_the_working_folder_is_refused(result, tmp_path, monkeypatch):
     with pytest.raises(OutputFolderError, match="working folder"):
         write(result, "..")
     assert here.is_dir() and list(here.iterdir()) == []
+
+
+def test_a_folder_holding_a_file_the_portfolio_reads_is_refused(tmp_path):
+    # yesterday's output folder, one of whose tables today's portfolio reads as a
+    # profile: replacing that folder would overwrite an input
+    import io
+
+    from portfolio.cli import main
+
+    out = tmp_path / "out"
+    first = tmp_path / "a.folio"
+    first.write_text('portfolio a\nhorizon start 2027-01-01T00:00 length 3 h step 1 h zone "UTC"\n'
+                     'price p values [10, 50, 20]\nconnection g { sell at p buy at p }\n'
+                     'site s at g { storage cell { energy 1 MWh charge max 1 MW discharge max 1 MW } }\n')
+    assert main(["dispatch", str(first), "--out", str(out), "--quiet"], out=io.StringIO(),
+                err=io.StringIO()) == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    second = tmp_path / "b.folio"
+    second.write_text('portfolio b\nhorizon start 2027-01-01T00:00 length 3 h step 1 h zone "UTC"\n'
+                      'price p values [10, 50, 20]\nconnection g { sell at p buy at p }\n'
+                      'site s at g { demand load from "out/cell.csv" column "discharge_mw" }\n')
+    err = io.StringIO()
+    assert main(["dispatch", str(second), "--out", str(out)], out=io.StringIO(), err=err) == 2
+    assert "a file the portfolio reads" in err.getvalue()
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before

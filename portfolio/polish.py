@@ -33,6 +33,7 @@ from typing import Callable, List, Optional, Sequence
 import numpy as np
 
 from .certify import TOL, check_vector, objective
+from .highs import Abandoned, set_limit
 
 TIE_TOL = 1e-9        # share of the objective the tie-break may give up ...
 TIE_ABS = 1e-6        # ... or this much money, whichever is larger
@@ -95,7 +96,12 @@ def improve(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float]
     vals = np.round(best.x[ints])
     h.changeColsBounds(len(ints), ints, vals, vals)
     h.changeColsIntegrality(len(ints), ints, np.full(len(ints), highspy.HighsVarType.kContinuous))
-    h.run()
+    try:
+        h.run()
+    except Abandoned:
+        best.notes.append("polish: the fixed-integer LP did not stop at its time limit; schedule kept")
+        best.seconds = time.perf_counter() - t0
+        return best, None
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
         best.notes.append("polish: the fixed-integer LP did not solve "
                           f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
@@ -157,8 +163,12 @@ def _tie_break(mx, h, best: Polished, cols: np.ndarray, dt: float, seconds: Opti
     h.changeObjectiveOffset(0.0)
     h.changeObjectiveSense(highspy.ObjSense.kMinimize)
     if seconds is not None:
-        h.setOptionValue("time_limit", max(seconds, 0.01))
-    h.run()
+        set_limit(h, seconds)
+    try:
+        h.run()
+    except Abandoned:
+        best.notes.append("tie-break: the least-spill LP did not stop at its time limit; schedule kept")
+        return
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
         best.notes.append("tie-break: the least-spill LP did not solve "
                           f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")

@@ -40,9 +40,6 @@ means unbounded).
 from __future__ import annotations
 
 import math
-import os
-import sys
-import threading
 import time
 from dataclasses import dataclass, field, replace
 from typing import Callable, Dict, List, Optional, Tuple
@@ -51,6 +48,7 @@ import highspy
 import numpy as np
 
 from . import certify, polish, warmstart
+from .highs import Abandoned, _quiet_banner, _use_threads, new_highs  # noqa: F401 (re-exported)
 
 OPTIMAL = "optimal"
 FEASIBLE = "feasible"
@@ -167,112 +165,6 @@ class Solution:
 
 
 Progress = Callable[[float, Optional[float], Optional[float], Optional[float]], None]
-
-# --- HiGHS prints a banner to the C stdout the first time a Highs object is
-# created in a process.  Create that first one with fd 1 pointed at /dev/null.
-_banner_lock = threading.Lock()
-_banner_done = False
-
-
-def _quiet_banner() -> None:
-    global _banner_done
-    with _banner_lock:
-        if _banner_done:
-            return
-        try:
-            sys.stdout.flush()
-        except Exception:  # pragma: no cover - closed stdout
-            pass
-        saved = None
-        try:
-            saved = os.dup(1)
-            null = os.open(os.devnull, os.O_WRONLY)
-            os.dup2(null, 1)
-            os.close(null)
-        except OSError:  # pragma: no cover - no fd 1
-            saved = None
-        try:
-            h = highspy.Highs()
-            h.setOptionValue("output_flag", False)
-            del h
-        finally:
-            if saved is not None:
-                os.dup2(saved, 1)
-                os.close(saved)
-            _banner_done = True
-
-
-_threads_lock = threading.Lock()
-_threads_in_use: List[Optional[int]] = [None]
-
-
-def _use_threads(threads: Optional[int]) -> None:
-    """HiGHS keeps one global thread pool, sized by the first solve; a
-    different ``threads`` later is an error unless the pool is reset."""
-    with _threads_lock:
-        if threads != _threads_in_use[0]:
-            highspy.Highs.resetGlobalScheduler(True)
-            _threads_in_use[0] = threads
-
-
-class _Highs(highspy.Highs):
-    """A Highs whose ``run()`` a Ctrl-C can stop.
-
-    HiGHS runs in a worker thread while this (main) thread waits in Python,
-    where a KeyboardInterrupt can land at once; it then asks HiGHS to stop
-    (highspy's user-interrupt callbacks, checked by the simplex, the interior
-    point method and the MIP search) and waits up to :data:`GRACE` seconds.
-    Some HiGHS phases check no callback (the MIP set-up after presolve, the
-    root LP of a large MIP: seen to run 30 s), so the KeyboardInterrupt is
-    re-raised after the grace period even if HiGHS is still busy; that run
-    ends by itself at its next check (the command exits at once).  Nothing is
-    printed (highspy's own ``solve()`` prints on Ctrl-C).
-    """
-
-    GRACE = 2.0
-
-    def run(self):
-        self.HandleUserInterrupt = True
-        self.startSolve()
-        try:
-            return self._wait_until(None)
-        except KeyboardInterrupt:
-            self.cancelSolve()
-            until = time.monotonic() + self.GRACE
-            while time.monotonic() < until:
-                try:
-                    if self._wait_until(until):
-                        break
-                except KeyboardInterrupt:
-                    continue
-            raise
-
-    def _wait_until(self, until: Optional[float]):
-        """Wait for the run; its status, or None when ``until`` passes first."""
-        while until is None or time.monotonic() < until:
-            done, status = self.wait(0.1)
-            if done:
-                return status if status is not None else highspy.HighsStatus.kOk
-        return None
-
-
-def new_highs(options: SolveOptions, seconds: Optional[float] = None) -> highspy.Highs:
-    """A configured, silent Highs; ``seconds`` is its time limit (None: the
-    options' limit, if any; a phase passes what is left of the dispatch's)."""
-    _quiet_banner()
-    _use_threads(options.threads)
-    h = _Highs()
-    h.setOptionValue("output_flag", False)
-    h.setOptionValue("mip_rel_gap", float(options.mip_gap))
-    if not options.presolve:
-        h.setOptionValue("presolve", "off")
-    limit = seconds if seconds is not None else options.time_limit
-    if limit is not None:
-        h.setOptionValue("time_limit", max(float(limit), 0.01))
-    if options.threads is not None:
-        h.setOptionValue("threads", int(options.threads))
-    return h
-
 
 def _finite(x) -> Optional[float]:
     if x is None:
@@ -424,7 +316,11 @@ def _run_highs(built, lp, is_mip: bool, options: SolveOptions, deadline: Deadlin
         h.cbMipImprovingSolution.subscribe(lambda e: report(e, force=True))
         h.cbMipInterrupt.subscribe(report)
     t1 = time.perf_counter()
-    run_status = h.run()
+    try:
+        run_status = h.run()
+    except Abandoned as exc:        # past its limit and still busy: nothing of it may be read
+        return _Run(status=LIMIT, claim=certify.Claim(x=None, optimal=False, source=label),
+                    highs=None, seconds=time.perf_counter() - t1, highs_status=str(exc))
     seconds = time.perf_counter() - t1
     if failure:
         raise _ProgressFailed(failure[0])

@@ -56,6 +56,27 @@ def _month_of_quarter_hours(folder: Path) -> Path:
     return path
 
 
+def _year_lp(folder: Path) -> Path:
+    """Forty stores on twenty sites over an hourly year with no binary rule:
+    one LP of about 1.4 million columns, a few seconds of build, then half a
+    minute or more of simplex."""
+    rng = np.random.default_rng(2)
+    t = np.arange(8760)
+    price = 50 + 20 * np.sin(2 * np.pi * (t - 7) / 24) + rng.normal(0, 6, 8760)
+    lines = ["portfolio year_lp", 'horizon start 2027-01-01T00:00 length 8760 h step 1 h zone "UTC"',
+             "price spot values [" + ", ".join(f"{x:.2f}" for x in price) + "]",
+             "connection grid { export max 200 MW import max 200 MW sell at spot buy at spot plus 2 per MWh }"]
+    for site in range(20):
+        lines.append(f"site s{site} at grid {{ export max 15 MW import max 15 MW")
+        for k in range(2):
+            lines.append(f"  storage b{site}_{k} {{ energy {8 + k} MWh charge max 4 MW discharge max 4 MW "
+                         f"efficiency charge 94% discharge 94% soc start 4 MWh }}")
+        lines.append("}")
+    path = folder / "year_lp.folio"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
 @pytest.fixture()
 def previous(tmp_path):
     """An output folder from an earlier, finished dispatch of the demo."""
@@ -98,6 +119,15 @@ def test_ctrl_c_stops_promptly_and_keeps_the_previous_folder(tmp_path, previous,
     assert code == 130, (code, err)
     assert "Traceback" not in err and "interrupted" in err
     assert took < STOP_WITHIN, took
+    _same_as_before(previous)
+
+
+def test_ctrl_c_during_a_long_lp_stops_promptly(tmp_path, previous):
+    src = _year_lp(tmp_path)
+    code, out, err, took = _interrupt([_command(), "dispatch", str(src), "--out", str(previous[0])], 12.0)
+    assert code == 130, (code, err)
+    # in the simplex, which checks for an interrupt every few iterations
+    assert "Traceback" not in err and took < 5.0, took
     _same_as_before(previous)
 
 

@@ -51,3 +51,17 @@ def test_absurd_thread_counts_are_refused_before_anything_runs(tmp_path, threads
                         "--threads", threads], capture_output=True, text=True, timeout=120)
     assert p.returncode == 2 and "from 1 to 256" in p.stderr and "Traceback" not in p.stderr
     assert not (tmp_path / "o").exists()
+
+
+def test_two_dispatches_into_one_folder_at_once_both_succeed(tmp_path):
+    # seen before the lock: 2 of 60 failed after solving ("Directory not empty")
+    out = tmp_path / "out"
+    for _ in range(4):
+        procs = [subprocess.Popen([_command(), "dispatch", str(DEMO), "--out", str(out), "--quiet"],
+                                  stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                 for _ in range(2)]
+        for p in procs:
+            _, err = p.communicate(timeout=300)
+            assert p.returncode == 0, err
+    assert sorted(q.name for q in tmp_path.iterdir()) == ["out"]
+    assert json.loads((out / "summary.json").read_text())["status"] == "optimal"

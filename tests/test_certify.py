@@ -370,3 +370,21 @@ def test_a_false_infeasible_is_solved_again_with_presolve_off(monkeypatch):
     assert calls == [(False, True), (True, True), (False, False)]
     assert r.status == "optimal" and r.objective == pytest.approx(OPTIMUM, abs=1e-6)
     assert any("solved again with presolve off" in n for n in r.summary["notes"])
+
+
+def test_a_huge_limit_changes_nothing():
+    # a site limit far above what its assets can move (900,000 MW beside a 4 MW
+    # store) reaches the solver as what the assets can move (portfolio/reach.py):
+    # the same optimum as no limit at all, proven
+    import dataclasses
+    p = _reproducer()
+    site = p.sites["yard"]
+    huge = dataclasses.replace(p, sites={"yard": dataclasses.replace(site, export_max=9e5,
+                                                                     import_max=9e5)})
+    free = dataclasses.replace(p, sites={"yard": dataclasses.replace(site, export_max=None)})
+    a = dispatch(huge, SolveOptions(mip_gap=0.0))
+    b = dispatch(free, SolveOptions(mip_gap=0.0))
+    assert a.status == b.status == "optimal"
+    assert a.objective == pytest.approx(b.objective, abs=1e-6)
+    ub = a.built.matrix.col_upper[slice(*a.built.matrix.var_ranges["site_export"])]
+    assert ub.max() <= 4.0 + 1e-9                      # the store's discharge limit, not 9e5

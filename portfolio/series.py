@@ -417,8 +417,9 @@ class _Table:
 
 # a quote, NUL, and whitespace to str.strip that bytes.strip keeps: the careful way reads these
 _NOT_LEAN = (b'"', b"\x00", b"\x1c", b"\x1d", b"\x1e", b"\x1f")
-_CHUNK = 1 << 13                                  # rows parsed at a time
-_BLOCK = 1 << 19                                  # bytes scanned at a time by the lean reader
+_CHUNK = 1 << 14                                  # numbers parsed at a time
+_TIME_CHUNK = 1 << 12                             # timestamps parsed at a time (str arrays)
+_BLOCK = 1 << 18                                  # bytes scanned at a time by the lean reader
 _WIDE = 64                                        # wider cells are cut out one by one
 
 
@@ -882,11 +883,11 @@ def _parse_times(table: _Table, col: int, zone: str, users, sink: Sink) -> Optio
     n = len(column)
     local = np.empty(n, dtype=np.int64)
     offset = np.empty(n)
-    for k in range(0, n, _CHUNK):                     # a slice at a time: the str arrays stay small
-        part = column[k:k + _CHUNK]
-        texts, offset[k:k + _CHUNK] = _split_offsets(part.astype("U") if part.dtype.kind == "S"
-                                                     else part)
-        local[k:k + _CHUNK] = _parse_local(texts)
+    for k in range(0, n, _TIME_CHUNK):                # a slice at a time: the str arrays stay small
+        part = column[k:k + _TIME_CHUNK]
+        texts, offset[k:k + _TIME_CHUNK] = _split_offsets(part.astype("U") if part.dtype.kind == "S"
+                                                          else part)
+        local[k:k + _TIME_CHUNK] = _parse_local(texts)
     readable = local != _NAT
     aware = readable & ~np.isnan(offset)
     naive = readable & np.isnan(offset)

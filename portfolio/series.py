@@ -807,13 +807,14 @@ def _parse_numbers(table: _Table, col: int, users, sink: Sink) -> Optional[np.nd
     return None
 
 
-def _split_offsets(cells) -> Tuple[np.ndarray, np.ndarray]:
+def _split_offsets(cells, cuts: bool = False):
     """Split ISO 8601 texts into local part and UTC offset, vectorised.
 
     ``'2027-03-01T00:00+01:00'`` -> ``('2027-03-01T00:00', 60.0)``; a naive
     time has offset NaN.  Texts that cannot be timestamps (an offset that is
     no offset, a second offset, an offset on a bare date) get an empty local
-    part, which the parser then reports as unreadable.
+    part, which the parser then reports as unreadable.  ``cuts``: also give
+    where each offset starts and whether the text was put in upper case.
     """
     text = np.array(cells, dtype=str)            # a copy: changed below
     if not text.size:
@@ -833,13 +834,44 @@ def _split_offsets(cells) -> Tuple[np.ndarray, np.ndarray]:
     clock = np.strings.slice(local, np.where(timed, sep + 1, 0), None)
     stray = ((np.strings.find(clock, "Z") >= 0) | (np.strings.find(clock, "+") >= 0)
              | (timed & (np.strings.find(clock, "-") >= 0)))
+    minutes = _tail_minutes(tail)
+    bad = stray | np.isinf(minutes)
+    local = np.strings.rstrip(local)
+    local[bad] = ""
+    minutes[bad] = np.nan
+    return (local, minutes, cut, low) if cuts else (local, minutes)
+
+
+def _tail_minutes(tail: np.ndarray) -> np.ndarray:
+    """Offsets in minutes: NaN for no offset, inf for one that is no offset."""
     codes, tails = pd.factorize(tail)
     table = np.array([np.nan if not t else
                       (np.inf if _offset_minutes(t) is None else _offset_minutes(t))
-                      for t in tails], dtype=float)
-    minutes = table[codes] if len(table) else np.full(len(text), np.nan)
-    bad = stray | np.isinf(minutes)
-    local = np.strings.rstrip(local)
+                      for t in (x.decode("ascii") if isinstance(x, bytes) else x for x in tails)],
+                     dtype=float)
+    return table[codes] if len(table) else np.full(len(tail), np.nan)
+
+
+def _split_one_layout(part: np.ndarray):
+    """:func:`_split_offsets` for lean cells (bytes) that all share one layout
+    (the same length, digits in the same places, the same other characters),
+    from the split of the first; ``None`` for any other slice."""
+    if part.dtype.kind != "S" or not len(part):
+        return None
+    grid = part.view(np.uint8).reshape(len(part), part.dtype.itemsize)
+    digit = (grid >= 48) & (grid <= 57)
+    if not (digit == digit[0]).all():
+        return None
+    other = ~digit[0]
+    if not (grid[:, other] == grid[0, other]).all():
+        return None
+    local0, _, cut, upper = _split_offsets(part[:1].astype("U"), cuts=True)
+    if not local0[0]:
+        return None                          # the general split says what is wrong
+    text = np.strings.upper(part) if upper[0] else part
+    local = np.strings.slice(text, 0, len(local0[0])).astype("U")
+    minutes = _tail_minutes(np.strings.slice(text, int(cut[0]), None))
+    bad = np.isinf(minutes)
     local[bad] = ""
     minutes[bad] = np.nan
     return local, minutes
@@ -885,8 +917,8 @@ def _parse_times(table: _Table, col: int, zone: str, users, sink: Sink) -> Optio
     offset = np.empty(n)
     for k in range(0, n, _TIME_CHUNK):                # a slice at a time: the str arrays stay small
         part = column[k:k + _TIME_CHUNK]
-        texts, offset[k:k + _TIME_CHUNK] = _split_offsets(part.astype("U") if part.dtype.kind == "S"
-                                                          else part)
+        texts, offset[k:k + _TIME_CHUNK] = (_split_one_layout(part) or _split_offsets(
+            part.astype("U") if part.dtype.kind == "S" else part))
         local[k:k + _TIME_CHUNK] = _parse_local(texts)
     readable = local != _NAT
     aware = readable & ~np.isnan(offset)

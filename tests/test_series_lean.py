@@ -50,11 +50,13 @@ def plain_csv(draw):
     rows = draw(st.integers(1, 40))
     start = pd.Timestamp("2027-03-01T00:00", tz="UTC")
     lines = [delim.join(["time"] + [f"v{j}" for j in range(ncols)])]
+    forms = ["%Y-%m-%dT%H:%MZ", "%Y-%m-%dT%H:%M+00:00", "%Y-%m-%d %H:%M:%S", "%Y%m%dT%H%M",
+             "%Y-%m-%dT%H:%M%z", "%Y-%m-%dt%H:%M:%Sz", "%Y-%m-%d"]
+    one_form = draw(st.sampled_from([None] + forms))     # one layout for all rows, most often
     for k in range(rows):
-        ts = start + pd.Timedelta(minutes=15 * k)
-        form = draw(st.sampled_from(["%Y-%m-%dT%H:%MZ", "%Y-%m-%dT%H:%M+00:00",
-                                     "%Y-%m-%d %H:%M:%S", "%Y%m%dT%H%M"]))
-        t = ts.strftime(form)
+        ts = (start + pd.Timedelta(minutes=15 * k)).tz_convert(draw(st.sampled_from(
+            ["UTC", "Europe/Berlin"])))
+        t = ts.strftime(one_form or draw(st.sampled_from(forms)))
         if draw(st.integers(0, 30)) == 0:
             t = draw(st.sampled_from(ODD_TIMES))
         cells = [t]

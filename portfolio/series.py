@@ -328,17 +328,53 @@ class _Unreadable(Exception):
 
 @dataclass
 class _Table:
+    """A CSV file's header, and its data rows read on request.
+
+    Two ways of reading give the same cells.  The careful way runs Python's
+    ``csv`` module over every line (any quoting).  The lean way, for a file
+    of plain ASCII without quotes, finds lines and separators in the bytes
+    with numpy and keeps only the columns asked for (:meth:`keep`); the
+    careful records are made from the text only when a fault is reported.
+    """
+
     shown: str                 # path for spans and messages
     delimiter: str
     header: List[str]          # stripped header cells
     header_line: int
-    rows: List[List[str]]      # data records (blank lines dropped)
-    lines: List[int]           # file line where each record starts
-    raw: List[str]             # every physical line of the file
+    lines: Optional[Sequence[int]]   # file line of each data record (blank lines dropped); lean: set by keep
+    data: bytes = b""          # the file's bytes
+    lean: bool = False
+    _records: Optional[List[List[str]]] = None
+    _raw: Optional[List[str]] = None
+    _columns: Optional[Dict[int, Tuple[np.ndarray, np.ndarray]]] = None
+
+    @property
+    def text(self) -> str:
+        return self.data.decode("utf-8-sig")
+
+    @property
+    def raw(self) -> List[str]:
+        """Every physical line of the file."""
+        if self._raw is None:
+            self._raw = list(io.StringIO(self.text, newline=""))
+        return self._raw
+
+    @property
+    def rows(self) -> List[List[str]]:
+        """Data records as lists of cells (made from the text when first asked in lean mode)."""
+        if self._records is None:
+            parsed = _parse_records(self.raw, self.delimiter, '"' in self.text)
+            self._records = parsed[2]
+        return self._records
+
+    def __len__(self) -> int:
+        if self.lines is None:
+            self.keep([])
+        return len(self.lines)
 
     def span(self, row: int, col: int) -> Span:
         """Span of one cell: its file line and, when easy, its columns."""
-        line = self.lines[row] if row >= 0 else self.header_line
+        line = int(self.lines[row]) if row >= 0 else self.header_line
         text = self.raw[line - 1].rstrip("\r\n") if line - 1 < len(self.raw) else ""
         record = self.rows[row] if row >= 0 else self.header
         if '"' not in text:                  # unquoted: the record is this one line
@@ -353,9 +389,38 @@ class _Table:
                 return Span(self.shown, line, len(text) + 1, line, len(text) + 1)
         return Span(self.shown, line, 1, line, len(text) + 1)
 
-    def cells(self, col: int) -> List[Optional[str]]:
-        """Stripped cells of one column; ``None`` where a row is too short."""
-        return [r[col].strip() if col < len(r) else None for r in self.rows]
+    def keep(self, cols: Sequence[int]) -> None:
+        """Read the columns ``cols`` (lean mode; the careful mode has them all)."""
+        if self.lean and (self._columns is None or not set(cols) <= set(self._columns)):
+            found = _lean_columns(self.data, self.delimiter, self.header_line, sorted(set(cols)))
+            self.lines = found.pop("lines")
+            self._columns = found
+
+    def column(self, col: int) -> Tuple[np.ndarray, np.ndarray]:
+        """Stripped cells of one column as a bytes or str array ('' where a row
+        is too short), and the mask of the rows too short to have it."""
+        if self._columns is not None and col in self._columns:
+            return self._columns[col]
+        rows = self.rows
+        missing = np.fromiter((col >= len(r) for r in rows), dtype=bool, count=len(rows))
+        texts = np.array([r[col].strip() if col < len(r) else "" for r in rows], dtype=str)
+        return texts, missing
+
+    def cell(self, row: int, col: int) -> Optional[str]:
+        """One stripped cell; ``None`` where the row is too short."""
+        if self._columns is not None and col in self._columns:
+            texts, missing = self._columns[col]
+            return None if missing[row] else texts[row].decode("ascii")
+        r = self.rows[row]
+        return r[col].strip() if col < len(r) else None
+
+
+# a quote, NUL, and whitespace to str.strip that bytes.strip keeps: the careful way reads these
+_NOT_LEAN = (b'"', b"\x00", b"\x1c", b"\x1d", b"\x1e", b"\x1f")
+_CHUNK = 1 << 14                                  # numbers parsed at a time
+_TIME_CHUNK = 1 << 12                             # timestamps parsed at a time (str arrays)
+_BLOCK = 1 << 18                                  # bytes scanned at a time by the lean reader
+_WIDE = 64                                        # wider cells are cut out one by one
 
 
 def _read_table(resolved: Path, shown: str) -> _Table:
@@ -372,6 +437,8 @@ def _read_table(resolved: Path, shown: str) -> _Table:
         raise _Unreadable("permission denied") from None
     except OSError as e:
         raise _Unreadable(e.strerror or str(e)) from None
+    if _leanable(data):
+        return _lean_table(data, shown)
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as e:
@@ -381,9 +448,17 @@ def _read_table(resolved: Path, shown: str) -> _Table:
         raise _Unreadable("it contains NUL bytes (is it a binary file?)")
     raw = list(io.StringIO(text, newline=""))
     delimiter = _sniff_delimiter(raw)
+    header, header_line, rows, lines = _parse_records(raw, delimiter, '"' in text)
+    if not header:
+        return _Table(shown, delimiter, [], 1, [], data, _records=[], _raw=raw)
+    return _Table(shown, delimiter, header, header_line, lines, data, _records=rows, _raw=raw)
+
+
+def _parse_records(raw: List[str], delimiter: str, quoted: bool):
+    """The careful reading: (header, its line, data records, their lines)."""
     reader = csv.reader(raw, delimiter=delimiter, skipinitialspace=True, strict=False)
     try:
-        if '"' not in text:
+        if not quoted:
             # no quoting: record k is physical line k + 1 (csv gives [] for a blank line)
             records = list(reader)
             starts = range(1, len(records) + 1)
@@ -397,12 +472,138 @@ def _read_table(resolved: Path, shown: str) -> _Table:
         raise _Unreadable(f"it is not valid CSV near line {reader.line_num}: {e}") from None
     kept = [k for k, r in enumerate(records) if r and (len(r) > 1 or r[0].strip())]
     if not kept:
-        return _Table(shown, delimiter, [], 1, [], [], raw)
+        return [], 1, [], []
     first = kept[0]
     header = [c.strip() for c in records[first]]
-    rows = [records[k] for k in kept[1:]]
-    lines = [starts[k] for k in kept[1:]]
-    return _Table(shown, delimiter, header, starts[first], rows, lines, raw)
+    return (header, starts[first], [records[k] for k in kept[1:]],
+            [starts[k] for k in kept[1:]])
+
+
+def _leanable(data: bytes) -> bool:
+    """Plain ASCII without quotes, NULs or odd whitespace, no line past the csv field limit."""
+    if not data.isascii() or any(c in data for c in _NOT_LEAN):
+        return False
+    limit, b = csv.field_size_limit(), np.frombuffer(data, dtype=np.uint8)
+    last = -1                                        # the last line end seen
+    for pos in range(0, len(b), _BLOCK):             # a block at a time: small masks
+        part = b[pos:pos + _BLOCK]
+        ends = np.flatnonzero((part == 10) | (part == 13)) + pos
+        if np.diff(ends, prepend=last).max(initial=0) > limit:
+            return False
+        last = int(ends[-1]) if ends.size else last
+    return len(b) - last <= limit
+
+
+def _lines_of(b: np.ndarray, base: int) -> Tuple[np.ndarray, np.ndarray]:
+    """Starts and content ends (exclusive) of the physical lines in ``b`` as
+    ``io.StringIO(newline="")`` splits them (at \\n, \\r\\n or a lone \\r)."""
+    n = len(b)
+    nl = np.flatnonzero(b == 10)
+    cr = np.flatnonzero(b == 13)
+    nxt = cr + 1
+    lone = cr[(nxt >= n) | (b[np.minimum(nxt, n - 1)] != 10)] if cr.size else cr
+    terms = np.sort(np.concatenate((nl, lone)))
+    starts = np.concatenate(([0], terms + 1))
+    ends = np.concatenate((terms, [n]))
+    if starts[-1] >= n:                       # the file ends with a line end
+        starts, ends = starts[:-1], ends[:-1]
+    crlf = (ends < n) & (b[np.minimum(ends, n - 1)] == 10) & (ends > starts)
+    crlf &= b[np.maximum(ends - 1, 0)] == 13
+    ends = ends - crlf
+    return starts + base, ends + base
+
+
+def _lean_table(data: bytes, shown: str) -> _Table:
+    """Header of a plain file; the data rows wait for :meth:`_Table.keep`."""
+    size, n = 1 << 16, len(data)
+    while True:
+        lines = list(io.StringIO(data[:size].decode("ascii"), newline=""))
+        hit = next((k for k, ln in enumerate(lines) if ln.strip()), None)
+        if size >= n or (hit is not None and hit < len(lines) - 1):
+            break
+        size *= 4
+    if hit is None:
+        return _Table(shown, ",", [], 1, [], data, lean=True, _records=[])
+    first = lines[hit]
+    delimiter = next((d for d in (",", ";", "\t") if d in first), ",")
+    header = [c.strip() for c in first.rstrip("\r\n").split(delimiter)]
+    return _Table(shown, delimiter, header, hit + 1, None, data, lean=True)
+
+
+def _lean_columns(data: bytes, delimiter: str, header_line: int, cols: List[int]) -> dict:
+    """Cells of columns ``cols`` of the data rows after the header, block by block."""
+    b = np.frombuffer(data, dtype=np.uint8)
+    d = ord(delimiter)
+    out_lines, parts = [], {c: ([], []) for c in cols}
+    line_no, pos, n = 0, 0, len(b)
+    while pos < n:
+        cut = data.rfind(b"\n", pos, pos + _BLOCK) + 1
+        if cut <= pos:
+            cut = data.rfind(b"\r", pos, pos + _BLOCK) + 1
+        if cut <= pos or pos + _BLOCK >= n:
+            cut = n
+        block = b[pos:cut]
+        starts, ends = _lines_of(block, 0)
+        numbers = np.arange(line_no + 1, line_no + 1 + len(starts))
+        line_no += len(starts)
+        dpos = np.flatnonzero(block == d)
+        first = np.searchsorted(dpos, starts)
+        count = np.searchsorted(dpos, ends) - first
+        after = numbers > header_line
+        plain = after & (count == 0)
+        if plain.any():                       # a line without separators is kept unless blank
+            blank = np.array([not data[pos + s:pos + e].strip()
+                              for s, e in zip(starts[plain], ends[plain])], dtype=bool)
+            idx = np.flatnonzero(plain)[blank]
+            after[idx] = False
+        keep = np.flatnonzero(after)
+        out_lines.append(numbers[keep])
+        starts, ends, first, count = starts[keep], ends[keep], first[keep], count[keep]
+        for c in cols:
+            has = count >= c
+            lo = starts.copy() if c == 0 else np.where(has, dpos[np.minimum(first + c - 1, len(dpos) - 1)] + 1 if len(dpos) else starts, starts)
+            hi = np.where(count > c, dpos[np.minimum(first + c, len(dpos) - 1)] if len(dpos) else ends, ends)
+            hi = np.where(has, hi, lo)
+            parts[c][0].append(_cut_cells(block, lo, hi))
+            parts[c][1].append(~has)
+        pos = cut
+    result: dict = {"lines": np.concatenate(out_lines) if out_lines else np.zeros(0, dtype=np.int64)}
+    for c in cols:
+        texts = [t for t in parts[c][0]]
+        width = max((t.dtype.itemsize for t in texts), default=1)
+        joined = np.concatenate([t.astype(f"S{width}") for t in texts]) if texts else np.zeros(0, "S1")
+        result[c] = (joined, np.concatenate(parts[c][1]) if texts else np.zeros(0, bool))
+    return result
+
+
+class _Cells:
+    """``cells[row]``: one stripped cell of a column, ``None`` where the row is too short."""
+
+    def __init__(self, table: _Table, col: int):
+        self.table, self.col = table, col
+
+    def __getitem__(self, row) -> Optional[str]:
+        return self.table.cell(int(row), self.col)
+
+
+def _cut_cells(block: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """The stripped byte strings ``block[lo:hi]``, as one fixed-width bytes array."""
+    size = hi - lo
+    width = int(size.max()) if size.size else 0
+    if width == 0:
+        return np.zeros(len(lo), dtype="S1")
+    if width > _WIDE:
+        raw = block.tobytes()
+        cells = np.array([raw[a:z] for a, z in zip(lo.tolist(), hi.tolist())], dtype=f"S{width}")
+    else:
+        offs = np.arange(width, dtype=np.int32)
+        idx = lo.astype(np.int32)[:, None] + offs
+        np.minimum(idx, len(block) - 1, out=idx)
+        grid = block[idx]
+        del idx
+        grid[offs >= size[:, None]] = 0
+        cells = np.ascontiguousarray(grid).view(f"S{width}").ravel()
+    return np.strings.strip(cells)
 
 
 def _sniff_delimiter(raw: List[str]) -> str:
@@ -468,7 +669,14 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
                      f"looked for {resolved}")
         return {}
     specs = [spec for _, spec in group]
-    if not table.rows:
+    if table.header:                     # read only the columns the specs can name, at once
+        found = [_find_column(table, spec.time_column, "time", 0)[0] for _, spec in group]
+        for (_, spec), t_idx in zip(group, found):
+            others = [j for j in range(len(table.header)) if j != (t_idx or 0)]
+            found.append(_find_column(table, spec.column, "value",
+                                      others[0] if len(others) == 1 else None)[0])
+        table.keep([c for c in found if c is not None])
+    if not len(table):
         what = "is empty" if not table.header else "has a header but no data rows"
         sink.add(SeriesEmpty, Span(shown, table.header_line, 1, table.header_line, 1),
                  f"series file {shown} {what}", *(_declared(s) for s in specs))
@@ -568,15 +776,20 @@ def _report_cells(kind, table: _Table, col: int, bad: np.ndarray, message, users
 
 
 def _parse_numbers(table: _Table, col: int, users, sink: Sink) -> Optional[np.ndarray]:
-    cells = table.cells(col)
-    values = pd.to_numeric(pd.Series(cells, dtype=object), errors="coerce").to_numpy(dtype=float)
+    texts, _ = table.column(col)
+    values = np.empty(len(texts))
+    for k in range(0, len(texts), _CHUNK):             # pandas' parser, a slice at a time
+        part = texts[k:k + _CHUNK]
+        if part.dtype.kind == "S":
+            part = part.astype("U")
+        values[k:k + _CHUNK] = pd.to_numeric(part, errors="coerce")
     bad = np.flatnonzero(~np.isfinite(values))
     if not bad.size:
         return values
     name = table.header[col]
 
     def message(row: int) -> str:
-        cell, line = cells[row], table.lines[row]
+        cell, line = table.cell(row, col), table.lines[row]
         if cell is None:
             n = len(table.rows[row])
             return (f"line {line} has no cell for column '{name}' "
@@ -594,15 +807,16 @@ def _parse_numbers(table: _Table, col: int, users, sink: Sink) -> Optional[np.nd
     return None
 
 
-def _split_offsets(cells: List[Optional[str]]) -> Tuple[np.ndarray, np.ndarray]:
+def _split_offsets(cells, cuts: bool = False):
     """Split ISO 8601 texts into local part and UTC offset, vectorised.
 
     ``'2027-03-01T00:00+01:00'`` -> ``('2027-03-01T00:00', 60.0)``; a naive
     time has offset NaN.  Texts that cannot be timestamps (an offset that is
     no offset, a second offset, an offset on a bare date) get an empty local
-    part, which the parser then reports as unreadable.
+    part, which the parser then reports as unreadable.  ``cuts``: also give
+    where each offset starts and whether the text was put in upper case.
     """
-    text = np.array([c or "" for c in cells], dtype=str)
+    text = np.array(cells, dtype=str)            # a copy: changed below
     if not text.size:
         return text, np.zeros(0)
     low = (np.strings.find(text, "t") >= 0) | (np.strings.find(text, "z") >= 0)
@@ -620,13 +834,44 @@ def _split_offsets(cells: List[Optional[str]]) -> Tuple[np.ndarray, np.ndarray]:
     clock = np.strings.slice(local, np.where(timed, sep + 1, 0), None)
     stray = ((np.strings.find(clock, "Z") >= 0) | (np.strings.find(clock, "+") >= 0)
              | (timed & (np.strings.find(clock, "-") >= 0)))
+    minutes = _tail_minutes(tail)
+    bad = stray | np.isinf(minutes)
+    local = np.strings.rstrip(local)
+    local[bad] = ""
+    minutes[bad] = np.nan
+    return (local, minutes, cut, low) if cuts else (local, minutes)
+
+
+def _tail_minutes(tail: np.ndarray) -> np.ndarray:
+    """Offsets in minutes: NaN for no offset, inf for one that is no offset."""
     codes, tails = pd.factorize(tail)
     table = np.array([np.nan if not t else
                       (np.inf if _offset_minutes(t) is None else _offset_minutes(t))
-                      for t in tails], dtype=float)
-    minutes = table[codes] if len(table) else np.full(len(text), np.nan)
-    bad = stray | np.isinf(minutes)
-    local = np.strings.rstrip(local)
+                      for t in (x.decode("ascii") if isinstance(x, bytes) else x for x in tails)],
+                     dtype=float)
+    return table[codes] if len(table) else np.full(len(tail), np.nan)
+
+
+def _split_one_layout(part: np.ndarray):
+    """:func:`_split_offsets` for lean cells (bytes) that all share one layout
+    (the same length, digits in the same places, the same other characters),
+    from the split of the first; ``None`` for any other slice."""
+    if part.dtype.kind != "S" or not len(part):
+        return None
+    grid = part.view(np.uint8).reshape(len(part), part.dtype.itemsize)
+    digit = (grid >= 48) & (grid <= 57)
+    if not (digit == digit[0]).all():
+        return None
+    other = ~digit[0]
+    if not (grid[:, other] == grid[0, other]).all():
+        return None
+    local0, _, cut, upper = _split_offsets(part[:1].astype("U"), cuts=True)
+    if not local0[0]:
+        return None                          # the general split says what is wrong
+    text = np.strings.upper(part) if upper[0] else part
+    local = np.strings.slice(text, 0, len(local0[0])).astype("U")
+    minutes = _tail_minutes(np.strings.slice(text, int(cut[0]), None))
+    bad = np.isinf(minutes)
     local[bad] = ""
     minutes[bad] = np.nan
     return local, minutes
@@ -665,11 +910,16 @@ def _parse_local(texts: np.ndarray) -> np.ndarray:
 
 
 def _parse_times(table: _Table, col: int, zone: str, users, sink: Sink) -> Optional[_Times]:
-    cells = table.cells(col)
+    column, _ = table.column(col)
     name = table.header[col]
-    n = len(cells)
-    texts, offset = _split_offsets(cells)
-    local = _parse_local(texts)
+    n = len(column)
+    local = np.empty(n, dtype=np.int64)
+    offset = np.empty(n)
+    for k in range(0, n, _TIME_CHUNK):                # a slice at a time: the str arrays stay small
+        part = column[k:k + _TIME_CHUNK]
+        texts, offset[k:k + _TIME_CHUNK] = (_split_one_layout(part) or _split_offsets(
+            part.astype("U") if part.dtype.kind == "S" else part))
+        local[k:k + _TIME_CHUNK] = _parse_local(texts)
     readable = local != _NAT
     aware = readable & ~np.isnan(offset)
     naive = readable & np.isnan(offset)
@@ -686,6 +936,7 @@ def _parse_times(table: _Table, col: int, zone: str, users, sink: Sink) -> Optio
         ok[where[good]] = True
         dst[where[~good]] = True
 
+    cells = _Cells(table, col)
     unreadable = np.flatnonzero(~ok & ~dst)
     if unreadable.size:
         def message(row: int) -> str:
@@ -769,7 +1020,7 @@ def _report_rows(kind, table: _Table, col: int, bad: np.ndarray, text, users, si
     """Report the rows ``bad`` of column ``col``; ``text(cell, column, line)`` words each."""
     if not bad.size:
         return False
-    name, cells = table.header[col], table.cells(col)
+    name, cells = table.header[col], _Cells(table, col)
     _report_cells(kind, table, col, bad, lambda row: text(cells[row], name, table.lines[row]),
                   users, sink, extra=extra)
     return True

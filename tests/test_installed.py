@@ -78,7 +78,7 @@ def test_wheel_holds_every_module(unzipped):
 def test_wheel_declares_the_command(unzipped):
     out, _ = unzipped
     (info,) = out.glob("portfolio-*.dist-info")
-    assert "portfolio = portfolio.cli:run" in (info / "entry_points.txt").read_text("utf-8")
+    assert "portfolio = portfolio._entry:run" in (info / "entry_points.txt").read_text("utf-8")
 
 
 PROBE = """

@@ -139,3 +139,14 @@ def test_ctrl_c_at_start_up_gives_no_traceback(tmp_path, previous):
     assert code in (130, 0), (code, err)       # 0 only if it had already finished
     if code == 130:
         _same_as_before(previous)
+
+
+def test_a_ctrl_c_during_the_imports_ends_quietly():
+    # deterministic: the interrupt arrives right after the entry module is
+    # imported, while the rest would still be importing
+    code = ("import portfolio._entry, os, signal, time\n"
+            "os.kill(os.getpid(), signal.SIGINT)\n"
+            "time.sleep(5)\n")
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
+                       preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    assert p.returncode == 130 and p.stderr == "portfolio: interrupted\n", (p.returncode, p.stderr)

@@ -396,36 +396,37 @@ def _solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
                               warmstart.idle_budget(deadline.left()))
         sol.start_seconds += idle.seconds
         if idle.x is not None:
-            lp_bound = start.lp_bound if start is not None else None
-            start = warmstart.Start(idle.x, idle.objective, lp_bound, sol.start_seconds,
-                                    note="idle: every mode binary at 0")
+            start = warmstart.Start(idle.x, idle.objective,
+                                    start.lp_bound if start is not None else None,
+                                    sol.start_seconds, note="idle: every mode binary at 0")
             sol.start_objective = idle.objective
     given = start.x if start is not None else None
     lp_bound = start.lp_bound if start is not None else None
     sol.solve_seconds = sol.start_seconds          # the search, if any, adds its time
 
     pick = _Pick()
+    held = None      # the start, certified: cheap; the polish runs only if it may end the solve
     if given is not None:
-        first = _judge(built, lp, is_mip, options, deadline, lp_bound, sol,
-                       certify.Claim(given, optimal=True, source="the warm start"))
-        if first is not None and first.cert.status == certify.OPTIMAL and first.cert.ok:
+        held = certify.certify(mx, certify.Claim(given, optimal=False, source="the start"),
+                               options.mip_gap, lp_bound)
+        if held.feasible and held.status == certify.OPTIMAL:
             # the verified LP bound already proves the start within the gap: no search
-            pick = first
-            sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
+            first = _judge(built, lp, is_mip, options, deadline, lp_bound, sol,
+                           certify.Claim(given, optimal=True, source="the warm start"))
+            if first is not None and first.cert.status == certify.OPTIMAL and first.cert.ok:
+                pick = first
+                sol.highs_status = "Optimal (warm start within the gap of the LP relaxation's bound)"
     if pick.cert is None:
         pick = _search(built, lp, is_mip, options, deadline, given, lp_bound, progress, sol)
-        if pick.cert is not None and given is not None:
-            held = certify.certify(mx, certify.Claim(given, optimal=False, source="the start"),
-                                   options.mip_gap, lp_bound)
-            if held.feasible and _better(mx, held, pick.cert, certify.OBJ_TOL):
+        if held is not None and held.feasible:
+            if pick.cert is None:
+                pick = _Pick(held, given)
+                sol.notes.append("the start's schedule is returned: the search gave none")
+            elif _better(mx, held, pick.cert, certify.OBJ_TOL):
                 # more time must never give a worse answer than the one in hand
                 sol.notes.append("the search returned a schedule worth less than its start; "
                                  "the start is returned")
                 pick = _Pick(held, given)
-    if pick.cert is None and given is not None:
-        pick = _Pick(certify.certify(mx, certify.Claim(given, optimal=False, source="the warm start"),
-                                     options.mip_gap, lp_bound), given)
-        sol.notes.append("the warm start's schedule is returned: the search gave none")
     if pick.cert is None or pick.x is None:
         if sol.status == LIMIT:
             sol.status = NO_SCHEDULE

@@ -58,7 +58,7 @@ def main() -> None:
     _write(pd.DataFrame({"time": stamp(half), "mw": 0.8 + 0.4 * rng.random(48)}),
            HERE / "heron_flats/profiles/cold_store.csv")
 
-    # glen_cascade: two reservoirs in cascade, 72 h hourly, river inflow after rain.
+    # glen_cascade: two reservoirs in cascade, 72 h hourly, river flow after rain.
     h72 = pd.date_range("2027-10-04T00:00", periods=72, freq="h", tz="UTC")
     river = 6 + 10 * np.exp(-((np.arange(72) - 20) ** 2) / 60) + rng.normal(0, 0.3, 72)
     _write(pd.DataFrame({"time": stamp(h72), "price": price_curve(h72, rng, base=60, swing=40)}),

@@ -61,7 +61,7 @@ ROUTE_RULES = {
 @dataclass
 class _Decl:
     """A name in the one shared namespace."""
-    kind: str           # "price", "demand", "inflow", "connection", "site", "storage", "preset"
+    kind: str           # "price", "demand", "supply", "connection", "site", "storage", "preset"
     span: Span
     node: Tree = None
     extra: dict = field(default_factory=dict)
@@ -199,7 +199,7 @@ class Checker:
         connections: Dict[str, M.Connection] = {}
         sites: Dict[str, M.Site] = {}
         storages: Dict[str, M.Storage] = {}
-        inflows: Dict[str, M.Inflow] = {}
+        supplies: Dict[str, M.Supply] = {}
         demands: Dict[str, M.Demand] = {}
         routes: List[M.Route] = []
         cap = None
@@ -215,7 +215,7 @@ class Checker:
                     self.sink.add(DuplicateSetting, self.span(st), "'total' limits are declared twice")
                 cap = self.check_cap(st)
             elif st.data == "site":
-                self.check_site(st, sites, storages, inflows, demands, routes)
+                self.check_site(st, sites, storages, supplies, demands, routes)
             elif st.data == "route":
                 r = self.check_route_syntax(st)
                 if r:
@@ -241,7 +241,7 @@ class Checker:
                           "note: declare one with 'connection NAME { export max ... }'")
             return None
         return M.Portfolio(name=name, path=self.path, horizon=self.horizon, series=series,
-                           connections=connections, sites=sites, storages=storages, inflows=inflows,
+                           connections=connections, sites=sites, storages=storages, supplies=supplies,
                            demands=demands, routes=tuple(routes), cap=cap,
                            span=name_span or Span(self.path, 1, 1, 1, 1))
 
@@ -257,12 +257,12 @@ class Checker:
         elif kind == "site":
             self.declare(st.children[0], "site", st)
             for item in st.children[2:]:
-                if isinstance(item, Tree) and item.data in ("demand", "storage", "inflow"):
+                if isinstance(item, Tree) and item.data in ("demand", "storage", "supply"):
                     self.declare(item.children[0], item.data, item)
                     if item.data == "storage":
                         for s in item.children[1:]:
-                            if isinstance(s, Tree) and s.data == "inflow":
-                                self.declare(s.children[0], "inflow", s)  # a storage's own inflow
+                            if isinstance(s, Tree) and s.data == "supply":
+                                self.declare(s.children[0], "supply", s)  # a storage's own supply
 
     # -- horizon --------------------------------------------------------------------
     def check_horizon(self, node: Tree) -> Optional[M.Horizon]:
@@ -527,7 +527,7 @@ class Checker:
         return M.Cap(name="total", span=self.span(st), spans=spans, **vals)
 
     # -- sites ----------------------------------------------------------------------------
-    def check_site(self, st, sites, storages, inflows, demands, routes) -> None:
+    def check_site(self, st, sites, storages, supplies, demands, routes) -> None:
         name = str(st.children[0])
         conn = self.ref(st.children[1], ("connection",), "connection")
         items = st.children[2:]
@@ -547,19 +547,19 @@ class Checker:
                 s = self.check_storage(item, name)
                 if s is not None:
                     storages[s.name] = s
-            elif item.data == "inflow":
-                i = self.check_inflow(item, name)
+            elif item.data == "supply":
+                i = self.check_supply(item, name)
                 if i is not None:
-                    inflows[i.name] = i
+                    supplies[i.name] = i
             elif item.data == "route":
                 r = self.check_route_syntax(item)
                 if r:
                     routes.append(r)
 
-    def check_inflow(self, node: Tree, site: str) -> Optional[M.Inflow]:
+    def check_supply(self, node: Tree, site: str) -> Optional[M.Supply]:
         nm = str(node.children[0])
         self.series_spec(node.children[0], node.children[1], "power", node)
-        s = self.settings(node.children[2:], f"inflow '{nm}'")
+        s = self.settings(node.children[2:], f"supply '{nm}'")
         targets: List[str] = []
         spans = {}
         if "into" in s:
@@ -583,7 +583,7 @@ class Checker:
         if "curtail" in s:
             curtail = str(s["curtail"].children[0]) == "allowed"
             spans["curtail_allowed"] = self.span(s["curtail"])
-        return M.Inflow(name=nm, site=site, profile=nm, targets=tuple(targets), curtail_allowed=curtail,
+        return M.Supply(name=nm, site=site, profile=nm, targets=tuple(targets), curtail_allowed=curtail,
                         span=self.span(node), spans=spans)
 
     # -- presets and storages ------------------------------------------------------
@@ -634,10 +634,10 @@ class Checker:
                                   f"note: first given at {self.span(out[key])}")
                     continue
                 out[key] = part
-        if "inflow" in out and what.startswith("preset"):
-            self.sink.add(LimitInconsistent, self.span(out["inflow"]),
-                          "a preset cannot hold an inflow (each inflow needs its own name); put it in the storage")
-            del out["inflow"]
+        if "supply" in out and what.startswith("preset"):
+            self.sink.add(LimitInconsistent, self.span(out["supply"]),
+                          "a preset cannot hold a supply (each supply needs its own name); put it in the storage")
+            del out["supply"]
         return out
 
     def check_storage(self, node: Tree, site: str) -> Optional[M.Storage]:
@@ -943,16 +943,16 @@ class StorageBuilder:
                 v["spill_max"] = ck.power(node.children[1], f"the spill max of '{nm}'")
                 if not v["spill_allowed"]:
                     sink.add(UnusedSetting, ck.span(node.children[1]), "a spill max has no effect when spill is forbidden")
-        if "inflow" in s:
-            node = s["inflow"]
+        if "supply" in s:
+            node = s["supply"]
             inm = str(node.children[0])
-            spans["inflow"] = self.sp("inflow")
+            spans["supply"] = self.sp("supply")
             ck.series_spec(node.children[0], node.children[1], "power", node)
             if len(node.children) > 2:
                 sink.add(UnusedSetting, ck.span(node.children[2]),
-                         "an inflow inside a storage always flows into that storage; 'into' and 'curtail' do not apply here "
+                         "a supply inside a storage always flows into that storage; 'into' and 'curtail' do not apply here "
                          "(use 'spill allowed' to let the storage shed what it cannot hold)")
-            v["inflow"] = inm
+            v["supply"] = inm
         cmin, dmin = v.get("charge_min", 0.0), v.get("discharge_min", 0.0)
         needs = v.get("exclusive") or cmin > 0 or dmin > 0 or v.get("min_run_h", 0) > 0 or v.get("min_rest_h", 0) > 0
         if needs and v.get("charge_max", 0.0) <= 0 and v.get("discharge_max", 0.0) <= 0:

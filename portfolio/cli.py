@@ -328,7 +328,7 @@ def _print_assets(result, out) -> None:
 
     console = Console(file=out, width=120, highlight=False)
     summary = result.summary
-    for group in ("connections", "sites", "storages", "inflows", "demands", "routes"):
+    for group in ("connections", "sites", "storages", "supplies", "demands", "routes"):
         rows = summary.get(group) or {}
         if not rows:
             continue

@@ -194,14 +194,14 @@ SeriesImplausible = _kind("P411", ERROR, "a series has values beyond any plausib
 SeriesOutsideFolder = _kind("P412", ERROR, "confined mode: a series file lies outside the portfolio's folder", "SeriesOutsideFolder")
 
 # --- P5xx: topology -----------------------------------------------------------
-NoPathToGrid = _kind("P501", ERROR, "a storage or inflow has no path to any connection or demand", "NoPathToGrid")
+NoPathToGrid = _kind("P501", ERROR, "a storage or supply has no path to any connection or demand", "NoPathToGrid")
 ZeroDelayCycle = _kind("P502", ERROR, "routes form a cycle with zero total delay", "ZeroDelayCycle")
-NowhereToGo = _kind("P503", WARNING, "a non-curtailable inflow may have nowhere to go (likely infeasible)", "NowhereToGo")
+NowhereToGo = _kind("P503", WARNING, "a non-curtailable supply may have nowhere to go (likely infeasible)", "NowhereToGo")
 RouteKindMismatch = _kind("P504", ERROR, "a route joins storages that cannot exchange what it carries", "RouteKindMismatch")
 DelayNotWhole = _kind("P505", ERROR, "a route delay is not a whole number of steps", "DelayNotWhole")
 RouteDuplicate = _kind("P506", ERROR, "a storage has two routes of the same kind (release and spill each go one way)", "RouteDuplicate")
 SpillNotAllowed = _kind("P507", ERROR, "a spill route leaves a storage that does not allow spill", "SpillNotAllowed")
 UnusedConnection = _kind("P508", WARNING, "a connection has no site attached", "UnusedConnection")
-EmptySite = _kind("P509", WARNING, "a site has no storage, inflow or demand", "EmptySite")
+EmptySite = _kind("P509", WARNING, "a site has no storage, supply or demand", "EmptySite")
 RouteToSelf = _kind("P510", ERROR, "a route leads from a storage back to itself", "RouteToSelf")
-InflowTargetElsewhere = _kind("P511", ERROR, "an inflow is sent into a storage at another site", "InflowTargetElsewhere")
+SupplyTargetElsewhere = _kind("P511", ERROR, "a supply is sent into a storage at another site", "SupplyTargetElsewhere")

@@ -2,7 +2,7 @@
 
 Our own visual style, explained in docs/graph.md and in the legend drawn on
 every picture.  Layers, top to bottom: connections, sites, then each site's
-storages, inflows and demands.  Edges are labelled with their limits.
+storages, supplies and demands.  Edges are labelled with their limits.
 Writing is atomic (temporary file, then rename).
 """
 
@@ -20,12 +20,12 @@ from . import model as M
 # kind -> (matplotlib marker, fill colour, words for the legend)
 NODE_STYLE = {
     "connection": ("h", "#3b3b3b", "grid connection"),
-    "site": ("s", "#9aa5b1", "site (bus)"),
+    "site": ("s", "#9aa5b1", "site (where its assets pool their power)"),
     M.KIND_BATTERY: ("o", "#2f6fdf", "battery storage"),
     M.KIND_RESERVOIR: ("o", "#1f9e89", "reservoir storage"),
     M.KIND_THERMAL: ("o", "#e0712c", "thermal storage"),
     "other": ("o", "#8c6bb1", "other storage"),
-    "inflow": ("^", "#f2c12e", "inflow (solar, river, heat)"),
+    "supply": ("^", "#f2c12e", "supply (solar, wind, river, heat)"),
     "demand": ("v", "#c0392b", "demand"),
 }
 
@@ -33,13 +33,13 @@ NODE_STYLE = {
 EDGE_STYLE = {
     "grid": ("#3b3b3b", "solid", "import / export"),
     "store": ("#2f6fdf", "solid", "charge / discharge"),
-    "supply": ("#d4a017", "dashed", "inflow supply"),
+    "feed": ("#d4a017", "dashed", "supply fed in"),
     "serve": ("#c0392b", "dotted", "demand served"),
     "route": ("#1f9e89", "solid", "route (label: kind, delay)"),
 }
 
 _EDGE_GROUP = {"export": "grid", "import": "grid", "charge": "store", "discharge": "store",
-               "supply": "supply", "natural": "supply", "serve": "serve"}
+               "feed": "feed", "natural": "feed", "serve": "serve"}
 
 
 def _style_key(attrs) -> str:
@@ -66,8 +66,8 @@ def edge_label(key: str, attrs) -> str:
 def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
     """Layers: connections (top), sites, then assets grouped under their site.
 
-    Within a site: each storage with its natural inflow beside it, then the
-    site's inflows, then its demands.
+    Within a site: each storage with its natural supply beside it, then the
+    site's supplies, then its demands.
     """
     conns = [n for n, a in g.nodes(data=True) if a["kind"] == "connection"]
     sites = [n for n, a in g.nodes(data=True) if a["kind"] == "site"]
@@ -77,12 +77,12 @@ def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
         for n, a in g.nodes(data=True):
             if a["kind"] == "storage" and getattr(a.get("decl"), "site", None) == site:
                 for u in g.predecessors(n):
-                    if g.nodes[u]["kind"] == "inflow" and g.nodes[u].get("natural") and u not in placed:
+                    if g.nodes[u]["kind"] == "supply" and g.nodes[u].get("natural") and u not in placed:
                         assets.append(u)
                         placed.add(u)
                 assets.append(n)
                 placed.add(n)
-        for kind in ("inflow", "demand"):
+        for kind in ("supply", "demand"):
             for n, a in g.nodes(data=True):
                 if a["kind"] == kind and n not in placed and getattr(a.get("decl"), "site", None) == site:
                     assets.append(n)
@@ -107,7 +107,7 @@ def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
 def _site_of(g, n):
     a = g.nodes[n]
     site = getattr(a.get("decl"), "site", None)
-    if site is None:  # a natural inflow: the site of its storage
+    if site is None:  # a natural supply: the site of its storage
         for m in g.successors(n):
             return getattr(g.nodes[m].get("decl"), "site", None)
     return site

@@ -1,9 +1,9 @@
 """Stage 3: checked model -> network graph, and the topology checks.
 
 A :class:`networkx.MultiDiGraph` whose nodes are the portfolio's connections,
-sites, storages, inflows (including a reservoir's natural inflow) and demands,
+sites, storages, supplies (including a reservoir's natural supply) and demands,
 and whose edges are every path energy or water can take.  Edge keys name the
-path (``export``, ``import``, ``charge``, ``discharge``, ``supply``,
+path (``export``, ``import``, ``charge``, ``discharge``, ``feed``,
 ``serve``, ``natural``, and the route kinds).  Every node and edge carries
 ``span``: the declaration it came from.
 """
@@ -17,7 +17,7 @@ import networkx as nx
 import numpy as np
 
 from . import model as M
-from .diagnostics import (EmptySite, InflowTargetElsewhere, NoPathToGrid, NowhereToGo, Sink,
+from .diagnostics import (EmptySite, NoPathToGrid, NowhereToGo, Sink, SupplyTargetElsewhere,
                           UnusedConnection, ZeroDelayCycle)
 
 
@@ -44,15 +44,15 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
             g.add_edge(k.name, k.site, key="discharge", span=k.where("discharge_max"), limit=k.discharge_max)
         if k.charge_max > 0:
             g.add_edge(k.site, k.name, key="charge", span=k.where("charge_max"), limit=k.charge_max)
-        if k.inflow:
-            g.add_node(k.inflow, kind="inflow", span=k.where("inflow"), decl=None, natural=True)
-            g.add_edge(k.inflow, k.name, key="natural", span=k.where("inflow"), limit=None)
-    for i in p.inflows.values():
-        g.add_node(i.name, kind="inflow", span=i.span, decl=i, natural=False)
+        if k.supply:
+            g.add_node(k.supply, kind="supply", span=k.where("supply"), decl=None, natural=True)
+            g.add_edge(k.supply, k.name, key="natural", span=k.where("supply"), limit=None)
+    for i in p.supplies.values():
+        g.add_node(i.name, kind="supply", span=i.span, decl=i, natural=False)
         for t in i.targets:
             dest = i.site if t == "site" else t
             limit = None if t == "site" else p.storages[t].charge_max if t in p.storages else None
-            g.add_edge(i.name, dest, key="supply", span=i.where("targets"), limit=limit)
+            g.add_edge(i.name, dest, key="feed", span=i.where("targets"), limit=limit)
     for d in p.demands.values():
         g.add_node(d.name, kind="demand", span=d.span, decl=d)
         g.add_edge(d.site, d.name, key="serve", span=d.span, limit=None)
@@ -63,13 +63,13 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
 
 
 def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
-    # Inflows sent into a storage at another site.
-    for i in p.inflows.values():
+    # Supplies sent into a storage at another site.
+    for i in p.supplies.values():
         for t in i.targets:
             if t != "site" and t in p.storages and p.storages[t].site != i.site:
-                sink.add(InflowTargetElsewhere, i.where("targets"),
-                         f"inflow '{i.name}' at site '{i.site}' cannot flow into '{t}', which is at site "
-                         f"'{p.storages[t].site}'", "note: an inflow feeds its own site or storages there; use a route between storages")
+                sink.add(SupplyTargetElsewhere, i.where("targets"),
+                         f"supply '{i.name}' at site '{i.site}' cannot flow into '{t}', which is at site "
+                         f"'{p.storages[t].site}'", "note: a supply feeds its own site or storages there; use a route between storages")
     # Reachability: walk backwards once from every connection and demand (a battery
     # behind an import-only connection may still serve its site's demand).
     reach = set()
@@ -87,8 +87,8 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                      "what it holds can never be used",
                      "note: give it a 'discharge max', a route to a storage that can discharge, or open its site's export")
     for n, a in g.nodes(data=True):
-        if a["kind"] == "inflow" and n not in reach:
-            sink.add(NoPathToGrid, a["span"], f"inflow '{n}' has no path to any connection or demand")
+        if a["kind"] == "supply" and n not in reach:
+            sink.add(NoPathToGrid, a["span"], f"supply '{n}' has no path to any connection or demand")
     # Zero-delay route cycles.
     zero = nx.DiGraph()
     for u, v, key, a in g.edges(keys=True, data=True):
@@ -108,16 +108,16 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
     for c in p.connections.values():
         if not p.sites_at(c.name):
             sink.add(UnusedConnection, c.span, f"connection '{c.name}' has no site attached")
-    busy = {x.site for x in (*p.storages.values(), *p.inflows.values(), *p.demands.values())}
+    busy = {x.site for x in (*p.storages.values(), *p.supplies.values(), *p.demands.values())}
     for s in p.sites.values():
         if s.name not in busy:
-            sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, inflow or demand")
+            sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, supply or demand")
     _check_nowhere_to_go(p, sink)
 
 
 def _check_nowhere_to_go(p: M.Portfolio, sink: Sink) -> None:
-    """Warn when a non-curtailable inflow can peak above what its targets can take."""
-    for i in p.inflows.values():
+    """Warn when a non-curtailable supply can peak above what its targets can take."""
+    for i in p.supplies.values():
         if i.curtail_allowed or i.profile not in p.series:
             continue
         peak = float(np.max(p.profile(i.profile))) if p.horizon.steps else 0.0
@@ -136,6 +136,6 @@ def _check_nowhere_to_go(p: M.Portfolio, sink: Sink) -> None:
                 absorb += p.storages[t].charge_max
         if peak > absorb + 1e-9:
             sink.add(NowhereToGo, i.span,
-                     f"inflow '{i.name}' peaks at {peak:.6g} MW but its targets can take at most {absorb:.6g} MW, "
+                     f"supply '{i.name}' peaks at {peak:.6g} MW but its targets can take at most {absorb:.6g} MW, "
                      "and it may not be curtailed: dispatch is likely infeasible",
-                     "note: add 'curtail allowed' to the inflow, or raise the limits it flows into")
+                     "note: add 'curtail allowed' to the supply, or raise the limits it flows into")

@@ -142,7 +142,7 @@ class Storage(Decl):
     site: str = ""
     kind: str = "other"
     energy: float = 0.0                  # MWh capacity
-    charge_max: float = 0.0              # MW, all charging: from the site and direct inflows (0: cannot charge)
+    charge_max: float = 0.0              # MW, all charging: from the site and direct supplies (0: cannot charge)
     discharge_max: float = 0.0           # MW
     charge_min: float = 0.0              # MW whenever charging (needs a binary)
     discharge_min: float = 0.0           # MW whenever discharging (needs a binary)
@@ -159,7 +159,7 @@ class Storage(Decl):
     min_run_h: float = 0.0               # minimum length of a discharge (or charge) run
     min_rest_h: float = 0.0              # minimum idle time between runs
     ramp_mw_per_h: Optional[float] = None  # limit on change of net output
-    inflow: Optional[str] = None         # power Series of natural inflow (MW)
+    supply: Optional[str] = None         # power Series of natural supply (MW)
     spill_allowed: bool = False
     spill_max: Optional[float] = None    # MW equivalent, None = unlimited
     # The state carried in from before the horizon ('was ...'); None: not declared, so idle
@@ -181,7 +181,7 @@ class Storage(Decl):
 
 
 @dataclass(frozen=True)
-class Inflow(Decl):
+class Supply(Decl):
     site: str = ""
     profile: str = ""                    # name of a power Series (MW available)
     targets: tuple = ()                  # storage names and/or "site"
@@ -223,7 +223,7 @@ class Portfolio:
     connections: Mapping[str, Connection]
     sites: Mapping[str, Site]
     storages: Mapping[str, Storage]
-    inflows: Mapping[str, Inflow]
+    supplies: Mapping[str, Supply]
     demands: Mapping[str, Demand]
     routes: tuple = ()
     cap: Optional[Cap] = None

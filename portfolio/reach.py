@@ -1,7 +1,7 @@
 """What the assets behind a site or a connection can physically move, per step.
 
 A site's net export can be no more than its storages' discharge limits plus
-what its sources deliver to its bus; its net import no more than its
+what its sources deliver to its site; its net import no more than its
 storages' charge limits plus its demands.  A connection's reach is the sum of
 its sites' (each within the site's own limits), within its own limits.
 
@@ -29,7 +29,7 @@ def site_reach(p: Portfolio, site: str) -> Tuple[np.ndarray, np.ndarray]:
         if s.site == site:
             out += s.discharge_max
             inn += s.charge_max
-    for f in p.inflows.values():
+    for f in p.supplies.values():
         if f.site == site and "site" in f.targets:
             out += p.profile(f.profile)
     for d in p.demands.values():

@@ -15,10 +15,10 @@ Conventions:
 
 Revenue attribution across a shared connection: each step the connection's
 net flow is valued at the sell price if it exports that step, else at the
-buy price.  Each asset's net injection into its site bus (storage:
-discharge - charge drawn from the bus; inflow: power delivered to the bus;
+buy price.  Each asset's net injection into its site (storage:
+discharge - charge drawn from the site; supply: power delivered to the site;
 demand: -demand) is valued at that same price, and a storage's wear is
-subtracted from its own revenue.  So the revenues of the storages, inflows
+subtracted from its own revenue.  So the revenues of the storages, supplies
 and demands add up to the objective; a site's revenue is the sum of its
 assets', a connection's revenue is its cashflow (before wear).
 """
@@ -39,8 +39,8 @@ CAUTION = ("Schedules are advisory. The plant's own protection systems, manufact
 
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "inflow_from_routes_mw", "outflow_to_routes_mw"],
-    "inflow": ["available_mw", "used_mw", "curtailed_mw"],
+                "routed_in_mw", "routed_out_mw"],
+    "supply": ["available_mw", "used_mw", "curtailed_mw"],
     "demand": ["demand_mw"],
     "site": ["import_mw", "export_mw"],
     "connection": ["import_mw", "export_mw", "sell_price", "buy_price", "cashflow"],
@@ -82,12 +82,12 @@ def build_tables(built, values: Dict[str, np.ndarray]):
 
     # -- storages and routes -------------------------------------------------
     charge, charge_site, discharge = {}, {}, {}
-    direct = built.expr.get("direct_inflows", {})
+    direct = built.expr.get("direct_supplies", {})
     for k in p.storages:
         charge_site[k] = arr("charge_site", k)
         total = charge_site[k].copy()
         for i in direct.get(k, ()):
-            total = total + arr("inflow_to", (i, k))
+            total = total + arr("supply_to", (i, k))
         charge[k] = total
         discharge[k] = arr("discharge", k)
 
@@ -128,23 +128,23 @@ def build_tables(built, values: Dict[str, np.ndarray]):
             "soc_mwh": clean(arr("soc", k)),
             "spill_mw": clean(arr("spill", k)),
             "mode": mode,
-            "inflow_from_routes_mw": clean(received[k] / dt),
-            "outflow_to_routes_mw": clean(sent[k] / dt),
+            "routed_in_mw": clean(received[k] / dt),
+            "routed_out_mw": clean(sent[k] / dt),
         }, index=index)
     for r in p.routes:
         tables[r.name] = pd.DataFrame({"flow_mw": clean(route_flow[r.name]),
                                        "arriving_mw": clean(route_arrive[r.name])}, index=index)
 
-    # -- inflows, demands ------------------------------------------------------
-    used_bus = {}
-    for name, f in p.inflows.items():
+    # -- supplies, demands ------------------------------------------------------
+    supply_site = {}
+    for name, f in p.supplies.items():
         avail = p.profile(f.profile)
-        bus = arr("used_bus", name)
-        used = bus.copy()
+        to_site = arr("supply_site", name)
+        used = to_site.copy()
         for k in f.targets:
             if k != "site":
-                used = used + arr("inflow_to", (name, k))
-        used_bus[name] = bus
+                used = used + arr("supply_to", (name, k))
+        supply_site[name] = to_site
         tables[name] = pd.DataFrame({"available_mw": clean(avail), "used_mw": clean(used),
                                      "curtailed_mw": clean(arr("curtailed", name))}, index=index)
     for name, dmd in p.demands.items():
@@ -170,7 +170,7 @@ def build_tables(built, values: Dict[str, np.ndarray]):
             return np.zeros(T)
         return step_price[site.connection]
 
-    storages, inflows, demands, sites, connections, routes = {}, {}, {}, {}, {}, {}
+    storages, supplies, demands, sites, connections, routes = {}, {}, {}, {}, {}, {}
     site_rev = {s: 0.0 for s in p.sites}
     for k, s in p.storages.items():
         pr = site_price(s.site)
@@ -183,11 +183,11 @@ def build_tables(built, values: Dict[str, np.ndarray]):
         storages[k]["soc_end_mwh"] = float(clean(arr("soc", k))[-1]) if T else s.soc_start
         if s.site in site_rev:
             site_rev[s.site] += rev
-    for name, f in p.inflows.items():
+    for name, f in p.supplies.items():
         pr = site_price(f.site)
-        rev = float(np.sum(dt * pr * clean(used_bus[name])))
+        rev = float(np.sum(dt * pr * clean(supply_site[name])))
         t = tables[name]
-        inflows[name] = _asset(rev, float(t["available_mw"].sum()) * dt, float(t["used_mw"].sum()) * dt,
+        supplies[name] = _asset(rev, float(t["available_mw"].sum()) * dt, float(t["used_mw"].sum()) * dt,
                                None, float(t["curtailed_mw"].sum()) * dt, 0.0)
         if f.site in site_rev:
             site_rev[f.site] += rev
@@ -209,7 +209,7 @@ def build_tables(built, values: Dict[str, np.ndarray]):
     for r in p.routes:
         routes[r.name] = {"in_transit_end_mwh": float(clean(np.array([route_transit[r.name]]))[0]),
                           "flow_mwh": float(clean(np.array([route_flow[r.name].sum() * dt]))[0])}
-    parts = {"storages": storages, "inflows": inflows, "demands": demands, "sites": sites,
+    parts = {"storages": storages, "supplies": supplies, "demands": demands, "sites": sites,
              "connections": connections, "routes": routes}
     return tables, parts
 

@@ -44,8 +44,8 @@ MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 # portfolio.schedule: if the writer's columns drift from the documented contract, the audit fails.
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "inflow_from_routes_mw", "outflow_to_routes_mw"],
-    "inflow": ["available_mw", "used_mw", "curtailed_mw"],
+                "routed_in_mw", "routed_out_mw"],
+    "supply": ["available_mw", "used_mw", "curtailed_mw"],
     "demand": ["demand_mw"],
     "site": ["import_mw", "export_mw"],
     "connection": ["import_mw", "export_mw", "sell_price", "buy_price", "cashflow"],
@@ -148,8 +148,8 @@ class _Audit:
         kinds = {}
         for n in p.storages:
             kinds[n] = "storage"
-        for n in p.inflows:
-            kinds[n] = "inflow"
+        for n in p.supplies:
+            kinds[n] = "supply"
         for n in p.demands:
             kinds[n] = "demand"
         for n in p.sites:
@@ -167,8 +167,8 @@ class _Audit:
             self.check_storage_limits(s)
             self.check_modes(s)
         self.check_routes_and_balances()
-        for i in p.inflows.values():
-            self.check_inflow(i)
+        for i in p.supplies.values():
+            self.check_supply(i)
         for d in p.demands.values():
             self.close(d.name, "demand_mw", self.col(d.name, "demand_mw"), p.profile(d.profile))
         self.check_sites()
@@ -231,8 +231,8 @@ class _Audit:
         c, d = self.col(n, "charge_mw"), self.col(n, "discharge_mw")
         soc, q = self.col(n, "soc_mwh"), self.col(n, "spill_mw")
         for what, v in (("charge_mw", c), ("discharge_mw", d), ("spill_mw", q),
-                        ("inflow_from_routes_mw", self.col(n, "inflow_from_routes_mw")),
-                        ("outflow_to_routes_mw", self.col(n, "outflow_to_routes_mw"))):
+                        ("routed_in_mw", self.col(n, "routed_in_mw")),
+                        ("routed_out_mw", self.col(n, "routed_out_mw"))):
             self.at_least(n, f"{what} negative", v, 0.0)
         self.at_most(n, "charge above charge max", c, s.charge_max)
         self.at_most(n, "discharge above discharge max", d, s.discharge_max)
@@ -328,11 +328,11 @@ class _Audit:
                 self.money(r.name, "summary in_transit_end_mwh", got, want, out[max(T - D, 0):])
         for s in p.storages.values():
             n = s.name
-            self.close(n, "inflow_from_routes_mw", self.col(n, "inflow_from_routes_mw"), arrive_mwh[n] / dt)
-            self.close(n, "outflow_to_routes_mw", self.col(n, "outflow_to_routes_mw"), out_mwh[n] / dt)
+            self.close(n, "routed_in_mw", self.col(n, "routed_in_mw"), arrive_mwh[n] / dt)
+            self.close(n, "routed_out_mw", self.col(n, "routed_out_mw"), out_mwh[n] / dt)
             c, d = self.col(n, "charge_mw"), self.col(n, "discharge_mw")
             soc, q = self.col(n, "soc_mwh"), self.col(n, "spill_mw")
-            nat = p.profile(s.inflow) if s.inflow else np.zeros(T)
+            nat = p.profile(s.supply) if s.supply else np.zeros(T)
             prev = np.r_[s.soc_start, soc[:-1]] * (1.0 - s.loss_per_h) ** dt
             terms = [prev, s.eta_charge * c * dt, d * dt / s.eta_discharge, q * dt, nat * dt,
                      arrive_mwh[n], transfer_mwh[n]]
@@ -340,8 +340,8 @@ class _Audit:
             scale = np.max(np.abs(np.vstack(terms + [soc])), axis=0)
             self.close(n, "energy balance (soc)", soc, want, scale=scale)
 
-    # inflows, sites, connections ------------------------------------------------------------
-    def check_inflow(self, i) -> None:
+    # supplies, sites, connections ------------------------------------------------------------
+    def check_supply(self, i) -> None:
         n = i.name
         avail, used, cur = (self.col(n, c) for c in ("available_mw", "used_mw", "curtailed_mw"))
         self.close(n, "available_mw vs the declared profile", avail, self.p.profile(i.profile))
@@ -367,7 +367,7 @@ class _Audit:
                 self.at_most(n, "import above the site's import max", imp, s.import_max)
             terms = [imp, exp]
             inj = np.zeros(T)
-            for i in p.inflows.values():
+            for i in p.supplies.values():
                 if i.site == n:
                     inj = inj + self.col(i.name, "used_mw")
                     terms.append(self.col(i.name, "used_mw"))
@@ -384,14 +384,14 @@ class _Audit:
             self.check_split(s)
 
     def check_split(self, site) -> None:
-        """Inflow fed straight into stores: can used_mw be split among its targets?
+        """Supply fed straight into stores: can used_mw be split among its targets?
 
-        Per step, a flow problem: each inflow's used power goes to its target
-        stores (at most their total charge) or, if "site" is a target, to the bus.
+        Per step, a flow problem: each supply's used power goes to its target
+        stores (at most their total charge) or, if "site" is a target, to the site.
         """
         import networkx as nx
         p = self.p
-        infl = [i for i in p.inflows.values() if i.site == site.name and any(t != "site" for t in i.targets)]
+        infl = [i for i in p.supplies.values() if i.site == site.name and any(t != "site" for t in i.targets)]
         if not infl:
             return
         for t in range(self.T):
@@ -403,13 +403,13 @@ class _Audit:
                 g.add_edge("src", ("i", i.name), capacity=u)
                 for tg in i.targets:
                     if tg == "site":
-                        g.add_edge(("i", i.name), "sink")     # unbounded: the bus takes the rest
+                        g.add_edge(("i", i.name), "sink")     # unbounded: the site takes the rest
                     else:
                         g.add_edge(("i", i.name), ("k", tg))
                         g.add_edge(("k", tg), "sink", capacity=max(float(self.col(tg, "charge_mw")[t]), 0.0))
             got = nx.maximum_flow_value(g, "src", "sink")
             if need - got > self.tol * max(1.0, need):
-                self.bad(f"{site.name}: at {self.times[t]} inflows fed straight into stores "
+                self.bad(f"{site.name}: at {self.times[t]} supplies fed straight into stores "
                          f"({need:.9g} MW used) cannot be split among their targets "
                          f"(at most {got:.9g} MW fits)")
                 return
@@ -495,8 +495,8 @@ class _Audit:
             if "soc_end_mwh" in e and T:
                 self.money(s.name, "summary soc_end_mwh", e["soc_end_mwh"],
                            float(self.col(s.name, "soc_mwh")[-1]), [self.col(s.name, "soc_mwh")[-1]])
-        for i in p.inflows.values():
-            e = entry("inflows", i.name)
+        for i in p.supplies.values():
+            e = entry("supplies", i.name)
             if e is None:
                 continue
             for key, colname in (("energy_in_mwh", "available_mw"), ("energy_out_mwh", "used_mw"),
@@ -526,7 +526,7 @@ class _Audit:
         for site in p.sites.values():
             pr = price.get(site.connection, np.zeros(T))
             site_rev, site_terms = 0.0, []
-            direct = {k for i in p.inflows.values() if i.site == site.name for k in i.targets if k != "site"}
+            direct = {k for i in p.supplies.values() if i.site == site.name for k in i.targets if k != "site"}
             group_got, group_want, group_terms = 0.0, 0.0, []
             for k in p.storages_at(site.name):
                 e = entry("storages", k.name)
@@ -534,7 +534,7 @@ class _Audit:
                 terms = np.r_[dt * pr * d, dt * pr * c, k.wear * d * dt]
                 want = float(np.sum(dt * pr * (d - c))) - k.wear * float(d.sum()) * dt
                 got = e["revenue"] if e else None
-                if k.name in direct:        # its own charge includes inflow: check as a group
+                if k.name in direct:        # its own charge includes supply: check as a group
                     group_want += want
                     group_terms.append(terms)
                     group_got = None if got is None or group_got is None else group_got + got
@@ -542,10 +542,10 @@ class _Audit:
                     self.money(k.name, "summary revenue (attribution)", got, want, terms)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(terms)
-            for i in p.inflows.values():
+            for i in p.supplies.values():
                 if i.site != site.name:
                     continue
-                e = entry("inflows", i.name)
+                e = entry("supplies", i.name)
                 u = self.col(i.name, "used_mw")
                 want = float(np.sum(dt * pr * u))
                 got = e["revenue"] if e else None
@@ -568,7 +568,7 @@ class _Audit:
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * v)
             if group_terms:
-                self.money(site.name, "summary revenue of the stores and inflows that feed them "
+                self.money(site.name, "summary revenue of the stores and supplies that feed them "
                            "(attribution, as a group)", group_got, group_want, np.concatenate(group_terms))
             e = entry("sites", site.name)
             flat = np.concatenate([np.ravel(x) for x in site_terms]) if site_terms else []

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from portfolio.model import (END_AT_LEAST, END_EQUAL, END_FREE, Cap, Connection, Demand, Horizon,
-                             Inflow, Portfolio, PriceExpr, Route, Series, Site, Storage,
+                             Portfolio, PriceExpr, Route, Series, Site, Storage, Supply,
                              rules_make_exclusive)
 from portfolio.spans import Span
 
@@ -27,7 +27,7 @@ PATH = "factory.folio"
 _lines = itertools.count(1)
 
 __all__ = ["END_AT_LEAST", "END_EQUAL", "END_FREE", "span", "series", "price", "storage",
-           "site", "connection", "inflow", "demand", "route", "cap", "portfolio", "market"]
+           "site", "connection", "supply", "demand", "route", "cap", "portfolio", "market"]
 
 
 def span(line: Optional[int] = None, col: int = 1) -> Span:
@@ -77,9 +77,9 @@ def connection(name: str = "grid", *, sell: Optional[PriceExpr] = None,
     return Connection(name=name, sell=sell, buy=buy, **kw, **_decl_kw(at, where))
 
 
-def inflow(name: str, profile: str, site: str = "site", targets: Iterable[str] = ("site",),
-           *, at=None, where=None, **kw) -> Inflow:
-    return Inflow(name=name, site=site, profile=profile, targets=tuple(targets), **kw,
+def supply(name: str, profile: str, site: str = "site", targets: Iterable[str] = ("site",),
+           *, at=None, where=None, **kw) -> Supply:
+    return Supply(name=name, site=site, profile=profile, targets=tuple(targets), **kw,
                   **_decl_kw(at, where))
 
 
@@ -97,7 +97,7 @@ def cap(name: str = "cap", *, at=None, where=None, **kw) -> Cap:
 
 
 def portfolio(steps: int, *, step_hours: float = 1.0, start: str = "2027-03-01T00:00:00",
-              zone: str = "UTC", storages: Sequence[Storage] = (), inflows: Sequence[Inflow] = (),
+              zone: str = "UTC", storages: Sequence[Storage] = (), supplies: Sequence[Supply] = (),
               demands: Sequence[Demand] = (), sites: Optional[Sequence[Site]] = None,
               connections: Optional[Sequence[Connection]] = None, routes: Sequence[Route] = (),
               cap: Optional[Cap] = None, series_list: Sequence[Series] = (),
@@ -119,7 +119,7 @@ def portfolio(steps: int, *, step_hours: float = 1.0, start: str = "2027-03-01T0
         connections={c.name: c for c in connections},
         sites={s.name: s for s in sites},
         storages={s.name: s for s in storages},
-        inflows={i.name: i for i in inflows},
+        supplies={i.name: i for i in supplies},
         demands={d.name: d for d in demands},
         routes=tuple(routes), cap=cap, span=span(),
     )
@@ -128,7 +128,7 @@ def portfolio(steps: int, *, step_hours: float = 1.0, start: str = "2027-03-01T0
 def market(prices: Sequence[float], storages: Sequence[Storage] = (), *,
            buy: Optional[Sequence[float]] = None, step_hours: float = 1.0,
            connection_kw: Optional[dict] = None, site_kw: Optional[dict] = None,
-           extra_series: Sequence[Series] = (), inflows: Sequence[Inflow] = (),
+           extra_series: Sequence[Series] = (), supplies: Sequence[Supply] = (),
            demands: Sequence[Demand] = (), routes: Sequence[Route] = (),
            start: str = "2027-03-01T00:00:00", zone: str = "UTC") -> Portfolio:
     """One site on one connection selling at ``prices`` and buying at ``buy``
@@ -139,6 +139,6 @@ def market(prices: Sequence[float], storages: Sequence[Storage] = (), *,
         sl.append(series("buy_price", buy, "price"))
     conn = connection(sell=price("sell_price"), buy=price("buy_price" if buy is not None else "sell_price"),
                       **(connection_kw or {}))
-    return portfolio(n, step_hours=step_hours, storages=storages, inflows=inflows, demands=demands,
+    return portfolio(n, step_hours=step_hours, storages=storages, supplies=supplies, demands=demands,
                      routes=routes, sites=[site(**(site_kw or {}))], connections=[conn],
                      series_list=sl + list(extra_series), start=start, zone=zone)

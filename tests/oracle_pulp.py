@@ -11,7 +11,7 @@ optimal, per-step values in ``values`` (numpy arrays keyed by
 
 Formulation choices (all follow the conventions):
 
-* the storage's total charge is ``charge_site + sum(direct inflow)``;
+* the storage's total charge is ``charge_site + sum(direct supply)``;
 * modes: one binary when the storage is only exclusive, else one binary per
   mode it can use; start-up / shut-down variables are continuous in [0, 1]
   (the mode binaries make them integral at an optimum; larger values only
@@ -67,7 +67,7 @@ def _safe_bound(p: Portfolio, conn_name: str) -> float:
     for s in p.sites_at(conn_name):
         for k in p.storages_at(s.name):
             total += k.charge_max + k.discharge_max
-        for i in p.inflows.values():
+        for i in p.supplies.values():
             if i.site == s.name:
                 total += float(np.max(np.abs(p.profile(i.profile)), initial=0.0))
         for d in p.demands.values():
@@ -101,16 +101,16 @@ def build_oracle(p: Portfolio):
         count[0] += 1
         prob.addConstraint(expr, name=f"c{count[0]}_{label}")
 
-    # -- inflows -------------------------------------------------------------
-    # used[i][target] per step; target "site" is the bus
+    # -- supplies -------------------------------------------------------------
+    # used[i][target] per step; target "site" is the site itself
     used: Dict[str, Dict[str, list]] = {}
-    for i in p.inflows.values():
+    for i in p.supplies.values():
         avail = p.profile(i.profile)
         used[i.name] = {tg: cont("used", f"{i.name}__{tg}") for tg in i.targets}
         cur = cont("curtailed", i.name, hi=None if i.curtail_allowed else 0.0)
         for t in steps:
             add(pulp.lpSum(used[i.name][tg][t] for tg in i.targets) + cur[t] == float(avail[t]),
-                f"inflow_{i.name}")
+                f"supply_{i.name}")
 
     # -- storages: flows -----------------------------------------------------
     cs, d, q, c_total, soc = {}, {}, {}, {}, {}
@@ -119,7 +119,7 @@ def build_oracle(p: Portfolio):
         d[k.name] = cont("discharge", k.name, hi=k.discharge_max)
         q[k.name] = cont("spill", k.name, hi=(k.spill_max if k.spill_allowed else 0.0))
         soc[k.name] = cont("soc", k.name, lo=k.soc_min, hi=k.soc_max)
-        direct = [used[i.name][k.name] for i in p.inflows.values() if k.name in i.targets]
+        direct = [used[i.name][k.name] for i in p.supplies.values() if k.name in i.targets]
         c_total[k.name] = [cs[k.name][t] + pulp.lpSum(u[t] for u in direct) for t in steps]
         for t in steps:
             add(c_total[k.name][t] <= k.charge_max, f"charge_max_{k.name}")
@@ -147,7 +147,7 @@ def build_oracle(p: Portfolio):
     # -- storages: energy balance ------------------------------------------------
     for k in p.storages.values():
         keep = (1.0 - k.loss_per_h) ** dt
-        nat = p.profile(k.inflow) if k.inflow else np.zeros(T)
+        nat = p.profile(k.supply) if k.supply else np.zeros(T)
         ins = [r for r in p.routes if r.target == k.name]
         outs = [r for r in p.routes if r.source == k.name and r.kind == "transfer"]
         for t in steps:
@@ -247,10 +247,10 @@ def build_oracle(p: Portfolio):
         se[s.name] = cont("site_export", s.name, hi=s.export_max)
         si[s.name] = cont("site_import", s.name, hi=s.import_max)
         stores = p.storages_at(s.name)
-        bus_inflows = [i for i in p.inflows.values() if i.site == s.name and "site" in i.targets]
+        site_supplies = [i for i in p.supplies.values() if i.site == s.name and "site" in i.targets]
         dem = [p.profile(dm.profile) for dm in p.demands.values() if dm.site == s.name]
         for t in steps:
-            add(pulp.lpSum(used[i.name]["site"][t] for i in bus_inflows)
+            add(pulp.lpSum(used[i.name]["site"][t] for i in site_supplies)
                 + pulp.lpSum(d[k.name][t] for k in stores) + si[s.name][t]
                 == pulp.lpSum(cs[k.name][t] for k in stores) + float(sum(x_[t] for x_ in dem))
                 + se[s.name][t], f"site_{s.name}")
@@ -296,7 +296,7 @@ def solve_oracle(p: Portfolio, time_limit: Optional[float] = 120.0) -> OracleRes
         # bundled CBC is exactly what this oracle wants.
         warnings.simplefilter("ignore", DeprecationWarning)
         # CBC's mixed-integer rounding cuts ("mixed") are off: on random single-site seed 15
-        # (a store with a minimum charge, exclusive modes and a direct inflow) CBC with them
+        # (a store with a minimum charge, exclusive modes and a direct supply) CBC with them
         # reported "Optimal" at 4425.10 while the schedule HiGHS found, with its modes fixed in
         # this very model, is feasible at 4433.26; without them CBC finds 4433.26, no slower
         # over all random seeds (7.4 s against 7.8 s in total, measured once).

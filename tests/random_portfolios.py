@@ -5,8 +5,8 @@ default_rng):
 
 * :func:`single_site` — one site on one connection, 2-4 storages, 24-48
   steps, random limits and operating rules (exclusive modes, min output when
-  running, min run, min rest, ramp, loss, wear, spill, natural inflow),
-  inflows into storages and/or the site bus with or without curtailment,
+  running, min run, min rest, ramp, loss, wear, spill, natural supply),
+  supplies into storages and/or the site with or without curtailment,
   demands, site and connection limits, direction exclusive, buy/sell spreads
   (including steps where buying is cheaper than selling).
 * :func:`linked` — 2-3 sites on 1-2 connections, routes (release, spill,
@@ -18,11 +18,11 @@ To keep zero-gap solves quick, a storage draws at most two integer rules
 (exclusive, min output, min run, min rest; a min run usually brings a min
 output along, so that it binds), and only one or two storages of a
 single-site portfolio (about half of a linked one's) draw any.  A few seeds
-come out infeasible (tight end rules, inflows that may not be curtailed);
+come out infeasible (tight end rules, supplies that may not be curtailed);
 the tests then only ask that both solvers say so.
 
 Every portfolio satisfies what the front end's checks would demand (route
-kinds, one release/spill route per source, no zero-delay cycles, inflows
+kinds, one release/spill route per source, no zero-delay cycles, supplies
 only into storages at their own site, rest implies exclusive, whole-step
 rules); :func:`topology_errors` runs the graph checks to confirm it.  (Not
 quite: five of their seeds give a storage a run rule without exclusive
@@ -42,7 +42,7 @@ or rest rule exclusive modes, as a ``.folio`` file would, and
   minimum output;
 * :func:`limits` — several sites and connections: site limits inside
   connection limits, a portfolio-wide cap, the direction rule, buying below
-  selling, negative prices, inflows into stores and buses, demands,
+  selling, negative prices, supplies into stores and sites, demands,
   transfers.
 
 :func:`features` names the rules a portfolio exercises, so tests can ask
@@ -154,7 +154,7 @@ def _storage(rng, name, site, dt, T, series_out, kind=None, *, can_charge=True, 
     if natural:
         nat = f"{name}_nat"
         series_out.append(_flat(rng, T, nat, 0.0, 0.3 * max(dmax, 0.5)))
-        kw["inflow"] = nat
+        kw["supply"] = nat
     if front_end and (kw.get("charge_min", 0) > 0 or kw.get("discharge_min", 0) > 0
                       or kw.get("min_run_h", 0) > 0 or kw.get("min_rest_h", 0) > 0):
         kw["exclusive"] = True
@@ -206,7 +206,7 @@ def single_site(seed: int, front_end: bool = False) -> Portfolio:
     n = int(rng.integers(2, 5))
     ruled = set(rng.choice(n, size=int(rng.choice([1, 1, 2])), replace=False).tolist())  # integer rules on 1-2 storages
     for j in range(n):
-        if rng.random() < 0.25:                    # a small reservoir: natural inflow, no charging
+        if rng.random() < 0.25:                    # a small reservoir: natural supply, no charging
             stores.append(_storage(rng, f"s{j}", "site", dt, T, sl, "reservoir", can_charge=False,
                                    natural=True, spill=rng.random() < 0.8, integer_rules=j in ruled,
                                    front_end=front_end))
@@ -214,7 +214,7 @@ def single_site(seed: int, front_end: bool = False) -> Portfolio:
             stores.append(_storage(rng, f"s{j}", "site", dt, T, sl,
                                    natural=rng.random() < 0.15, integer_rules=j in ruled,
                                    front_end=front_end))
-    inflows = []
+    supplies = []
     chargeable = [s.name for s in stores if s.charge_max > 0]
     for j in range(int(rng.integers(0, 3))):
         nm = f"pv{j}"
@@ -225,13 +225,13 @@ def single_site(seed: int, front_end: bool = False) -> Portfolio:
         if chargeable and (rng.random() < 0.6 or not targets):
             picks = rng.choice(chargeable, size=int(rng.integers(1, len(chargeable) + 1)), replace=False)
             targets.extend(str(x) for x in picks)
-        inflows.append(F.inflow(nm, f"{nm}_mw", targets=targets, curtail_allowed=bool(rng.random() < 0.7)))
+        supplies.append(F.supply(nm, f"{nm}_mw", targets=targets, curtail_allowed=bool(rng.random() < 0.7)))
     demands = []
     if rng.random() < 0.5:
         sl.append(_flat(rng, T, "load_mw", 0.2, 1.2))
         demands.append(F.demand("load", "load_mw"))
     conn = F.connection("grid", sell=F.price("sell_price"), buy=buy, **ckw)
-    return F.portfolio(T, step_hours=dt, storages=stores, inflows=inflows, demands=demands,
+    return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=[F.site("site", "grid", **skw)], connections=[conn], series_list=sl,
                        name=f"single{'_fe' if front_end else ''}_{seed}")
 
@@ -255,7 +255,7 @@ def linked(seed: int, front_end: bool = False) -> Portfolio:
             ckw["exclusive"] = True
         buy = F.price(f"sell{c}", float(rng.choice([0.0, 3.0, 10.0, -2.0])))
         conns.append(F.connection(f"c{c}", sell=F.price(f"sell{c}"), buy=buy, **ckw))
-    sites, stores, inflows, demands = [], [], [], []
+    sites, stores, supplies, demands = [], [], [], []
     for s in range(n_site):
         cn = conns[s % n_conn] if s < n_conn else conns[int(rng.integers(0, n_conn))]
         skw = {}
@@ -285,7 +285,7 @@ def linked(seed: int, front_end: bool = False) -> Portfolio:
             sl.append(_solar(rng, T, dt, f"{nm}_mw", _r(rng.uniform(0.5, 3))))
             own = [k.name for k in stores if k.site == sname and k.charge_max > 0]
             targets = ["site"] + ([own[0]] if own and rng.random() < 0.5 else [])
-            inflows.append(F.inflow(nm, f"{nm}_mw", site=sname, targets=targets,
+            supplies.append(F.supply(nm, f"{nm}_mw", site=sname, targets=targets,
                                     curtail_allowed=bool(rng.random() < 0.8)))
         if rng.random() < 0.4:
             nm = f"{sname}_load"
@@ -321,7 +321,7 @@ def linked(seed: int, front_end: bool = False) -> Portfolio:
         if rng.random() < 0.5:
             ckw["import_max"] = _r(rng.uniform(2, 8), 2)
         cap = F.cap("total", **ckw)
-    return F.portfolio(T, step_hours=dt, storages=stores, inflows=inflows, demands=demands,
+    return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=sites, connections=conns, routes=routes, cap=cap, series_list=sl,
                        name=f"linked{'_fe' if front_end else ''}_{seed}")
 
@@ -379,8 +379,8 @@ def _nested_site(rng, name, conn, p=0.5, share=(0.4, 0.9)):
     return F.site(name, conn.name, **kw)
 
 
-def _site_extras(rng, T, dt, sl, site, stores, inflows, demands, p_pv, p_demand):
-    """Maybe solar into the site's bus and/or its chargeable stores (curtailable
+def _site_extras(rng, T, dt, sl, site, stores, supplies, demands, p_pv, p_demand):
+    """Maybe solar into the site and/or its chargeable stores (curtailable
     or not), and maybe a demand."""
     if rng.random() < p_pv:
         nm = f"{site}_pv"
@@ -389,7 +389,7 @@ def _site_extras(rng, T, dt, sl, site, stores, inflows, demands, p_pv, p_demand)
         targets = ["site"] if rng.random() < 0.7 or not own else []
         if own and (rng.random() < 0.5 or not targets):
             targets.append(str(rng.choice(own)))
-        inflows.append(F.inflow(nm, f"{nm}_mw", site=site, targets=targets,
+        supplies.append(F.supply(nm, f"{nm}_mw", site=site, targets=targets,
                                 curtail_allowed=bool(rng.random() < 0.7)))
     if rng.random() < p_demand:
         nm = f"{site}_load"
@@ -417,15 +417,15 @@ def modes(seed: int) -> Portfolio:
     sl: list = []
     conn = _connection(rng, T, sl, "grid", limits=(2.0, 8.0), p_limit=0.5)
     site = _nested_site(rng, "site", conn, p=0.3)
-    stores, inflows, demands = [], [], []
+    stores, supplies, demands = [], [], []
     for j in range(int(rng.integers(1, 4))):
         kind = str(rng.choice(["battery", "thermal", "other", "reservoir"]))
         rules = MODE_RULES[int(rng.integers(len(MODE_RULES)))] if j < 2 else ()
         stores.append(_storage(rng, f"m{j}", "site", dt, T, sl, kind, can_charge=kind != "reservoir",
                                natural=kind == "reservoir" or rng.random() < 0.1, rules=rules,
                                front_end=True))
-    _site_extras(rng, T, dt, sl, "site", stores, inflows, demands, p_pv=0.4, p_demand=0.4)
-    return F.portfolio(T, step_hours=dt, storages=stores, inflows=inflows, demands=demands,
+    _site_extras(rng, T, dt, sl, "site", stores, supplies, demands, p_pv=0.4, p_demand=0.4)
+    return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=[site], connections=[conn], series_list=sl, name=f"modes_{seed}")
 
 
@@ -444,7 +444,7 @@ def cascade(seed: int) -> Portfolio:
     n_res = int(rng.integers(2, 5))
     n_site = int(rng.integers(n_conn, min(n_res, 3) + 1))
     sites = [_nested_site(rng, f"site{s}", conns[s % n_conn]) for s in range(n_site)]
-    stores, inflows, demands, routes = [], [], [], []
+    stores, supplies, demands, routes = [], [], [], []
     ruled = 0
     for j in range(n_res):
         r = rng.random()
@@ -466,9 +466,9 @@ def cascade(seed: int) -> Portfolio:
         if rng.random() < 0.15:
             routes.append(_route(rng, src, "transfer", stores[int(rng.integers(j + 1, n_res))], max_delay=4))
     for s in sites:
-        _site_extras(rng, T, dt, sl, s.name, stores, inflows, demands, p_pv=0.3, p_demand=0.3)
+        _site_extras(rng, T, dt, sl, s.name, stores, supplies, demands, p_pv=0.3, p_demand=0.3)
     cap = _cap(rng, conns) if rng.random() < (0.7 if n_conn > 1 else 0.2) else None
-    return F.portfolio(T, step_hours=dt, storages=stores, inflows=inflows, demands=demands,
+    return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=sites, connections=conns, routes=routes, cap=cap, series_list=sl,
                        name=f"cascade_{seed}")
 
@@ -477,7 +477,7 @@ def limits(seed: int) -> Portfolio:
     """2-4 sites on 1-3 connections, 1-2 storages a site: site limits inside
     their connection's (which together they may exceed), a portfolio-wide
     cap, the direction rule, buying below selling, negative prices, solar
-    into stores and buses, demands, transfers between thermal stores (also
+    into stores and sites, demands, transfers between thermal stores (also
     across sites); few integer rules."""
     rng = np.random.default_rng(40000 + seed)
     T = int(rng.integers(24, 41))
@@ -489,13 +489,13 @@ def limits(seed: int) -> Portfolio:
     n_site = int(rng.integers(max(2, n_conn), 5))
     sites = [_nested_site(rng, f"site{s}", conns[s if s < n_conn else int(rng.integers(0, n_conn))],
                           p=0.6, share=(0.5, 1.0)) for s in range(n_site)]
-    stores, inflows, demands, routes = [], [], [], []
+    stores, supplies, demands, routes = [], [], [], []
     for s in sites:
         for j in range(int(rng.integers(1, 3))):
             kind = str(rng.choice(["battery", "thermal", "thermal", "other"]))
             stores.append(_storage(rng, f"{s.name}_{kind}{j}", s.name, dt, T, sl, kind,
                                    integer_rules=rng.random() < 0.3, front_end=True))
-        _site_extras(rng, T, dt, sl, s.name, stores, inflows, demands, p_pv=0.6, p_demand=0.4)
+        _site_extras(rng, T, dt, sl, s.name, stores, supplies, demands, p_pv=0.6, p_demand=0.4)
     for a, src in enumerate(stores):
         for dst in stores[a + 1:]:
             if src.kind == dst.kind == "thermal" and rng.random() < 0.5:
@@ -503,7 +503,7 @@ def limits(seed: int) -> Portfolio:
             elif src.kind == dst.kind == "other" and rng.random() < 0.3:
                 routes.append(_route(rng, src, str(rng.choice(["release", "transfer"])), dst))
     cap = _cap(rng, conns) if rng.random() < 0.7 else None
-    return F.portfolio(T, step_hours=dt, storages=stores, inflows=inflows, demands=demands,
+    return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=sites, connections=conns, routes=routes, cap=cap, series_list=sl,
                        name=f"limits_{seed}")
 
@@ -539,13 +539,13 @@ def features(p: Portfolio) -> Set[str]:
             ("discharge_min", k.discharge_min > 0), ("min_run", k.min_run_h > 0),
             ("min_rest", k.min_rest_h > 0), ("ramp", k.ramp_mw_per_h is not None),
             ("loss", k.loss_per_h > 0), ("wear", k.wear > 0), ("spill", k.spill_allowed),
-            ("spill_max", k.spill_max is not None), ("natural", k.inflow is not None),
+            ("spill_max", k.spill_max is not None), ("natural", k.supply is not None),
             ("end_equal", k.end_rule == "equal"), ("end_at_least", k.end_rule == "at_least"),
             ("run_with_min", k.min_run_h > 0 and (k.charge_min > 0 or k.discharge_min > 0)),
             ("run_and_rest", k.min_run_h > 0 and k.min_rest_h > 0),
             ("pumped", k.kind == "reservoir" and k.charge_max > 0
              and any(r.target == k.name for r in p.routes))) if on}
-    for i in p.inflows.values():
+    for i in p.supplies.values():
         seen |= {n for n, on in (("into_site", "site" in i.targets),
                                  ("into_store", any(t != "site" for t in i.targets)),
                                  ("curtail", i.curtail_allowed),

@@ -66,10 +66,10 @@ def _tamper_case():
                    soc_start=4.0, spill_allowed=True)
     low = F.storage("low", kind="reservoir", energy=6.0, power=None, discharge_max=2.0)
     rt = F.route("up_release_to_low", "up", "low", delay_steps=1, factor=0.8, in_transit=0.4)
-    pv = F.inflow("pv", "pv_mw")
+    pv = F.supply("pv", "pv_mw")
     load_ = F.demand("load", "load_mw")
     solar = np.round(np.clip(np.sin((np.arange(T) - 2) / 8 * np.pi), 0, None) * 1.5, 3)
-    return F.market(prices, [bat, up, low], inflows=[pv], demands=[load_], routes=[rt],
+    return F.market(prices, [bat, up, low], supplies=[pv], demands=[load_], routes=[rt],
                     connection_kw=dict(export_max=6.0, import_max=4.0),
                     extra_series=[F.series("pv_mw", solar), F.series("load_mw", [0.5] * T)])
 

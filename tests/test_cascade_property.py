@@ -22,7 +22,7 @@ from portfolio.solve import SolveOptions
     factor=st.sampled_from([1.0, 0.6]),
     with_spill=st.booleans(),
 )
-def test_lower_inflow_is_upper_release_shifted(delay, prices, in_transit, factor, with_spill):
+def test_lower_routed_in_is_upper_release_shifted(delay, prices, in_transit, factor, with_spill):
     n = len(prices)
     upper = F.storage("upper", energy=40.0, power=None, discharge_max=6.0, charge_max=0.0,
                       soc_start=20.0, kind="reservoir", spill_allowed=with_spill)
@@ -36,8 +36,8 @@ def test_lower_inflow_is_upper_release_shifted(delay, prices, in_transit, factor
     r = dispatch(p, SolveOptions(mip_gap=0))
     assert r.status == "optimal", r.status
     up, lo = r.tables["upper"], r.tables["lower"]
-    out = up["outflow_to_routes_mw"].to_numpy()
-    arrived = lo["inflow_from_routes_mw"].to_numpy()
+    out = up["routed_out_mw"].to_numpy()
+    arrived = lo["routed_in_mw"].to_numpy()
     # lossless release: what leaves is what the turbines draw, plus any spill
     np.testing.assert_allclose(out, up["discharge_mw"].to_numpy() + up["spill_mw"].to_numpy(), atol=1e-6)
     expected = np.empty(n)

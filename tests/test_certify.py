@@ -276,7 +276,7 @@ def test_polish_recovers_a_worse_continuous_part():
 
 def _river_store(price):
     """A reservoir fed 1 MW for 4 h with room for all of it: spilling is never needed."""
-    st_ = F.storage("pond", energy=10.0, power=2.0, soc_start=2.0, inflow="river",
+    st_ = F.storage("pond", energy=10.0, power=2.0, soc_start=2.0, supply="river",
                     spill_allowed=True, eta_charge=1.0, eta_discharge=1.0)
     return F.market(price, [st_], extra_series=[F.series("river", [1.0, 1.0, 1.0, 1.0])])
 
@@ -312,7 +312,7 @@ def test_a_needed_spill_stays_at_its_least():
     # in, releasing loses money (price -5) and the store cannot pump from the
     # grid: 3 MWh must be spilled, and no more
     st_ = F.storage("pond", energy=10.0, power=2.0, charge_max=0.0, soc_start=9.0,
-                    inflow="river", spill_allowed=True)
+                    supply="river", spill_allowed=True)
     p = F.market([-5.0] * 4, [st_], extra_series=[F.series("river", [1.0] * 4)])
     r = dispatch(p, SolveOptions(mip_gap=0.0))
     assert r.summary["storages"]["pond"]["spilled_mwh"] == pytest.approx(3.0, abs=1e-6)

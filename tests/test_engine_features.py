@@ -1,4 +1,4 @@
-"""Engine features: routes, inflows, ramps, caps, attribution, origins, hand-off."""
+"""Engine features: routes, supplies, ramps, caps, attribution, origins, hand-off."""
 
 import numpy as np
 import pyomo.environ as pe
@@ -32,7 +32,7 @@ def test_release_route_moves_water_with_delay():
     np.testing.assert_allclose(rt["flow_mw"], flow, atol=1e-9)
     expected = np.r_[0.3, 0.3, flow[:3]]                  # in_transit / D, then delayed flow
     np.testing.assert_allclose(rt["arriving_mw"], expected, atol=1e-9)
-    np.testing.assert_allclose(low["inflow_from_routes_mw"], expected, atol=1e-9)
+    np.testing.assert_allclose(low["routed_in_mw"], expected, atol=1e-9)
     assert r.summary["routes"]["up_low"]["in_transit_end_mwh"] == pytest.approx(flow[3:].sum())
     # analytic: releases in steps 0..2 reach "low" by the price-100 step; all
     # 4 MWh stored upstream leave (3.2 MWh at its turbine, price 1) and arrive
@@ -56,9 +56,9 @@ def test_transfer_route_leaves_the_source_balance():
 
 
 @pytest.mark.parametrize("curtail, status", [(True, "optimal"), (False, "infeasible")])
-def test_inflow_curtailment_rule(curtail, status):
-    pv = F.inflow("pv", "pv_mw", curtail_allowed=curtail, at={"curtail_allowed": 9})
-    p = F.market([-5, 10], [], inflows=[pv], extra_series=[F.series("pv_mw", [3, 3])],
+def test_supply_curtailment_rule(curtail, status):
+    pv = F.supply("pv", "pv_mw", curtail_allowed=curtail, at={"curtail_allowed": 9})
+    p = F.market([-5, 10], [], supplies=[pv], extra_series=[F.series("pv_mw", [3, 3])],
                  site_kw=dict(export_max=2.0))
     r = dispatch(p)
     assert r.status == status
@@ -70,12 +70,12 @@ def test_inflow_curtailment_rule(curtail, status):
         assert {x.family for x in r.relaxed} & {"curtail_limit", "site_export_max"}
 
 
-def test_inflow_charges_storage_directly():
-    pv = F.inflow("pv", "pv_mw", targets=("bat",))
+def test_supply_charges_storage_directly():
+    pv = F.supply("pv", "pv_mw", targets=("bat",))
     bat = F.storage("bat", energy=10.0, power=None, charge_max=5.0, discharge_max=5.0,
                     eta_charge=0.9)
-    # buying is dear, so only the inflow charges the store
-    p = F.market([0, 0, 50], [bat], buy=[100, 100, 100], inflows=[pv],
+    # buying is dear, so only the supply charges the store
+    p = F.market([0, 0, 50], [bat], buy=[100, 100, 100], supplies=[pv],
                  extra_series=[F.series("pv_mw", [2, 2, 0])])
     r = dispatch(p)
     assert r.tables["bat"]["charge_mw"].iloc[:2].tolist() == pytest.approx([2.0, 2.0])
@@ -106,14 +106,14 @@ def test_portfolio_cap_limits_the_sum_of_connections():
 
 def test_revenue_attribution_adds_up_to_the_objective():
     bat = F.storage("bat", energy=2.0, power=1.0, eta_charge=0.9, eta_discharge=0.9, wear=3.0)
-    pv = F.inflow("pv", "pv_mw", targets=("site", "bat"), curtail_allowed=True)
-    p = F.market([10, -2, 30, 60, 20], [bat], buy=[12, 0, 35, 65, 25], inflows=[pv],
+    pv = F.supply("pv", "pv_mw", targets=("site", "bat"), curtail_allowed=True)
+    p = F.market([10, -2, 30, 60, 20], [bat], buy=[12, 0, 35, 65, 25], supplies=[pv],
                  demands=[F.demand("load", "load_mw")],
                  extra_series=[F.series("pv_mw", [0, 3, 2, 0, 1]),
                                F.series("load_mw", [0.5, 0.5, 1, 1, 0.5])])
     r = dispatch(p)
     s = r.summary
-    total = sum(a["revenue"] for sec in ("storages", "inflows", "demands") for a in s[sec].values())
+    total = sum(a["revenue"] for sec in ("storages", "supplies", "demands") for a in s[sec].values())
     assert total == pytest.approx(r.objective, abs=1e-7)
     assert s["connections"]["grid"]["revenue"] - 3.0 * s["storages"]["bat"]["energy_out_mwh"] \
         == pytest.approx(r.objective, abs=1e-7)
@@ -161,9 +161,9 @@ def test_every_family_has_origins_with_spans():
             assert getattr(b.model, name, None) is None and var
 
 
-def test_natural_inflow_spills_when_full():
+def test_natural_supply_spills_when_full():
     lake = F.storage("lake", energy=5.0, power=None, discharge_max=1.0, soc_start=5.0,
-                     inflow="river", spill_allowed=True, end_rule=F.END_AT_LEAST, end_value=5.0)
+                     supply="river", spill_allowed=True, end_rule=F.END_AT_LEAST, end_value=5.0)
     p = F.market([1, 1], [lake], extra_series=[F.series("river", [2.0, 2.0])])
     r = dispatch(p)
     # analytic: full store, 4 MWh arrive, 2 MWh through the turbine, must end full

@@ -30,7 +30,7 @@ def test_demand_above_import_limit_names_the_site_limit():
 
 
 def test_full_store_that_may_not_spill():
-    st = F.storage("lake", energy=10.0, power=1.0, soc_start=9.0, inflow="river",
+    st = F.storage("lake", energy=10.0, power=1.0, soc_start=9.0, supply="river",
                    at={"spill_allowed": 7})
     p = F.market([5.0, 5.0, 5.0], [st], extra_series=[F.series("river", [5.0, 5.0, 5.0])],
                  connection_kw=dict(export_max=1.0))

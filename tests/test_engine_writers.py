@@ -15,12 +15,12 @@ from portfolio.schedule import COLUMNS
 @pytest.fixture(scope="module")
 def result():
     st = F.storage("bat", energy=2.0, power=1.0, eta_charge=0.9, eta_discharge=0.9)
-    pv = F.inflow("pv", "pv_mw", targets=("site", "bat"), curtail_allowed=True)
+    pv = F.supply("pv", "pv_mw", targets=("site", "bat"), curtail_allowed=True)
     load = F.demand("load", "load_mw")
     lake = F.storage("lake", energy=5.0, power=None, discharge_max=1.0, soc_start=3.0)
     low = F.storage("low", energy=5.0, power=None, discharge_max=1.0)
     rt = F.route("lake_to_low", "lake", "low", delay_steps=1, in_transit=0.5)
-    p = F.market([10, 20, 5, 40], [st, lake, low], inflows=[pv], demands=[load], routes=[rt],
+    p = F.market([10, 20, 5, 40], [st, lake, low], supplies=[pv], demands=[load], routes=[rt],
                  extra_series=[F.series("pv_mw", [0, 2, 3, 0]), F.series("load_mw", [1, 1, 1, 1])],
                  zone="Europe/Berlin", start="2027-03-01T00:00:00")
     r = dispatch(p)
@@ -31,7 +31,7 @@ def result():
 def test_files_and_columns_follow_the_contract(result, tmp_path):
     out = result.write(tmp_path / "out")
     names = set(os.listdir(out))
-    assets = {"bat": "storage", "lake": "storage", "low": "storage", "pv": "inflow",
+    assets = {"bat": "storage", "lake": "storage", "low": "storage", "pv": "supply",
               "load": "demand", "site": "site", "grid": "connection", "lake_to_low": "route"}
     assert names == {f"{a}.csv" for a in assets} | {"schedule.csv", "summary.json", W.MARKER}
     for a, kind in assets.items():

@@ -3,8 +3,8 @@
 The expected nodes and edges below are read off each example file by hand:
 a site's ``export``/``import`` edges exist unless a limit of 0 closes them,
 ``charge``/``discharge`` edges exist where a storage's limit is above 0,
-``supply`` edges go to each ``into`` target (default: the site), ``serve``
-edges to each demand, ``natural`` edges from a storage's own inflow, and one
+``feed`` edges go to each ``into`` target (default: the site), ``serve``
+edges to each demand, ``natural`` edges from a storage's own supply, and one
 edge per route, keyed by its kind.
 """
 
@@ -26,12 +26,12 @@ EXPECTED = {
     "kestrel_bay": {
         "nodes": {
             "bay_feeder": "connection", "dune_works": "site", "cells": "storage",
-            "dune_pv": "inflow", "plant": "demand",
+            "dune_pv": "supply", "plant": "demand",
         },
         "edges": [
             ("dune_works", "bay_feeder", "export"), ("bay_feeder", "dune_works", "import"),
             ("dune_works", "cells", "charge"), ("cells", "dune_works", "discharge"),
-            ("dune_pv", "cells", "supply"), ("dune_pv", "dune_works", "supply"),
+            ("dune_pv", "cells", "feed"), ("dune_pv", "dune_works", "feed"),
             ("dune_works", "plant", "serve"),
         ],
     },
@@ -39,7 +39,7 @@ EXPECTED = {
         "nodes": {
             "flats_substation": "connection", "north_yard": "site", "cold_store": "site",
             "north_a": "storage", "north_b": "storage", "south_c": "storage",
-            "north_roof": "inflow", "chillers": "demand",
+            "north_roof": "supply", "chillers": "demand",
         },
         "edges": [
             ("north_yard", "flats_substation", "export"), ("flats_substation", "north_yard", "import"),
@@ -47,7 +47,7 @@ EXPECTED = {
             ("north_yard", "north_a", "charge"), ("north_a", "north_yard", "discharge"),
             ("north_yard", "north_b", "charge"), ("north_b", "north_yard", "discharge"),
             ("cold_store", "south_c", "charge"), ("south_c", "cold_store", "discharge"),
-            ("north_roof", "north_yard", "supply"),
+            ("north_roof", "north_yard", "feed"),
             ("cold_store", "chillers", "serve"),
         ],
     },
@@ -55,7 +55,7 @@ EXPECTED = {
         # reservoirs: no 'charge max', so no charge edges
         "nodes": {
             "glen_line": "connection", "glen_hydro": "site", "upper_loch": "storage",
-            "lower_loch": "storage", "river": "inflow",
+            "lower_loch": "storage", "river": "supply",
         },
         "edges": [
             ("glen_hydro", "glen_line", "export"), ("glen_line", "glen_hydro", "import"),
@@ -70,7 +70,7 @@ EXPECTED = {
             "sunfield": "site", "forge": "site", "millpond": "site", "kiln_works": "site",
             "sun_cells": "storage", "forge_heat": "storage", "upper_pond": "storage",
             "lower_pond": "storage", "kiln_heat": "storage",
-            "sun_pv": "inflow", "stream": "inflow", "kiln": "demand",
+            "sun_pv": "supply", "stream": "supply", "kiln": "demand",
         },
         "edges": [
             ("sunfield", "north_grid", "export"), ("north_grid", "sunfield", "import"),
@@ -81,7 +81,7 @@ EXPECTED = {
             ("forge", "forge_heat", "charge"), ("forge_heat", "forge", "discharge"),
             ("kiln_works", "kiln_heat", "charge"), ("kiln_heat", "kiln_works", "discharge"),
             ("upper_pond", "millpond", "discharge"), ("lower_pond", "millpond", "discharge"),
-            ("sun_pv", "sun_cells", "supply"), ("sun_pv", "sunfield", "supply"),
+            ("sun_pv", "sun_cells", "feed"), ("sun_pv", "sunfield", "feed"),
             ("stream", "upper_pond", "natural"),
             ("kiln_works", "kiln", "serve"),
             ("upper_pond", "lower_pond", "release"), ("upper_pond", "lower_pond", "spill"),

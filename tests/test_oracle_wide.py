@@ -4,7 +4,7 @@ The slow group (``python -m pytest -q -m slow``; the default run leaves it
 out).  Every portfolio of ``random_portfolios.WIDE_SEEDS`` (single site,
 minimum output, run and rest, ramps, cascades with delays and water in
 transit, transfers, site limits inside connection limits, a portfolio-wide
-cap, the direction rule, inflows with and without curtailment, demands,
+cap, the direction rule, supplies with and without curtailment, demands,
 negative prices) is solved at ``mip_gap=0``
 
 * by the engine with its warm start (the default),

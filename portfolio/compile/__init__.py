@@ -14,15 +14,15 @@ family), which is made from the arrays the first time it is asked for.
 Variable families (all >= 0, MW unless noted; index ``(asset..., t)``):
 
 =============  =========================================================
-charge_site    power a storage draws from its site bus
-inflow_to      ``(inflow, storage, t)``: inflow power fed straight into a store
-used_bus       inflow power delivered to its site bus
-curtailed      inflow power not taken
-discharge      storage output to its site bus (grid side)
+charge_site    power a storage draws from its site
+supply_to      ``(supply, storage, t)``: supply power fed straight into a store
+supply_site    supply power delivered to its site
+curtailed      supply power not taken
+discharge      storage output to its site (grid side)
 soc            stored energy at the END of step t (MWh)
 spill          spilled power (stored MWh per step / dt)
 transfer       power moved along a transfer route
-site_import    site bus import / export through its connection
+site_import    site import / export through its connection
 site_export
 conn_import    connection import / export (what the meter sees, net)
 conn_export
@@ -141,23 +141,23 @@ def _variables(ctx: Ctx) -> None:
     ctx.add_var("charge_site", [s.name for s in st if s.charge_max > 0])
     ctx.add_var("discharge", [s.name for s in st if s.discharge_max > 0])
     ctx.add_var("soc", [s.name for s in st])
-    ctx.add_var("spill", [s.name for s in st if s.spill_allowed or s.inflow is not None])
-    ins = list(p.inflows.values())
-    ctx.add_var("inflow_to", [(i.name, k) for i in ins for k in i.targets if k != "site"])
-    ctx.add_var("used_bus", [i.name for i in ins if "site" in i.targets])
+    ctx.add_var("spill", [s.name for s in st if s.spill_allowed or s.supply is not None])
+    ins = list(p.supplies.values())
+    ctx.add_var("supply_to", [(i.name, k) for i in ins for k in i.targets if k != "site"])
+    ctx.add_var("supply_site", [i.name for i in ins if "site" in i.targets])
     ctx.add_var("curtailed", [i.name for i in ins])
     ctx.add_var("transfer", [r.name for r in p.routes if r.kind == "transfer"])
     ctx.add_var("site_import", list(p.sites))
     ctx.add_var("site_export", list(p.sites))
     ctx.add_var("conn_import", list(p.connections))
     ctx.add_var("conn_export", list(p.connections))
-    # storage -> inflows feeding it directly
+    # storage -> supplies feeding it directly
     direct: Dict[str, List[str]] = {k: [] for k in p.storages}
     for i in ins:
         for k in i.targets:
             if k != "site" and k in direct:
                 direct[k].append(i.name)
-    ctx.expr["direct_inflows"] = direct
+    ctx.expr["direct_supplies"] = direct
 
 
 def build(p: Portfolio, variant: str = "tight", relax: bool = False) -> Built:

@@ -3,7 +3,7 @@
     python tests/bench/bench_lint.py [--storages 1000] [--sites 20]
 
 Generates portfolios of N storages over 20 sites (each storage with its own
-block of settings overriding a preset, each site with a solar inflow and a
+block of settings overriding a preset, each site with a solar supply and a
 demand read from one shared CSV), and times `portfolio.lint_file` in-process,
 after one warm-up run, for N = 250, 500, 1000, 2000 to show how time grows with
 file size.  Target (issue 2): 1,000 storages under 1 s; roughly linear.
@@ -39,7 +39,7 @@ def make(n_storages: int, n_sites: int, folder: Path) -> Path:
         out.append(f"site yard_{s:02d} at main {{")
         out.append("  export max 60 MW import max 50 MW")
         out.append(f'  demand load_{s:02d} from "series.csv" column "load"')
-        out.append(f'  inflow pv_{s:02d} from "series.csv" column "pv" {{ into site curtail allowed }}')
+        out.append(f'  supply pv_{s:02d} from "series.csv" column "pv" {{ into site curtail allowed }}')
         for _ in range(per_site):
             out.append(f"  storage b{k:05d} like cell {{ energy {3 + k % 5} MWh  soc start {20 + k % 50}%"
                        f"  discharge max {1 + k % 3} MW min 0.2 MW when running }}")

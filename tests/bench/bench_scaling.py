@@ -52,7 +52,7 @@ def make_text(n: int, seed: int = 7) -> str:
         lines.append(f"site hydro_{pair} at valley_grid {{")
         lines.append(f"  storage up_{pair} {{ kind reservoir energy 60 MWh discharge max 8 MW min 2 MW when running"
                      f" efficiency charge 100% discharge 90% run at least 1 h soc min 10% start 50%"
-                     f" inflow river_{pair} {2 + pair % 3} MW spill allowed }}")
+                     f" supply river_{pair} {2 + pair % 3} MW spill allowed }}")
         n_res -= 1
         if n_res > 0:
             lines.append(f"  storage down_{pair} {{ kind reservoir energy 40 MWh discharge max 6 MW min 1 MW when running"

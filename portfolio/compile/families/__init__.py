@@ -5,12 +5,12 @@ may publish expressions in ``ctx.expr`` for later ones (``routes`` publishes
 what each storage receives and sends before ``storage_balance`` runs).
 """
 
-from . import (direction, grid_limits, inflows, modes, objective, power_limits, ramp,
-               routes, run_rest, site_balance, storage_balance)
+from . import (direction, grid_limits, modes, objective, power_limits, ramp, routes, run_rest,
+               site_balance, storage_balance, supplies)
 
 FAMILIES = (
     power_limits,
-    inflows,
+    supplies,
     routes,
     storage_balance,
     site_balance,

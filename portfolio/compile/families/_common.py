@@ -10,13 +10,13 @@ from ...model import PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, PRIOR_WORDS, Sto
 
 
 def charge_terms(ctx: Ctx, k: str, t: int, coef: float = 1.0) -> List[Tuple[float, object]]:
-    """Total charge of storage ``k`` at ``t``: bus draw plus direct inflows."""
+    """Total charge of storage ``k`` at ``t``: draw from the site plus direct supplies."""
     terms = []
     v = ctx.v("charge_site", k, t)
     if v is not None:
         terms.append((coef, v))
-    for i in ctx.expr["direct_inflows"].get(k, ()):
-        terms.append((coef, ctx.v("inflow_to", (i, k), t)))
+    for i in ctx.expr["direct_supplies"].get(k, ()):
+        terms.append((coef, ctx.v("supply_to", (i, k), t)))
     return terms
 
 

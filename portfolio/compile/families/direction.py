@@ -15,7 +15,7 @@ what the assets behind it can move (:func:`portfolio.reach.connection_reach`):
     Me[c,t] = sum_{s at c} min(Site.export_max, sum_k discharge_max[k] + sum_i a[i,t])
     Mi[c,t] = sum_{s at c} min(Site.import_max, sum_k charge_max[k] + sum_j demand[j,t])
 
-(k storages, i inflows delivering to the bus, j demands at s).  These bound
+(k storages, i supplies delivering to the site, j demands at s).  These bound
 the net flow of each site, which is all the meter sees, so they never cut
 off a feasible schedule.  Both rows are identities (never relaxed).
 """

@@ -1,16 +1,16 @@
 """Power limits of every storage.
 
-For storage k and step t (c = total charge = charge_site + direct inflows):
+For storage k and step t (c = total charge = charge_site + direct supplies):
 
     c[k,t] <= charge_max[k]          (family ``charge_limit``, or
-                                      ``charge_limit_with_inflows`` as a row)
+                                      ``charge_limit_with_supplies`` as a row)
     d[k,t] <= discharge_max[k]                   (family ``discharge_limit``)
     q[k,t] <= spill_max[k]   if spill allowed    (family ``spill_limit``)
     q[k,t] <= 0              if spill not allowed (same family; origin: the
                                                   storage's spill setting)
 
 A limit on a single variable is a variable bound (a row only in relax mode);
-``charge_limit`` is a row when inflows charge the storage directly.
+``charge_limit`` is a row when supplies charge the storage directly.
 """
 
 from __future__ import annotations
@@ -20,12 +20,12 @@ from ._common import charge_terms, fmt
 
 
 def build(ctx: Ctx) -> None:
-    direct = ctx.expr["direct_inflows"]
+    direct = ctx.expr["direct_supplies"]
     for k, s in ctx.p.storages.items():
         o = Origin(s.where("charge_max"), f'charge limit of storage "{k}" ({fmt(s.charge_max)} MW)')
         if direct.get(k):
             for t in ctx.steps:
-                ctx.row("charge_limit_with_inflows", (k, t), charge_terms(ctx, k, t), hi=s.charge_max, origin=o)
+                ctx.row("charge_limit_with_supplies", (k, t), charge_terms(ctx, k, t), hi=s.charge_max, origin=o)
         else:
             for t in ctx.steps:
                 ctx.bound("charge_limit", "charge_site", k, t, hi=s.charge_max, origin=o)

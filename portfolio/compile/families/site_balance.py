@@ -1,9 +1,9 @@
-"""Power balance of every site bus, each step.
+"""Power balance of every site, each step.
 
-    sum_i used_bus[i,t] + sum_k d[k,t] + site_import[s,t]
+    sum_i supply_site[i,t] + sum_k d[k,t] + site_import[s,t]
         = sum_k charge_site[k,t] + sum_j demand[j,t] + site_export[s,t]
 
-over the inflows i, storages k and demands j at site s (family
+over the supplies i, storages k and demands j at site s (family
 ``site_balance``, an identity; the demand profiles are data).
 """
 
@@ -18,14 +18,14 @@ def build(ctx: Ctx) -> None:
     p = ctx.p
     for sname, site in p.sites.items():
         storages = [k for k, s in p.storages.items() if s.site == sname]
-        inflows = [i for i, f in p.inflows.items() if f.site == sname and "site" in f.targets]
+        supplies = [i for i, f in p.supplies.items() if f.site == sname and "site" in f.targets]
         demand = np.zeros(ctx.T)
         for d in p.demands.values():
             if d.site == sname:
                 demand = demand + p.profile(d.profile)
         o = Origin(site.span, f'power balance of site "{sname}"')
         for t in ctx.steps:
-            terms = [(1.0, ctx.v("used_bus", i, t)) for i in inflows]
+            terms = [(1.0, ctx.v("supply_site", i, t)) for i in supplies]
             terms += [(1.0, ctx.v("discharge", k, t)) for k in storages]
             terms += [(-1.0, ctx.v("charge_site", k, t)) for k in storages]
             terms += [(1.0, ctx.v("site_import", sname, t)), (-1.0, ctx.v("site_export", sname, t))]

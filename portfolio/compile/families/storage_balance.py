@@ -2,8 +2,8 @@
 
 soc[k,t] is the content at the END of step t; soc[k,-1] = soc_start.
 With a = (1 - loss_per_h) ** dt (the loss applies to the content carried
-into a step), c = total charge (bus draw plus direct inflows), d = discharge,
-q = spill, n = natural inflow (MW, the storage's inflow series):
+into a step), c = total charge (draw from the site plus direct supplies), d = discharge,
+q = spill, n = natural supply (MW, the storage's supply series):
 
     soc[t] = a*soc[t-1] + eta_charge*c[t]*dt - d[t]*dt/eta_discharge - q[t]*dt
              + n[t]*dt + routes_in[t] - transfers_out[t]
@@ -14,7 +14,7 @@ q = spill, n = natural inflow (MW, the storage's inflow series):
                                               (family ``end_rule``)
 
 routes_in / transfers_out come from :mod:`.routes` (MWh per step).  Natural
-inflow cannot be curtailed: a full store must spill it (infeasible when spill
+supply cannot be curtailed: a full store must spill it (infeasible when spill
 is not allowed, which the relaxation then reports).
 """
 
@@ -32,7 +32,7 @@ def build(ctx: Ctx) -> None:
     route_send = ctx.expr["route_send"]
     for k, s in p.storages.items():
         a = (1.0 - s.loss_per_h) ** dt
-        natural = p.profile(s.inflow) if s.inflow is not None else None
+        natural = p.profile(s.supply) if s.supply is not None else None
         o = Origin(s.span, f'energy balance of storage "{k}"')
         for t in ctx.steps:
             terms = [(1.0, ctx.v("soc", k, t))]
@@ -51,7 +51,7 @@ def build(ctx: Ctx) -> None:
             terms += [(-c, v) for c, v in rin]
             const += rconst
             terms += route_send[k](t)
-            # soc - (inflows) = const  ->  rhs = const
+            # soc - (supplies) = const  ->  rhs = const
             ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=o,
                     relaxable=False)
         smax = s.soc_max

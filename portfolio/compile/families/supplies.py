@@ -1,0 +1,33 @@
+"""Supplies (e.g. solar beside a battery): where the available power goes.
+
+For supply i with available power a[i,t] (MW, its profile) and targets
+(the site "site" and/or storages k):
+
+    supply_site[i,t] + sum_k supply_to[i,k,t] + curtailed[i,t] = a[i,t]
+                                                   (family ``supply_split``)
+    curtailed[i,t] <= 0   unless curtailment is allowed
+                                                   (family ``curtail_limit``)
+
+Power fed straight into a storage counts as that storage's charge (it is
+bounded by the storage's ``charge_limit`` and takes its charge efficiency).
+"""
+
+from __future__ import annotations
+
+from ..context import Ctx, Origin
+
+
+def build(ctx: Ctx) -> None:
+    p = ctx.p
+    for name, i in p.supplies.items():
+        avail = p.profile(i.profile)
+        o = Origin(i.span, f'supply "{name}" must go somewhere (used or curtailed)')
+        for t in ctx.steps:
+            terms = [(1.0, ctx.v("supply_site", name, t)), (1.0, ctx.v("curtailed", name, t))]
+            terms += [(1.0, ctx.v("supply_to", (name, k), t)) for k in i.targets if k != "site"]
+            ctx.row("supply_split", (name, t), terms, lo=float(avail[t]), hi=float(avail[t]),
+                    origin=o, relaxable=False)
+        if not i.curtail_allowed:
+            o = Origin(i.where("curtail_allowed"), f'supply "{name}" may not be curtailed')
+            for t in ctx.steps:
+                ctx.bound("curtail_limit", "curtailed", name, t, hi=0.0, origin=o)

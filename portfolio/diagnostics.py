@@ -153,6 +153,7 @@ UnreadableFile = _kind("P001", ERROR, "the portfolio file cannot be read (missin
 SyntaxProblem = _kind("P101", ERROR, "the text does not follow the language's grammar", "SyntaxProblem")
 UnclosedBlock = _kind("P102", ERROR, "a '{' block is not closed before the end of the file", "UnclosedBlock")
 BadTimestamp = _kind("P103", ERROR, "a timestamp is not a valid ISO 8601 date and time", "BadTimestamp")
+RetiredWord = _kind("P104", ERROR, "a word the language no longer uses; the message names the word that replaced it", "RetiredWord")
 
 # --- P2xx: names --------------------------------------------------------------
 UnknownName = _kind("P201", ERROR, "a name refers to nothing declared (with a suggestion when one is close)", "UnknownName")

@@ -3,6 +3,8 @@
 A Lark LALR parser with positions propagated: every tree node's ``meta`` and
 every token carry line and column.  Syntax errors become ``P101``/``P102``/
 ``P103`` diagnostics in plain words; grammar token names never reach the user.
+A word the language has retired (``RETIRED_WORDS``) is ``P104``, naming its
+replacement; the file does not load (no silent alias).
 """
 
 from __future__ import annotations
@@ -18,7 +20,7 @@ from typing import Callable, Dict, Optional
 from lark import Lark, Token, Tree
 from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
 
-from .diagnostics import BadTimestamp, Sink, SyntaxProblem, UnclosedBlock
+from .diagnostics import BadTimestamp, RetiredWord, Sink, SyntaxProblem, UnclosedBlock
 from .spans import Span
 
 GRAMMAR_FILE = "portfolio.lark"
@@ -101,6 +103,13 @@ EXPECTED_WORDS = {
     "SIGN": "'plus' or 'minus'",
     "ROUTE_KIND": "'release', 'spill' or 'transfer'",
     "$END": "the end of the file",
+}
+
+# Words the language once used -> (the word that replaced it, what it declares).
+# A retired word met where a keyword is expected is P104, never read as its
+# replacement.  Where a name is expected it is an ordinary name.
+RETIRED_WORDS = {
+    "inflow": ("supply", "a solar, wind, river or heat supply"),
 }
 
 FOUND_WORDS = {
@@ -228,6 +237,24 @@ def _number_before_keyword(text: str, tok: Token, prev: Optional[Token]):
     return text[pos:m.end(1)], pos, line, col
 
 
+_WORD = re.compile(r"[A-Za-z0-9_]+")
+
+
+def _retired(text: str, path: str, tok: Token, sink: Sink) -> bool:
+    """Report a retired word starting at ``tok`` (P104); False when it is none."""
+    if tok.start_pos is None or tok.line is None:
+        return False
+    m = _WORD.match(text, tok.start_pos)
+    word = m.group(0) if m else ""
+    if word not in RETIRED_WORDS:
+        return False
+    new, what = RETIRED_WORDS[word]
+    sink.add(RetiredWord, Span(path, tok.line, tok.column, tok.line, tok.column + len(word)),
+             f"'{word}' is no longer a word of the language: {what} is declared with '{new}'",
+             f"fix: write '{new}' in place of '{word}'")
+    return True
+
+
 def lines_of(text: str) -> str:
     """``text`` with every line ending as ``\n``: Windows (CR LF) and old Mac
     (CR alone) files read like any other.  The parser's line numbers count
@@ -244,6 +271,8 @@ def parse(text: str, path: str, sink: Sink) -> Optional[Tree]:
         return parser().parse(text)
     except _GluedWord as glued:
         tok = glued.token
+        if _retired(text, path, tok, sink):
+            return None
         m = re.compile(r"[A-Za-z0-9_]+").match(text, tok.start_pos)
         word = m.group(0) if m else str(tok)
         if word in keywords():
@@ -282,6 +311,8 @@ def _report(err: UnexpectedInput, text: str, path: str, sink: Sink) -> None:
             return
     if isinstance(err, UnexpectedToken):
         tok = err.token
+        if tok.type in ("NAME", "UNIT") and _retired(text, path, tok, sink):
+            return
         span = _span_of_token(path, tok, text)
         # What the parser accepts here once pending reductions are made; the raw
         # LALR lookahead set also lists words of unrelated blocks.

@@ -8,6 +8,7 @@ from __future__ import annotations
 import io
 import json
 import os
+import textwrap
 from functools import lru_cache
 from pathlib import Path
 from typing import Dict, Iterable, List, Optional
@@ -62,21 +63,83 @@ def printable(text: str) -> str:
     return "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text)
 
 
+# The text layout (docs/cli.md).  The first line is what editors read:
+# ``path:line:col: severity: message``.  Below it, indented, one labelled line
+# each: the code, the source line with the span between >> and <<, then the
+# notes (a note written "fix: ..." is labelled as the fix), wrapped under
+# their label.  The lines below the first fit in WIDTH columns (only a word
+# longer than that, such as a long path, overruns); no colour is needed.
+WIDTH = 80
+INDENT = "    "
+LABEL = 6                  # "code", "text", "note", "fix" padded to this width
+OPEN, CLOSE = ">>", "<<"   # around the span in the source line
+_FIT = WIDTH - len(INDENT) - LABEL
+_CONTEXT = 12              # characters kept on a side when a long line is cut
+
+
+def _field(label: str, text: str, wrap: bool = False) -> str:
+    first = f"{INDENT}{label:<{LABEL}}"
+    if wrap:
+        lines = textwrap.wrap(text, WIDTH, initial_indent=first, subsequent_indent=" " * len(first),
+                              break_long_words=False, break_on_hyphens=False)
+        if lines:
+            return "\n".join(lines)
+    return (first + text).rstrip()
+
+
+def _cut_left(text: str, room: int) -> str:
+    return text if len(text) <= room else "..." + text[len(text) - room + 3:] if room > 3 else ""
+
+
+def _cut_right(text: str, room: int) -> str:
+    return text if len(text) <= room else text[:room - 3] + "..." if room > 3 else ""
+
+
+def excerpt(src: str, start: int, end: int, room: int = _FIT) -> str:
+    """``src`` with ``src[start:end]`` between the markers, in at most ``room`` characters.
+
+    Leading indentation is dropped; a long line keeps the span and some text
+    either side, and shows what it left out as ``...``.
+    """
+    start = max(0, min(start, len(src)))
+    end = max(start, min(end, len(src)))
+    lead = min(len(src) - len(src.lstrip()), start)
+    before, inner, after = src[lead:start], src[start:end], src[end:]
+    room = max(room - len(OPEN) - len(CLOSE), 2 * _CONTEXT + 9)
+    if len(before) + len(inner) + len(after) > room:
+        keep = room - 2 * _CONTEXT
+        if len(inner) > keep:
+            half = (keep - 3) // 2
+            inner = inner[:half] + "..." + inner[len(inner) - half:]
+        left = room - len(inner)
+        side = max(_CONTEXT, left - len(after))
+        before = _cut_left(before, min(len(before), side))
+        after = _cut_right(after, left - len(before))
+    return before + OPEN + inner + CLOSE + after
+
+
+def _note(note: str) -> str:
+    text = printable(note)
+    if text.startswith("fix: "):
+        return _field("fix", text[5:], wrap=True)
+    if text.startswith("note: "):
+        text = text[6:]
+    return _field("note", text, wrap=True)
+
+
 def format_text(d: Diagnostic, texts: Optional[Dict[str, str]] = None, context: bool = True) -> str:
     sp = d.span
-    head = printable(f"{sp.path}:{sp.line}:{sp.col}: {d.severity}[{d.code}]: {d.message}")
-    out = [head]
+    out = [printable(f"{sp.path}:{sp.line}:{sp.col}: {d.severity}: {d.message}"), _field("code", d.code)]
     if context:
         src = source_line(sp.path, sp.line, texts)
         if src is not None and not (sp.line == 1 and sp.col == 1 and sp.end_col == 1):
             src = "".join(c if c.isprintable() else " " for c in src)  # tabs, U+2028...: one column each
             end = sp.end_col if sp.end_line == sp.line else len(src) + 1
-            width = max(1, min(end, len(src) + 1) - sp.col)
-            gutter = f"{sp.line:>5} | "
-            out.append(gutter + src)
-            out.append(" " * (len(gutter) - 2) + "| " + " " * (sp.col - 1) + "^" + "~" * (width - 1))
-    for note in d.notes:
-        out.append(f"  = {printable(note)}")
+            shown = excerpt(src, sp.col - 1, end - 1)
+            if sp.end_line > sp.line:
+                shown += f" (on to line {sp.end_line})"
+            out.append(_field("text", shown))
+    out.extend(_note(n) for n in d.notes)
     return "\n".join(out)
 
 

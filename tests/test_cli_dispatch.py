@@ -55,7 +55,7 @@ def test_lint_errors_stop_dispatch_and_nothing_is_written(tmp_path):
                    'site s at c { storage b { energy 1 MWh charge max 1 MW discharge max 1 MW } }\n')
     code, text, err = run("dispatch", bad, "--out", tmp_path / "o")
     assert code == 1
-    assert "bad.folio:2:27: error[P302]" in err
+    assert "bad.folio:2:27: error: " in err and "\n    code  P302\n" in err
     assert not (tmp_path / "o").exists()
 
 

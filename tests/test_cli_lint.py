@@ -20,7 +20,23 @@ from portfolio.diagnostics import REGISTRY
 ROOT = Path(__file__).resolve().parents[1]
 CASES = ROOT / "tests" / "lint_cases"
 EXAMPLES = sorted((ROOT / "examples").glob("*/*.folio"))
-HEAD = re.compile(r"^(?P<path>.+):(?P<line>\d+):(?P<col>\d+): (?P<sev>error|warning)\[(?P<code>P\d{3})\]: (?P<msg>.+)$")
+HEAD = re.compile(r"^(?P<path>.+):(?P<line>\d+):(?P<col>\d+): (?P<sev>error|warning): (?P<msg>.+)$")
+CODE = re.compile(r"^    code  (?P<code>P\d{3})$")
+
+
+def blocks(out: str):
+    """Each diagnostic of a text report: (head match, code, the indented lines below it)."""
+    found = []
+    for ln in out.splitlines():
+        if not ln.startswith(" "):
+            found.append((HEAD.match(ln), None, []))
+        else:
+            found[-1][2].append(ln)
+    result = []
+    for head, _, below in found:
+        code = CODE.match(below[0]) if below else None
+        result.append((head, code["code"] if code else None, below[1:]))
+    return result
 
 
 def run(*argv):
@@ -41,14 +57,16 @@ def test_clean_examples_exit_0():
 def test_warnings_only_exit_0():
     code, out, err = run("lint", str(CASES / "P508_unused_connection.folio"))
     assert code == 0
-    assert "warning[P508]" in out
+    [(head, c, _)] = blocks(out)
+    assert head["sev"] == "warning" and c == "P508"
     assert "1 file checked: 0 errors, 1 warning" in err
 
 
 def test_errors_exit_1():
     code, out, _ = run("lint", str(CASES / "P201_unknown_connection.folio"))
     assert code == 1
-    assert "error[P201]" in out
+    [(head, c, _)] = blocks(out)
+    assert head["sev"] == "error" and c == "P201"
 
 
 def test_errors_in_one_of_several_files_exit_1():
@@ -73,8 +91,8 @@ def test_unreadable_exit_2(tmp_path, name, why):
         target.write_bytes(b"portfolio a\x00b\n")
     code, out, err = run("lint", str(target))
     assert code == 2
-    m = HEAD.match(out.splitlines()[0])
-    assert m and m["code"] == "P001" and why in m["msg"]
+    [(m, c, _)] = blocks(out)
+    assert m and c == "P001" and why in m["msg"]
     assert "1 unreadable" in err
 
 
@@ -104,48 +122,67 @@ def test_bad_command_line_exit_2(argv, capsys):
 def test_text_format_points_at_the_source():
     path = CASES / "P201_unknown_connection.folio"
     code, out, _ = run("lint", str(path))
-    lines = out.splitlines()
-    m = HEAD.match(lines[0])
-    assert m, lines[0]
-    assert (m["path"], m["sev"], m["code"]) == (str(path), "error", "P201")
+    [(m, c, below)] = blocks(out)
+    assert m, out
+    assert (m["path"], m["sev"], c) == (str(path), "error", "P201")
     line, col = int(m["line"]), int(m["col"])
     source = path.read_text("utf-8").split("\n")[line - 1]
-    gutter, shown = lines[1].split(" | ", 1)
-    assert gutter.strip() == str(line) and shown == source
-    caret = lines[2]
-    assert caret.index("^") == len(gutter) + 3 + col - 1
-    assert shown[col - 1:].startswith("gird")
-    assert caret.count("^") == 1 and caret.rstrip().endswith("^~~~")   # the word 'gird' is 4 long
+    assert below[0].startswith("    text  ")
+    shown = below[0][len("    text  "):]
+    # the source line without its indentation, the misspelt word (4 long) between the markers
+    assert shown.replace(">>", "", 1).replace("<<", "", 1) == source.strip()
+    assert shown.count(">>") == 1 and shown.count("<<") == 1
+    lead = len(source) - len(source.lstrip())
+    assert shown.index(">>") == col - 1 - lead
+    assert shown[shown.index(">>") + 2:shown.index("<<")] == "gird"
     assert "did you mean 'grid'?" in m["msg"]
 
 
 def test_text_format_of_a_series_fault_shows_the_csv_line():
     code, out, _ = run("lint", str(CASES / "P403_bad_cells.folio"))
     assert code == 1
-    lines = out.splitlines()
-    heads = [HEAD.match(ln) for ln in lines if HEAD.match(ln)]
-    assert [h["code"] for h in heads] == ["P403", "P403"]
-    assert all(h["path"].endswith("bad_cell.csv") for h in heads)
-    first = lines.index(heads[0].group(0))
-    assert lines[first + 1].endswith("| 2027-03-01T01:00Z,x")
-    assert any(ln.strip().startswith("= series 'load' declared at") for ln in lines)
+    found = blocks(out)
+    assert [c for _, c, _ in found] == ["P403", "P403"]
+    assert all(h["path"].endswith("bad_cell.csv") for h, _, _ in found)
+    assert found[0][2][0] == "    text  2027-03-01T01:00Z,>>x<<"      # the CSV line, the bad cell marked
+    assert found[1][2][0] == "    text  2027-03-01T02:00Z,>><<"       # an empty cell: the place marked
+    assert all(any(ln.startswith("    note  series 'load' declared at") for ln in below)
+               for _, _, below in found)
 
 
 def test_text_format_notes_and_quiet():
     code, out, err = run("lint", "--quiet", str(CASES / "P202_duplicate_name.folio"))
     assert code == 1 and err == ""
-    assert "  = note: first declared at" in out
+    assert "\n    note  first declared at" in out
+    assert "note:" not in out                       # the label replaces the note's own prefix
 
 
 def test_text_format_every_case_has_well_formed_heads():
-    """Every diagnostic of every case renders as 'path:line:col: severity[CODE]: message'."""
+    """Every diagnostic of every case renders as 'path:line:col: severity: message',
+    then its code on a line of its own, then labelled lines of at most 80
+    columns (a note may overrun only by a word that cannot be broken)."""
     files = sorted(CASES.glob("*.folio"))
     code, out, _ = run("lint", "--quiet", *map(str, files))
-    heads = [ln for ln in out.splitlines() if not ln.startswith(" ")]
-    assert heads and all(HEAD.match(ln) for ln in heads), [ln for ln in heads if not HEAD.match(ln)][:3]
-    for ln in heads:
-        m = HEAD.match(ln)
-        assert REGISTRY[m["code"]].severity == m["sev"]
+    found = blocks(out)
+    assert found and all(m for m, _, _ in found), [m for m, _, _ in found if not m][:3]
+    labels = re.compile(r"^    (text  |note  |fix   |      )\S")     # or a wrapped note's next line
+    for m, c, below in found:
+        assert c in REGISTRY and REGISTRY[c].severity == m["sev"], (m.group(0), c)
+        assert "[" + c + "]" not in m.group(0)
+        for ln in below:
+            assert labels.match(ln), ln
+            assert len(ln) <= 80 or len(ln.split()) <= 2, ln        # over 80: one unbreakable word alone
+        assert sum(ln.startswith("    text  ") for ln in below) <= 1
+
+
+def test_text_format_retired_word_names_its_replacement():
+    path = CASES / "P104_retired_inflow.folio"
+    code, out, _ = run("lint", str(path))
+    [(m, c, below)] = blocks(out)
+    assert code == 1 and c == "P104" and (m["line"], m["col"]) == ("7", "3")
+    assert "'supply'" in m["msg"]
+    assert below[0].startswith("    text  >>inflow<< pv ")
+    assert below[1:] == ["    fix   write 'supply' in place of 'inflow'"]
 
 
 # ---- JSON format -----------------------------------------------------------------------
@@ -171,7 +208,7 @@ def test_json_agrees_with_text():
     path = str(CASES / "P205_wrong_kind.folio")
     _, text, _ = run("lint", path)
     _, js, _ = run("lint", "--format", "json", path)
-    from_text = [(m["code"], int(m["line"]), int(m["col"])) for m in map(HEAD.match, text.splitlines()) if m]
+    from_text = [(c, int(m["line"]), int(m["col"])) for m, c, _ in blocks(text)]
     from_json = [(d["code"], d["line"], d["column"]) for d in json.loads(js)["diagnostics"]]
     assert from_text == from_json and len(from_json) == 5
 
@@ -220,5 +257,5 @@ def test_source_line_follows_a_rewritten_file(tmp_path):
     text = target.read_text("utf-8").replace("site yard at gird {", "site  yard  at  gird {")
     target.write_text(text, "utf-8")
     _, second, _ = run("lint", str(target))
-    assert "| site yard at gird {" in first
-    assert "| site  yard  at  gird {" in second
+    assert "    text  site yard at >>gird<< {" in first
+    assert "    text  site  yard  at  >>gird<< {" in second

@@ -220,8 +220,9 @@ def test_mutated_examples_cli(sandbox, case, fmt):
             assert d["code"] in REGISTRY and d["line"] >= 1 and d["column"] >= 1
     else:
         heads = [ln for ln in out.split("\n") if ln and not ln.startswith(" ")]
-        assert all(re.match(r"^.+:\d+:\d+: (error|warning)\[P\d{3}\]: ", ln) for ln in heads), heads
-        assert (code == 1) == any("error[" in ln for ln in heads)
+        assert all(re.match(r"^.+:\d+:\d+: (error|warning): ", ln) for ln in heads), heads
+        assert all(len(ln) <= 80 for ln in out.split("\n") if ln.startswith("    text  ")), out
+        assert (code == 1) == any(re.match(r"^.+:\d+:\d+: error: ", ln) for ln in heads)
 
 
 @settings(max_examples=30, **FAST)

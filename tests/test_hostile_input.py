@@ -81,7 +81,7 @@ def test_escape_sequences_from_a_csv_header_never_reach_the_terminal(tmp_path):
     out, err = io.StringIO(), io.StringIO()
     code = main(["lint", str(folio)], out=out, err=err)
     shown = out.getvalue() + err.getvalue()
-    assert code == 1 and "error[P4" in shown        # the column is not found, and says which it saw
+    assert code == 1 and "code  P4" in shown        # the column is not found, and says which it saw
     assert "\x1b" not in shown and "\x07" not in shown
     assert "\\x1b" in shown                                   # shown, visibly escaped
 
@@ -100,5 +100,6 @@ def test_old_mac_and_windows_line_endings_read_like_any_other(tmp_path):
         assert main(["lint", str(src)], out=out, err=io.StringIO()) == 1
         shown = out.getvalue()
         # the faults are on line 4, and its text is what is shown under them
-        assert f"{src}:4:11: error[P201]" in shown and f"{src}:4:34: error[P302]" in shown
-        assert "    4 | site s at g { storage b { energy 4 MW } }" in shown
+        assert f"{src}:4:11: error: " in shown and f"{src}:4:34: error: " in shown
+        assert "    text  site s at >>g<< { storage b { energy 4 MW } }" in shown
+        assert "    text  site s at g { storage b { energy >>4 MW<< } }" in shown

@@ -8,13 +8,14 @@
 from __future__ import annotations
 
 import gc
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import List, Optional, Union
 
 from . import files
 from .check import check
 from .diagnostics import Diagnostic, PortfolioError, Sink, UnreadableFile
+from .facade import LoadedPortfolio
 from .graph import build_graph, check_topology
 from .model import Portfolio
 from .spans import Span
@@ -119,9 +120,14 @@ def lint_file(path: Union[str, Path], confine: bool = False) -> LintResult:
     return lint_text(text, str(path), Path(path).parent, confine=confine)
 
 
-def load(path: Union[str, Path], confine: bool = False) -> Portfolio:
-    """Read and check a portfolio file; raise :class:`PortfolioError` if it has errors."""
+def load(path: Union[str, Path], confine: bool = False) -> LoadedPortfolio:
+    """Read and check a portfolio file; raise :class:`PortfolioError` if it has errors.
+
+    The :class:`~portfolio.facade.LoadedPortfolio` holds the checked model
+    (``.model``), the path and the lint warnings, and dispatches, draws or
+    compiles it.
+    """
     result = lint_file(path, confine=confine)
     if not result.ok:
         raise PortfolioError(result.diagnostics)
-    return replace(result.portfolio, warnings=tuple(result.diagnostics))
+    return LoadedPortfolio(result.portfolio, str(path), tuple(result.diagnostics))

@@ -98,6 +98,15 @@ class DispatchResult:
         return write(self, out_dir, formats=formats)
 
 
+def _model_summary(built: Built, changed: bool) -> dict:
+    """What was solved: the portfolio as compiled, or its Pyomo model as the user changed it."""
+    mx = built.matrix
+    added = sum(b - a for name, (a, b) in mx.var_ranges.items() if name not in built.var_blocks
+                and name != "slack")
+    return {"source": "pyomo" if changed else "compiled", "columns": mx.num_col,
+            "rows": mx.num_row, "added_columns": added}
+
+
 def _explain(p: Portfolio, options: SolveOptions, index, deadline: Deadline) -> tuple:
     """Relax-mode solve: (list of Relaxation, total slack) or (None, None)."""
     rb = build(p, variant=options.variant, relax=True)
@@ -174,6 +183,48 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     if status == INFEASIBLE_OR_UNBOUNDED:
         status = INFEASIBLE
 
+    return _result(p, built, sol, status, options, relaxed, message, notes, explain_s)
+
+
+def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
+                   progress: Optional[Progress] = None) -> DispatchResult:
+    """Schedule a compiled portfolio whose Pyomo model the user changed
+    (``built`` from :meth:`portfolio.compile.Built.for_model`).
+
+    Solved, certified, polished and tabulated as :func:`dispatch` does, on
+    the arrays read back from the changed model.  What differs: an
+    infeasible model is not explained (the relaxed limits are the
+    portfolio's own; the user's rows have no spans), so ``infeasible`` is
+    HiGHS's claim; a model HiGHS cannot tell infeasible from unbounded is
+    solved once more with presolve off, and is an ``error`` if it still
+    cannot.  See docs/extending.md.
+    """
+    options = options or SolveOptions()
+    deadline = Deadline(options.time_limit)
+    sol = solve(built, options, progress, deadline=deadline)
+    notes = list(sol.notes)
+    if sol.status == INFEASIBLE_OR_UNBOUNDED and not deadline.expired():
+        again = solve(built, replace(options, presolve=False), deadline=deadline)
+        notes.append(f"HiGHS could not tell infeasible from unbounded; solved again with presolve "
+                     f"off: {again.status}")
+        notes.extend(again.notes)
+        sol = again
+    status, message = sol.status, sol.message
+    if status == INFEASIBLE_OR_UNBOUNDED:
+        status = ERROR
+        message = message or "HiGHS could not tell whether the changed model is infeasible or unbounded"
+    elif status == INFEASIBLE:
+        notes.append("infeasible is HiGHS's claim for the changed model: a model changed in Pyomo "
+                     "is not re-solved with slacks to name the limits that gave")
+    return _result(built.portfolio, built, sol, status, options, [], message, notes, 0.0,
+                   changed=True)
+
+
+def _result(p: Portfolio, built: Built, sol, status: str, options: SolveOptions,
+            relaxed: List[Relaxation], message: str, notes: List[str], explain_s: float,
+            changed: bool = False) -> DispatchResult:
+    """The tables, the summary and the :class:`DispatchResult` of a solve."""
+    index = p.horizon.index
     tables: Dict[str, pd.DataFrame] = {}
     schedule = None
     parts: dict = {}
@@ -207,6 +258,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
         "warm_start": options.warm_start and options.interface == "matrix",
         "solver_status": sol.highs_status,
         "caution": CAUTION,
+        "model": _model_summary(built, changed),
     }
     summary.update(parts)
     summary["relaxed"] = [r.to_dict() for r in relaxed]

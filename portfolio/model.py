@@ -228,7 +228,6 @@ class Portfolio:
     routes: tuple = ()
     cap: Optional[Cap] = None
     span: Span = NOWHERE
-    warnings: tuple = ()         # lint warnings found while loading
 
     def price(self, expr: Optional[PriceExpr]) -> np.ndarray:
         """A price expression evaluated on every step (zeros when absent)."""
@@ -242,25 +241,6 @@ class Portfolio:
         if name is None:
             return np.zeros(self.horizon.steps)
         return np.asarray(self.series[name].values, dtype=float)
-
-    def dispatch(self, options=None, progress=None, **settings):
-        """Solve this portfolio; see :func:`portfolio.dispatch.dispatch`.
-
-        ``settings`` build the options when none are given:
-        ``p.dispatch(time_limit=60, mip_gap=1e-3)``.
-        """
-        from .dispatch import dispatch
-        from .solve import SolveOptions
-        if settings:
-            if options is not None:
-                raise TypeError("give either options or settings such as time_limit=..., not both")
-            options = SolveOptions(**settings)
-        return dispatch(self, options, progress=progress)
-
-    def graph(self):
-        """The network graph (:func:`portfolio.graph.build_graph`)."""
-        from .graph import build_graph
-        return build_graph(self)
 
     @property
     def inputs(self) -> tuple:

@@ -47,10 +47,10 @@ def test_there_are_examples():
 
 @pytest.mark.parametrize("path", EXAMPLES, ids=[p.stem for p in EXAMPLES])
 def test_example_schedules_pass(path, tmp_path):
-    p = load(path)
-    r = dispatch(p)
+    loaded = load(path)
+    r = loaded.dispatch()
     assert r.status == "optimal", r.message
-    assert audit(p, _written(r, tmp_path)) == []
+    assert audit(loaded.model, _written(r, tmp_path)) == []
 
 
 # -- the auditor can fail ---------------------------------------------------------------

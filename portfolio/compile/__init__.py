@@ -37,7 +37,7 @@ from __future__ import annotations
 import gc
 import time
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Dict, Hashable, List, Optional, Tuple
 
 import numpy as np
@@ -119,6 +119,27 @@ class Built:
     @property
     def has_binaries(self) -> bool:
         return bool(self.matrix.integer.any())
+
+    def for_model(self, model) -> "Built":
+        """This compiled portfolio as the Pyomo ``model`` now stands: ``model``
+        is :attr:`model` (made by it), which the user may have changed.
+
+        The matrix is read back from the model
+        (:func:`~.pyomo_model.from_pyomo`): the portfolio's columns keep their
+        places and families, added variables follow as families of their own,
+        and the rows, bounds and objective are the model's.  Solving the
+        result certifies against those arrays, and a solution is loaded into
+        ``model``'s variables.
+        """
+        if model is not self._model:
+            raise ValueError("the model was not made by this compiled portfolio")
+        from .pyomo_model import from_pyomo
+        with _gc_paused():
+            mx, columns = from_pyomo(model, self.model_columns, self.matrix)
+        other = replace(self, matrix=mx, binary_vars=[n for n, b in mx.binary.items()
+                                                      if b and n in mx.var_ranges])
+        other._model, other._columns = model, columns
+        return other
 
 
 @contextmanager

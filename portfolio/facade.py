@@ -1,0 +1,107 @@
+"""What :func:`portfolio.load` returns: a checked portfolio and what to do with it.
+
+The model (:mod:`portfolio.model`) is data only and imports no stage after
+it; this façade, in the API layer, joins it to the pipeline:
+
+>>> p = portfolio.load("examples/kestrel_bay/kestrel_bay.folio")   # doctest: +SKIP
+>>> p.model.storages                  # the checked model              # doctest: +SKIP
+>>> result = p.dispatch(time_limit=60)                                # doctest: +SKIP
+>>> m = p.compile()                   # the Pyomo model, to extend     # doctest: +SKIP
+>>> result = p.solve(m)               # solved, certified, tabulated   # doctest: +SKIP
+
+Every method is written out (no attribute delegation to the model): the
+façade's surface is what this file says, and the model's fields are read
+through ``p.model``.  The pipeline is imported on first use, so loading and
+linting never load Pyomo or HiGHS.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import Tuple
+
+from .diagnostics import Diagnostic
+from .model import Portfolio
+
+
+class LoadedPortfolio:
+    """A portfolio read from ``path`` and checked without errors.
+
+    ``model``: the checked :class:`~portfolio.model.Portfolio`;
+    ``path``: the file it was read from; ``warnings``: the lint warnings
+    found while loading (errors would have stopped the load).
+    """
+
+    def __init__(self, model: Portfolio, path: str, warnings: Tuple[Diagnostic, ...] = ()):
+        self.model = model
+        self.path = path
+        self.warnings = tuple(warnings)
+
+    def __repr__(self) -> str:
+        return (f"<LoadedPortfolio {self.model.name!r} from {self.path!r}, "
+                f"{len(self.warnings)} warning(s)>")
+
+    @property
+    def name(self) -> str:
+        return self.model.name
+
+    def dispatch(self, options=None, progress=None, **settings):
+        """Schedule the portfolio; see :func:`portfolio.dispatch.dispatch`.
+
+        ``settings`` build the options when none are given:
+        ``p.dispatch(time_limit=60, mip_gap=1e-3)``.
+        """
+        from .dispatch import dispatch
+        return dispatch(self.model, _options(options, settings), progress=progress)
+
+    def graph(self):
+        """The network graph (:func:`portfolio.graph.build_graph`)."""
+        from .graph import build_graph
+        return build_graph(self.model)
+
+    def compile(self, variant: str = "tight"):
+        """A new Pyomo ``ConcreteModel`` of the portfolio, to inspect or extend.
+
+        One ``Var`` per variable family indexed ``(asset..., t)``, one
+        ``Constraint`` per row family and ``objective``
+        (:mod:`portfolio.compile.pyomo_model`).  Add variables, constraints
+        or objective terms to it, then pass it to :meth:`solve`; see
+        docs/extending.md.  Each call compiles afresh; the variant is the
+        formulation (:class:`~portfolio.solve.SolveOptions`), and :meth:`solve`
+        keeps it whatever its options say.
+        """
+        from .compile import build
+        built = build(self.model, variant=variant)
+        model = built.model
+        # the model and its compiled portfolio refer to each other, and go together
+        setattr(model, _COMPILED, built)
+        return model
+
+    def solve(self, model, options=None, progress=None, **settings):
+        """Schedule a model made by :meth:`compile`, as it now stands (the
+        user's constraints and objective terms included); the same
+        :class:`~portfolio.dispatch.DispatchResult` as :meth:`dispatch`, its
+        figures certified against the changed model
+        (:func:`portfolio.dispatch.dispatch_model`).  Raises ``ValueError``
+        for a model this portfolio did not make, or one that is not a linear
+        (mixed-integer) program.  The solution is also loaded into the
+        model's variables, the user's own included.
+        """
+        from .dispatch import dispatch_model
+        built = getattr(model, _COMPILED, None)
+        if built is None or built.portfolio is not self.model:
+            raise ValueError("solve() takes a model made by compile() of this portfolio")
+        options = replace(_options(options, settings), variant=built.variant)
+        return dispatch_model(built.for_model(model), options, progress=progress)
+
+
+def _options(options, settings: dict):
+    from .solve import SolveOptions
+    if settings:
+        if options is not None:
+            raise TypeError("give either options or settings such as time_limit=..., not both")
+        return SolveOptions(**settings)
+    return options or SolveOptions()
+
+
+_COMPILED = "_portfolio_compiled"     # the attribute of a compiled Pyomo model that holds its Built

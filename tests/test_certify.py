@@ -1,4 +1,4 @@
-"""The certified result (portfolio/certify.py) and the solve path around it.
+"""The certified result (portfolio/solve/certify.py) and the solve path around it.
 
 A solver's answer is a claim.  These tests feed the certificate doctored
 claims and see each check fire, check the dual bound against the LP
@@ -15,12 +15,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import factory as F
-from portfolio import certify, polish, solve
+from portfolio import solve
 from portfolio.api import lint_text
-from portfolio.certify import Claim, certify as check
+from portfolio.solve import certify, highs, matrix, polish, runs
+from portfolio.solve.certify import Claim, certify as check
 from portfolio.compile import build
 from portfolio.dispatch import dispatch
 from portfolio.solve import SolveOptions, new_highs, to_highs_lp
+from solve_support import polish_schedule
 
 # Found by checking generated portfolios against the independent PuLP/CBC
 # formulation (tests/oracle_pulp.py).  The optimum 342.444... is CBC's, and
@@ -207,7 +209,7 @@ def test_any_multipliers_give_a_bound_never_below_the_lp_optimum(lp_case, seed, 
 # --- the solve path: a failed claim is solved again --------------------------------
 
 def test_a_claim_that_fails_is_solved_again_and_noted(monkeypatch):
-    real = solve._run_highs
+    real = runs.run_highs
     calls = []
 
     def doctored(built, lp, is_mip, options, deadline, given, extra, label, progress, offset_s):
@@ -218,7 +220,7 @@ def test_a_claim_that_fails_is_solved_again_and_noted(monkeypatch):
             run.claim.bound = run.claim.objective
         return run
 
-    monkeypatch.setattr(solve, "_run_highs", doctored)
+    monkeypatch.setattr(runs, "run_highs", doctored)
     r = dispatch(_reproducer(), SolveOptions(mip_gap=0.0))
     assert len(calls) == 2 and calls[1] == "HiGHS without the warm start"
     assert r.status == "optimal" and r.objective == pytest.approx(OPTIMUM, abs=1e-6)
@@ -226,7 +228,7 @@ def test_a_claim_that_fails_is_solved_again_and_noted(monkeypatch):
 
 
 def test_when_every_way_fails_the_schedule_is_not_called_optimal(monkeypatch):
-    real = solve._run_highs
+    real = runs.run_highs
 
     def always_lies(*args):
         run = real(*args)
@@ -234,12 +236,12 @@ def test_when_every_way_fails_the_schedule_is_not_called_optimal(monkeypatch):
             run.claim.bound = certify.objective(args[0].matrix, run.claim.x) * 3
         return run
 
-    monkeypatch.setattr(solve, "_run_highs", always_lies)
+    monkeypatch.setattr(runs, "run_highs", always_lies)
     r = dispatch(_reproducer(), SolveOptions(mip_gap=0.0))
     assert r.status == "feasible" and r.has_schedule
     assert r.objective == pytest.approx(OPTIMUM, abs=1e-6)
     assert r.best_bound < 3 * OPTIMUM                       # the verified LP bound, not the lie
-    assert sum("not reported" in n for n in r.summary["notes"]) == len(solve.RETRIES)
+    assert sum("not reported" in n for n in r.summary["notes"]) == len(matrix.RETRIES)
 
 
 # --- polish and the spill tie-break -----------------------------------------------
@@ -267,8 +269,8 @@ def test_polish_recovers_a_worse_continuous_part():
     worse[ints] = np.round(x[ints])
     assert certify.check_vector(mx, worse)[0] <= 1e-6
     assert certify.objective(mx, worse) < OPTIMUM - 1.0
-    pol = polish.polish(mx, lp, worse, lambda s: new_highs(SolveOptions(), s), None,
-                        np.zeros(0, dtype=int), built.step_hours)
+    pol = polish_schedule(mx, lp, worse, lambda s: new_highs(SolveOptions(), s), None,
+                          np.zeros(0, dtype=int), built.step_hours)
     assert pol.objective == pytest.approx(OPTIMUM, abs=1e-6)
     assert pol.gained == pytest.approx(OPTIMUM - certify.objective(mx, worse), abs=1e-6)
     assert any(n.startswith("polish:") for n in pol.notes)
@@ -301,8 +303,8 @@ def test_the_tie_break_removes_spill_from_a_schedule_that_has_it():
     s0, _ = mx.var_ranges["soc"]
     x[s0:s0 + 4] = 2.0
     assert certify.check_vector(mx, x)[0] <= 1e-9
-    cols = solve._tidy_columns(built)
-    pol = polish.polish(mx, lp, x, lambda s: new_highs(SolveOptions(), s), None, cols, built.step_hours)
+    cols = matrix.tidy_columns(built)
+    pol = polish_schedule(mx, lp, x, lambda s: new_highs(SolveOptions(), s), None, cols, built.step_hours)
     assert pol.tidy_before == pytest.approx(4.0) and pol.tidy_after == pytest.approx(0.0, abs=1e-7)
     assert pol.objective == pytest.approx(0.0, abs=1e-6) and pol.tidy_cost <= polish.TIE_ABS * 2 + 1e-6
 
@@ -322,13 +324,13 @@ def test_a_needed_spill_stays_at_its_least():
 
 def test_every_highs_run_gets_at_most_what_is_left_of_the_limit(monkeypatch):
     given = []
-    real = solve.new_highs
+    real = highs.new_highs
 
     def spy(options, seconds=None):
         given.append(seconds)
         return real(options, seconds)
 
-    monkeypatch.setattr(solve, "new_highs", spy)
+    monkeypatch.setattr(highs, "new_highs", spy)
     r = dispatch(_reproducer(), SolveOptions(time_limit=5.0))
     assert r.status == "optimal"
     assert given and all(s is not None and 0 < s <= 5.0 for s in given)

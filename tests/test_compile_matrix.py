@@ -15,7 +15,8 @@ import scipy.sparse as sp
 import factory as F
 import random_portfolios as RP
 from portfolio.compile import Ctx, build
-from portfolio.solve import solve, to_highs_lp, to_standard_form
+from portfolio.solve import solve, to_highs_lp
+from solve_support import to_standard_form
 
 CASES = [("single", s) for s in (0, 3, 8, 13)] + [("linked", s) for s in (0, 2, 5)]
 

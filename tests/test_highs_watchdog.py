@@ -1,4 +1,4 @@
-"""The time limit is kept even where HiGHS keeps no watch (portfolio/highs.py).
+"""The time limit is kept even where HiGHS keeps no watch (portfolio/solve/highs.py).
 
 Structural, not timed: a stand-in for HiGHS's threaded run that never ends,
 or ends only when asked, with the grace period shrunk to a few hundredths of
@@ -12,7 +12,7 @@ import time
 import highspy
 import pytest
 
-from portfolio import highs as H
+from portfolio.solve import highs as H
 
 
 class _Stub(H._Highs):

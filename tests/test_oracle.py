@@ -18,7 +18,7 @@ import factory as F
 import random_portfolios as RP
 from oracle_pulp import INFEASIBLE, OPTIMAL, solve_oracle
 from portfolio.dispatch import dispatch
-from portfolio.polish import TIE_ABS, TIE_TOL
+from portfolio.solve.polish import TIE_ABS, TIE_TOL
 from portfolio.solve import SolveOptions
 
 REL, ABS = 1e-6, 1e-6
@@ -41,7 +41,7 @@ def _agree(r, o, label):
         pytest.skip(f"{label}: both infeasible")
     assert r.status == "optimal", (label, r.status, r.message)
     assert o.status == OPTIMAL, (label, o.status)
-    # proven at gap 0, less what the spill tie-break may give up (portfolio/polish.py)
+    # proven at gap 0, less what the spill tie-break may give up (portfolio/solve/polish.py)
     allowance = 2 * max(TIE_TOL * abs(r.objective), TIE_ABS) + 1e-6
     assert r.best_bound is not None and r.best_bound - r.objective <= allowance, \
         (label, r.objective, r.best_bound)

@@ -1,4 +1,4 @@
-"""The warm start (portfolio/warmstart.py): a first schedule from the LP
+"""The warm start (portfolio/solve/warmstart.py): a first schedule from the LP
 relaxation's RENS neighbourhood, checked against the matrix, handed to HiGHS.
 
 What must hold: the start is a schedule of the model (every bound, row and
@@ -17,8 +17,8 @@ import numpy as np
 import pytest
 
 import factory as F
-from portfolio import warmstart
-from portfolio.certify import check_vector
+from portfolio.solve import warmstart
+from portfolio.solve.certify import check_vector
 from portfolio.cli import main
 from portfolio.compile import build
 from portfolio.dispatch import dispatch

@@ -13,6 +13,10 @@ output off, the options' gap and threads, a time limit, and a ``run()`` that
   is left to finish in its own thread (its object kept alive, never touched
   again) and :class:`Abandoned` is raised, so the caller goes on with the
   schedule it already has.
+
+It also holds what is said in HiGHS's own terms: the compiled matrix as a
+``HighsLp`` (:func:`to_highs_lp`), and what each ``HighsModelStatus`` claims
+(:data:`HIGHS_STATUS`).
 """
 
 from __future__ import annotations
@@ -21,9 +25,12 @@ import os
 import sys
 import threading
 import time
-from typing import List, Optional
+from typing import Dict, List, Optional, Tuple
 
 import highspy
+import numpy as np
+
+from .options import ERROR, INFEASIBLE, INFEASIBLE_OR_UNBOUNDED, LIMIT, OPTIMAL, UNBOUNDED
 
 GRACE = 2.0
 
@@ -42,7 +49,7 @@ _banner_lock = threading.Lock()
 _banner_done = False
 
 
-def _quiet_banner() -> None:
+def quiet_banner() -> None:
     global _banner_done
     with _banner_lock:
         if _banner_done:
@@ -74,7 +81,7 @@ _threads_lock = threading.Lock()
 _threads_in_use: List[Optional[int]] = [None]
 
 
-def _use_threads(threads: Optional[int]) -> None:
+def use_threads(threads: Optional[int]) -> None:
     """HiGHS keeps one global thread pool, sized by the first solve; a
     different ``threads`` later is an error unless the pool is reset."""
     with _threads_lock:
@@ -138,8 +145,8 @@ def set_limit(h, seconds: float) -> None:
 def new_highs(options, seconds: Optional[float] = None) -> highspy.Highs:
     """A configured, silent Highs; ``seconds`` is its time limit (None: the
     options' limit, if any; a phase passes what is left of the dispatch's)."""
-    _quiet_banner()
-    _use_threads(options.threads)
+    quiet_banner()
+    use_threads(options.threads)
     h = _Highs()
     h.setOptionValue("output_flag", False)
     h.setOptionValue("mip_rel_gap", float(options.mip_gap))
@@ -153,3 +160,69 @@ def new_highs(options, seconds: Optional[float] = None) -> highspy.Highs:
     return h
 
 
+
+
+# --- the model and the answer, in HiGHS's terms ------------------------------------
+
+def make_lp(A, cost, col_lower, col_upper, row_lower, row_upper, offset, maximize,
+            integer) -> highspy.HighsLp:
+    """A ``HighsLp`` from a CSC matrix and its bounds (infinities as HiGHS's)."""
+    inf = highspy.kHighsInf
+    n = A.shape[1]
+    lp = highspy.HighsLp()
+    lp.num_col_ = n
+    lp.num_row_ = A.shape[0]
+    lp.col_cost_ = np.asarray(cost, dtype=float)
+    lp.col_lower_ = np.where(np.isneginf(col_lower), -inf, col_lower)
+    lp.col_upper_ = np.where(np.isposinf(col_upper), inf, col_upper)
+    lp.row_lower_ = np.where(np.isneginf(row_lower), -inf, row_lower)
+    lp.row_upper_ = np.where(np.isposinf(row_upper), inf, row_upper)
+    lp.offset_ = float(offset)
+    lp.sense_ = highspy.ObjSense.kMaximize if maximize else highspy.ObjSense.kMinimize
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.num_col_ = n
+    lp.a_matrix_.num_row_ = A.shape[0]
+    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = A.indices.astype(np.int32)
+    lp.a_matrix_.value_ = A.data.astype(float)
+    if integer.any():
+        lp.integrality_ = [highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
+                           for i in integer]
+    return lp
+
+
+def to_highs_lp(built) -> Tuple[highspy.HighsLp, bool]:
+    """A compiled portfolio -> (HighsLp, is_mip), straight from its matrix."""
+    mx = built.matrix
+    lp = make_lp(mx.A, mx.cost, mx.col_lower, mx.col_upper, mx.row_lower, mx.row_upper,
+                 mx.offset, mx.maximize, mx.integer)
+    return lp, bool(mx.integer.any())
+
+
+_S = highspy.HighsModelStatus
+HIGHS_STATUS: Dict[object, str] = {
+    _S.kOptimal: OPTIMAL,
+    _S.kModelEmpty: OPTIMAL,           # nothing to decide: the empty schedule is optimal
+    _S.kInfeasible: INFEASIBLE,
+    _S.kUnbounded: UNBOUNDED,
+    _S.kUnboundedOrInfeasible: INFEASIBLE_OR_UNBOUNDED,
+    _S.kTimeLimit: LIMIT,
+    _S.kIterationLimit: LIMIT,
+    _S.kSolutionLimit: LIMIT,
+    _S.kObjectiveBound: LIMIT,
+    _S.kObjectiveTarget: LIMIT,
+    _S.kInterrupt: LIMIT,
+    _S.kHighsInterrupt: LIMIT,
+    _S.kMemoryLimit: LIMIT,
+    _S.kUnknown: LIMIT,                # stopped without proof; an incumbent may exist
+    _S.kNotset: ERROR,
+    _S.kLoadError: ERROR,
+    _S.kModelError: ERROR,
+    _S.kPresolveError: ERROR,
+    _S.kSolveError: ERROR,
+    _S.kPostsolveError: ERROR,
+}
+
+# what a failing solve may raise (highspy.HighsError exists from highspy 1.16 on)
+SOLVER_ERRORS = tuple(e for e in (getattr(highspy, "HighsError", None),) if e is not None) + (
+    ValueError, RuntimeError, MemoryError)

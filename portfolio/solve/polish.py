@@ -1,8 +1,8 @@
 """Polish a schedule and break ties toward less spill and curtailment.
 
 Two linear programmes, run after the search on the schedule it returned
-(stage 5b, called by :mod:`portfolio.solve`, which owns every contact with
-HiGHS):
+(stage 5c, called by :mod:`portfolio.solve.matrix`, which hands in the way
+to make a Highs):
 
 1. **Polish** (a MILP only): fix every integer column at the returned
    schedule and solve the LP that is left.  If that earns more, the search's
@@ -18,7 +18,7 @@ HiGHS):
    the solver's feasibility tolerance, and is reported (``tie_break`` in
    summary.json).
 
-Each step keeps its result only when the checks of :mod:`portfolio.certify`
+Each step keeps its result only when the checks of :mod:`portfolio.solve.certify`
 pass on the original matrix; otherwise the schedule in hand stays and a note
 says why.  Both steps run under the caller's time budget; without time left
 they are skipped and a note says so.
@@ -26,7 +26,6 @@ they are skipped and a note says so.
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass, field
 from typing import Callable, List, Optional, Sequence
 
@@ -49,7 +48,6 @@ class Polished:
     tidy_before: Optional[float] = None   # MWh spilled + curtailed before the tie-break
     tidy_after: Optional[float] = None
     tidy_cost: float = 0.0                # money the tie-break gave up (>= 0)
-    seconds: float = 0.0
     notes: List[str] = field(default_factory=list)
 
 
@@ -58,30 +56,15 @@ def tidy_total(x: np.ndarray, cols: np.ndarray, dt: float) -> float:
     return float(dt * x[cols].sum()) if cols.size else 0.0
 
 
-def polish(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float],
-           tidy_cols: Sequence[int], dt: float, hot=None) -> Polished:
-    """Both steps (see the module docstring): :func:`improve`, then :func:`tie_break`.
-
-    ``lp`` is the HighsLp of ``mx``; ``new_highs(seconds)`` gives a configured
-    Highs; ``hot``, for an LP, is the Highs that solved it (the tie-break then
-    starts from its basis).  ``seconds`` None means no limit.
-    """
-    t0 = time.perf_counter()
-    best, h = improve(mx, lp, x, new_highs, seconds)
-    left = None if seconds is None else seconds - (time.perf_counter() - t0)
-    tie_break(mx, lp, best, h if h is not None else hot, new_highs, left, tidy_cols, dt)
-    best.seconds = time.perf_counter() - t0
-    return best
-
-
 def improve(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float]):
     """Step 1 for a MILP: (Polished, the Highs holding the fixed-integer LP, or None).
 
-    For a model without integers, ``x`` comes back as it is (an LP's optimum
-    is certified by its duals instead)."""
+    ``lp`` is the HighsLp of ``mx``; ``new_highs(seconds)`` gives a configured
+    Highs; ``seconds`` None means no limit.  For a model without integers,
+    ``x`` comes back as it is (an LP's optimum is certified by its duals
+    instead)."""
     import highspy
 
-    t0 = time.perf_counter()
     best = Polished(x=np.asarray(x, dtype=float), objective=objective(mx, x))
     ints = np.nonzero(mx.integer)[0].astype(np.int32)
     if not ints.size:
@@ -100,12 +83,10 @@ def improve(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float]
         h.run()
     except Abandoned:
         best.notes.append("polish: the fixed-integer LP did not stop at its time limit; schedule kept")
-        best.seconds = time.perf_counter() - t0
         return best, None
     if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
         best.notes.append("polish: the fixed-integer LP did not solve "
                           f"({h.modelStatusToString(h.getModelStatus())}); schedule kept")
-        best.seconds = time.perf_counter() - t0
         return best, None
     xp = np.asarray(h.getSolution().col_value, dtype=float)
     xp[ints] = vals
@@ -119,7 +100,6 @@ def improve(mx, lp, x: np.ndarray, new_highs: Callable, seconds: Optional[float]
             best.gained = gain
             best.notes.append(f"polish: with its integer decisions fixed, the search's schedule "
                               f"earns {gain:.6g} more; the better schedule is returned")
-    best.seconds = time.perf_counter() - t0
     return best, h
 
 
@@ -130,7 +110,6 @@ def tie_break(mx, lp, best: Polished, h, new_highs: Callable, seconds: Optional[
     ``h`` holds the model already solved with the integers fixed (or, for an
     LP, the LP itself), or is None: then a new Highs is made for an LP, and a
     MILP (whose fixed-integer LP did not solve) is left as it is."""
-    t0 = time.perf_counter()
     cols = np.asarray(tidy_cols, dtype=np.int32)
     if cols.size:
         best.tidy_before = best.tidy_after = tidy_total(best.x, cols, dt)
@@ -146,7 +125,6 @@ def tie_break(mx, lp, best: Polished, h, new_highs: Callable, seconds: Optional[
         h = new_highs(seconds)
         h.passModel(lp)
     _tie_break(mx, h, best, cols, dt, seconds)
-    best.seconds += time.perf_counter() - t0
 
 
 def _tie_break(mx, h, best: Polished, cols: np.ndarray, dt: float, seconds: Optional[float]) -> None:

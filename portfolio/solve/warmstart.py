@@ -27,7 +27,6 @@ value per column of the original matrix, so nothing needs mapping back.
 
 from __future__ import annotations
 
-import math
 import time
 from dataclasses import dataclass
 from typing import Callable, Optional
@@ -77,7 +76,7 @@ def find(built, lp, new_highs: Callable, seconds: float) -> Start:
 
     ``lp`` is the ``HighsLp`` of its matrix and ``new_highs()`` gives a
     configured ``highspy.Highs`` (options, threads, output off); both come
-    from :mod:`portfolio.solve`, which owns every contact with HiGHS.
+    from :mod:`portfolio.solve.matrix`, which makes every Highs the same way.
     """
     import highspy
 

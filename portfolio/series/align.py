@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime, timezone
 
 import numpy as np
-import pandas as pd
 
 from ..diagnostics import SeriesCoverage, Sink
 from ..model import Horizon
@@ -28,12 +28,8 @@ class Grid:
 
     @classmethod
     def of(cls, horizon: Horizon) -> "Grid":
-        start = pd.Timestamp(horizon.start)
-        if start.tzinfo is None:
-            start = start.tz_localize(horizon.zone)
-        step = pd.Timedelta(hours=horizon.step_hours).value
-        return cls(int(start.tz_convert("UTC").value), int(step), int(horizon.steps),
-                   horizon.zone, horizon.span)
+        return cls(_utc_ns(horizon.start, horizon.zone), _step_ns(horizon.step_hours),
+                   int(horizon.steps), horizon.zone, horizon.span)
 
     @property
     def end(self) -> int:
@@ -41,12 +37,41 @@ class Grid:
 
     def show(self, ns: int) -> str:
         """A UTC-nanosecond instant as ISO 8601 in the horizon's zone."""
+        import pandas as pd
+
         ts = pd.Timestamp(min(ns, _INT64_MAX), tz="UTC")
         try:
             ts = ts.tz_convert(self.zone)
         except Exception:       # the checker reports a bad zone (P305)
             pass
         return ts.isoformat()
+
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+
+
+def _utc_ns(start, zone: str) -> int:
+    """An aware start as nanoseconds since the epoch (pandas' ``Timestamp.value``);
+    a naive one is read in ``zone`` as pandas reads it."""
+    if start.tzinfo is None:
+        import pandas as pd
+
+        return int(pd.Timestamp(start).tz_localize(zone).tz_convert("UTC").value)
+    value = getattr(start, "value", None)              # a pandas Timestamp knows it
+    if isinstance(value, int):
+        return value
+    delta = start - _EPOCH
+    return (delta.days * 86400 + delta.seconds) * 10**9 + delta.microseconds * 1000
+
+
+def _step_ns(hours: float) -> int:
+    """``pd.Timedelta(hours=hours).value``, without pandas for a whole number of seconds."""
+    seconds = hours * 3600
+    if float(seconds).is_integer():
+        return int(seconds) * 10**9
+    import pandas as pd
+
+    return int(pd.Timedelta(hours=hours).value)
 
 
 def _duration(ns: int) -> str:

@@ -16,7 +16,6 @@ from pathlib import Path
 from typing import Dict, List, Optional, Sequence, Tuple
 
 import numpy as np
-import pandas as pd
 
 from .. import files
 from ..spans import Span
@@ -350,4 +349,6 @@ def column_notes(table: Table, wanted: Optional[str]) -> List[str]:
 def _looks_like_time(text: str) -> bool:
     if not re.match(r"^\d{4}-?\d{2}-?\d{2}", text):
         return False
+    import pandas as pd
+
     return not pd.isna(pd.to_datetime(text, format="ISO8601", errors="coerce", utc=True))

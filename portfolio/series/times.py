@@ -11,9 +11,9 @@ from dataclasses import dataclass
 from typing import Optional
 
 import numpy as np
-import pandas as pd
 
 from ..diagnostics import SeriesBadTime, SeriesDstGap, SeriesUnsorted, Sink
+from . import fast
 from .report import report_cells
 from .table import Cells, Table
 
@@ -73,6 +73,8 @@ def _split_offsets(cells, cuts: bool = False):
 
 def _tail_minutes(tail: np.ndarray) -> np.ndarray:
     """Offsets in minutes: NaN for no offset, inf for one that is no offset."""
+    import pandas as pd
+
     codes, tails = pd.factorize(tail)
     table = np.array([np.nan if not t else
                       (np.inf if _offset_minutes(t) is None else _offset_minutes(t))
@@ -121,6 +123,8 @@ def _offset_minutes(tail: str) -> Optional[int]:
 
 def _parse_local(texts: np.ndarray) -> np.ndarray:
     """Naive ISO 8601 texts -> int64 ns (``_NAT`` where unreadable)."""
+    import pandas as pd
+
     try:
         parsed = pd.DatetimeIndex(pd.to_datetime(texts, format="ISO8601", errors="coerce"))
         if parsed.tz is not None:
@@ -142,28 +146,17 @@ def parse_times(table: Table, col: int, zone: str, users, sink: Sink) -> Optiona
     column, _ = table.column(col)
     name = table.header[col]
     n = len(column)
-    local = np.empty(n, dtype=np.int64)
-    offset = np.empty(n)
-    for k in range(0, n, _TIME_CHUNK):                # a slice at a time: the str arrays stay small
-        part = column[k:k + _TIME_CHUNK]
-        texts, offset[k:k + _TIME_CHUNK] = (_split_one_layout(part) or _split_offsets(
-            part.astype("U") if part.dtype.kind == "S" else part))
-        local[k:k + _TIME_CHUNK] = _parse_local(texts)
-    readable = local != _NAT
-    aware = readable & ~np.isnan(offset)
-    naive = readable & np.isnan(offset)
+    local = np.full(n, _NAT, dtype=np.int64)      # naive local time; only the careful way sets it
     ns = np.zeros(n, dtype=np.int64)
-    ok = aware.copy()
+    ok = np.zeros(n, dtype=bool)
     dst = np.zeros(n, dtype=bool)
-    ns[aware] = local[aware] - (offset[aware] * 60e9).astype(np.int64)
-    if naive.any():
-        where = np.flatnonzero(naive)
-        stamps = pd.DatetimeIndex(local[where].view("datetime64[ns]"))
-        placed = stamps.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-        good = ~placed.isna()
-        ns[where[good]] = placed.asi8[good]
-        ok[where[good]] = True
-        dst[where[~good]] = True
+    for k in range(0, n, _TIME_CHUNK):                # a slice at a time: the str arrays stay small
+        part, cut = column[k:k + _TIME_CHUNK], slice(k, k + _TIME_CHUNK)
+        quick = fast.times(part, zone)
+        if quick is not None:
+            ns[cut], ok[cut] = quick, True
+        else:
+            _careful_times(part, zone, local[cut], ns[cut], ok[cut], dst[cut])
 
     cells = Cells(table, col)
     unreadable = np.flatnonzero(~ok & ~dst)
@@ -181,6 +174,8 @@ def parse_times(table: Table, col: int, zone: str, users, sink: Sink) -> Optiona
     gaps = np.flatnonzero(dst)
     if gaps.size:
         good_rows = np.flatnonzero(ok)
+        import pandas as pd
+
         example = (pd.Timestamp(int(ns[good_rows[0]]), tz="UTC").tz_convert(zone)
                    .isoformat(timespec="minutes") if good_rows.size else "2027-03-01T00:00+01:00")
         _report_dst(table, col, cells, gaps, local[gaps], zone, example, users, sink)
@@ -204,8 +199,34 @@ def parse_times(table: Table, col: int, zone: str, users, sink: Sink) -> Optiona
     return Times(ns, hold)
 
 
+def _careful_times(part: np.ndarray, zone: str, local: np.ndarray, ns: np.ndarray,
+                   ok: np.ndarray, dst: np.ndarray) -> None:
+    """One slice the careful way (offset split, pandas' ISO 8601 parse and its
+    zone rules), written into the views ``local``, ``ns``, ``ok`` and ``dst``."""
+    import pandas as pd
+
+    texts, offset = (_split_one_layout(part) or _split_offsets(
+        part.astype("U") if part.dtype.kind == "S" else part))
+    local[:] = _parse_local(texts)
+    readable = local != _NAT
+    aware = readable & ~np.isnan(offset)
+    naive = readable & np.isnan(offset)
+    ok[:] = aware
+    ns[aware] = local[aware] - (offset[aware] * 60e9).astype(np.int64)
+    if naive.any():
+        where = np.flatnonzero(naive)
+        stamps = pd.DatetimeIndex(local[where].view("datetime64[ns]"))
+        placed = stamps.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+        good = ~placed.isna()
+        ns[where[good]] = placed.asi8[good]
+        ok[where[good]] = True
+        dst[where[~good]] = True
+
+
 def _report_dst(table: Table, col: int, cells, rows: np.ndarray, local: np.ndarray,
                 zone: str, example: str, users, sink: Sink) -> None:
+    import pandas as pd
+
     idx = pd.DatetimeIndex(local.view("datetime64[ns]"))
     early = idx.tz_localize(zone, ambiguous=np.ones(len(idx), dtype=bool), nonexistent="NaT")
     late = idx.tz_localize(zone, ambiguous=np.zeros(len(idx), dtype=bool), nonexistent="NaT")

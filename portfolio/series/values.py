@@ -10,12 +10,12 @@ import re
 from typing import Optional, Tuple
 
 import numpy as np
-import pandas as pd
 
 from .. import units as U
 from ..diagnostics import SeriesBadValue, SeriesImplausible, SeriesLength, SeriesNegative, Sink
 from ..model import Series
 from ..spans import Span
+from . import fast
 from .align import Grid
 from .report import LISTED_MORE, negative_notes, report_cells
 from .spec import SeriesSpec, make_series
@@ -95,11 +95,15 @@ def load_constant(spec: SeriesSpec, grid: Grid, sink: Sink) -> Optional[Series]:
 def parse_numbers(table: Table, col: int, users, sink: Sink) -> Optional[np.ndarray]:
     texts, _ = table.column(col)
     values = np.empty(len(texts))
-    for k in range(0, len(texts), _CHUNK):             # pandas' parser, a slice at a time
+    for k in range(0, len(texts), _CHUNK):             # a slice at a time
         part = texts[k:k + _CHUNK]
-        if part.dtype.kind == "S":
-            part = part.astype("U")
-        values[k:k + _CHUNK] = pd.to_numeric(part, errors="coerce")
+        quick = fast.numbers(part)
+        if quick is None:                              # anything unusual: pandas' parser
+            import pandas as pd
+
+            quick = pd.to_numeric(part.astype("U") if part.dtype.kind == "S" else part,
+                                  errors="coerce")
+        values[k:k + _CHUNK] = quick
     bad = np.flatnonzero(~np.isfinite(values))
     if not bad.size:
         return values

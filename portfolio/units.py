@@ -4,20 +4,35 @@ Quantities are converted once, here, to the canonical units of
 :mod:`portfolio.model` (MW, MWh, h, fractions, money per MWh).  Money itself
 carries no unit: a price is written ``9.5 per MWh`` and means the user's
 currency per MWh.
+
+pint owns the vocabulary (``portfolio/units.txt``) and every factor, but it is
+slow to import, so it is imported only when needed: the factors of every
+``unit per unit`` the vocabulary can spell are a table that pint computed
+(``portfolio/units_table.py``, written by ``python -m portfolio.units``;
+``tests/test_units.py`` checks that pint gives the same dimension and the same
+float for every pair of words).  A word outside the table (a plural such as
+``hours``, a typing error) goes to pint itself.
 """
 
 from __future__ import annotations
 
+import os
+import sys
+import tempfile
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
-from typing import Optional, Tuple
+from pathlib import Path
+from typing import Dict, Optional, Tuple
 
-import pint
+from . import units_table
 
 
 @lru_cache(maxsize=1)
-def registry() -> pint.UnitRegistry:
+def registry():
+    """pint's registry over the vocabulary (imports pint)."""
+    import pint
+
     path = resources.files("portfolio").joinpath("units.txt")
     with resources.as_file(path) as p:
         return pint.UnitRegistry(filename=str(p), autoconvert_offset_to_baseunit=False)
@@ -42,6 +57,8 @@ RATE = Dim("rate", "1/h", "a percentage per time", "0.05% per h")
 RAMP = Dim("ramp", "MW/h", "a power per time", "10 MW per min")
 
 ALL = (POWER, ENERGY, TIME, FRACTION, PRICE, RATE, RAMP)
+_BY_KEY = {d.key: d for d in ALL}
+_OTHER_KIND = "a quantity of another kind"
 
 # The largest magnitude accepted per dimension, in canonical units: far beyond
 # any plant or market (1 TW, 1 PWh, 1e8 money per MWh, which leaves room for
@@ -51,6 +68,10 @@ ALL = (POWER, ENERGY, TIME, FRACTION, PRICE, RATE, RAMP)
 PLAUSIBLE = {POWER: (1e6, "MW"), ENERGY: (1e9, "MWh"), PRICE: (1e8, "per MWh"),
              RAMP: (1e7, "MW per h")}
 FACTOR_PLAUSIBLE = 1e3     # a route's factor (a plain number)
+
+# The words offered when a unit is not understood ("did you mean"), in the
+# order they are offered; tests/test_units.py checks each is in units.txt.
+SUGGESTED = ("MW", "kW", "GW", "MWh", "kWh", "GWh", "%", "h", "min", "s", "d")
 
 
 class UnitProblem(Exception):
@@ -89,6 +110,18 @@ def factor(unit: Optional[str], per: Optional[str], dims: Tuple[Dim, ...]) -> Tu
 
     Raises UnitProblem when a unit is unknown or matches none of ``dims``.
     """
+    words = units_table.WORDS
+    if (unit is None or unit in words) and (per is None or per in words):
+        key, f = units_table.FACTORS.get((words.get(unit), words.get(per)), (None, 0.0))
+        for dim in dims:
+            if dim.key == key:
+                return dim, f
+        raise UnitProblem("dimension", _BY_KEY[key].words if key else _OTHER_KIND)
+    return pint_factor(unit, per, dims)
+
+
+def pint_factor(unit: Optional[str], per: Optional[str], dims: Tuple[Dim, ...]) -> Tuple[Dim, float]:
+    """:func:`factor` asked of pint itself (what the table was made from)."""
     ureg = registry()
     for part in (unit, per):
         if part is None:
@@ -112,8 +145,52 @@ def _dimension_words(q) -> str:
         target = _parse(dim.unit) if dim.unit != "dimensionless" else ureg.dimensionless
         if q.dimensionality == ureg.Quantity(1.0, target).dimensionality:
             return dim.words
-    return "a quantity of another kind"
+    return _OTHER_KIND
 
 
 def known_units() -> list:
-    return ["MW", "kW", "GW", "MWh", "kWh", "GWh", "%", "h", "min", "s", "d"]
+    return list(SUGGESTED)
+
+
+# ---------------------------------------------------------------------------
+# the table, made by pint
+# ---------------------------------------------------------------------------
+
+def build_table() -> Tuple[Dict[str, str], Dict[tuple, Tuple[Optional[str], float]]]:
+    """(every word of units.txt -> its unit's name, (name or None, name or None) ->
+    (dimension key or None, factor)) as pint gives them."""
+    ureg = registry()
+    words = {w: ureg.get_name(w) for w in sorted(ureg._units)}
+    names = [None] + sorted(set(words.values()))
+    factors: Dict[tuple, Tuple[Optional[str], float]] = {}
+    for unit in names:
+        for per in names:
+            try:
+                dim, f = pint_factor(unit, per, ALL)
+                factors[(unit, per)] = (dim.key, f)
+            except UnitProblem:
+                factors[(unit, per)] = (None, float("nan"))
+    return words, factors
+
+
+def write_table(path: Path) -> None:
+    """Write the table module (atomically: a temporary file, then rename)."""
+    words, factors = build_table()
+    lines = ['"""The units table: written by `python -m portfolio.units` from units.txt with pint;',
+             "do not edit.  tests/test_units.py checks that pint gives these factors.",
+             '"""', "", "WORDS = {"]
+    lines += [f"    {w!r}: {n!r}," for w, n in words.items()]
+    lines += ["}", "", "# (unit, per) -> (dimension key, factor to its canonical unit); None: no dimension of ours",
+              "FACTORS = {"]
+    lines += [f"    {k!r}: ({d!r}, {f!r})," for k, (d, f) in factors.items() if d is not None]
+    lines += ["}", ""]
+    text = "\n".join(lines)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".units_table.", suffix=".tmp")
+    with os.fdopen(fd, "w", encoding="utf-8") as out:
+        out.write(text)
+    os.replace(tmp, path)
+
+
+if __name__ == "__main__":      # python -m portfolio.units: rewrite the table after editing units.txt
+    write_table(Path(__file__).with_name("units_table.py"))
+    sys.exit(0)

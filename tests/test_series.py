@@ -16,7 +16,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from portfolio import series as series_mod
+from portfolio.series import load as series_load
 from portfolio.diagnostics import Sink
 from portfolio.model import Horizon
 from portfolio.series import SeriesSpec, load_series
@@ -251,13 +251,13 @@ def test_a_year_of_quarter_hours(tmp_path):
 
 def test_each_file_is_read_once(monkeypatch):
     calls = []
-    real = series_mod._read_table
+    real = series_load.read_table
 
     def counting(resolved, shown):
         calls.append(resolved)
         return real(resolved, shown)
 
-    monkeypatch.setattr(series_mod, "_read_table", counting)
+    monkeypatch.setattr(series_load, "read_table", counting)
     out, sink = load([spec("prices_hourly.csv", name="a"),
                       spec("./prices_hourly.csv", name="b", column="peak"),
                       spec("bad_cell.csv", name="c", column="time")])

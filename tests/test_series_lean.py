@@ -16,7 +16,7 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from portfolio import series as series_mod
+from portfolio.series import table as series_table
 from portfolio.diagnostics import Sink
 from portfolio.model import Horizon
 from portfolio.series import SeriesSpec, load_series
@@ -32,9 +32,9 @@ ODD_TIMES = ["", "2027-02-30T00:00", "2027-03-01T24:00", "2027-03-01T00:00+25:00
 def run(path: Path, specs, hz, careful: bool, monkeypatch):
     with monkeypatch.context() as m:
         if careful:
-            m.setattr(series_mod, "_leanable", lambda data: False)
+            m.setattr(series_table, "leanable", lambda data: False)
         else:
-            assert series_mod._leanable(path.read_bytes()), "meant for the lean path"
+            assert series_table.leanable(path.read_bytes()), "meant for the lean path"
         sink = Sink()
         out = load_series(specs, hz, path.parent, sink)
     return ({k: (s.values.tolist(), s.origin) for k, s in out.items()},
@@ -116,8 +116,8 @@ def test_a_bad_cell_deep_in_a_year_is_reported_at_its_line_and_column(tmp_path, 
 
 
 def test_files_the_lean_way_does_not_read_are_left_to_the_careful_way():
-    assert series_mod._leanable(b"time,a\n2027-03-01T00:00Z,1\n")
-    assert not series_mod._leanable(b'time,"a, b"\n2027-03-01T00:00Z,1\n')     # quoted
-    assert not series_mod._leanable("time,\u00e9\n".encode())                   # not ASCII
-    assert not series_mod._leanable(b"time,a\n2027-03-01T00:00Z,1\x1c\n")       # str.strip whitespace
-    assert not series_mod._leanable(b"time,a\n" + b"1" * 200_000 + b"\n")       # past csv's field limit
+    assert series_table.leanable(b"time,a\n2027-03-01T00:00Z,1\n")
+    assert not series_table.leanable(b'time,"a, b"\n2027-03-01T00:00Z,1\n')     # quoted
+    assert not series_table.leanable("time,\u00e9\n".encode())                   # not ASCII
+    assert not series_table.leanable(b"time,a\n2027-03-01T00:00Z,1\x1c\n")       # str.strip whitespace
+    assert not series_table.leanable(b"time,a\n" + b"1" * 200_000 + b"\n")       # past csv's field limit

@@ -3,9 +3,10 @@
 Generates, in a temporary folder, CSV files with a time column (UTC offsets)
 and value columns, and loads them with ``portfolio.series.load_series`` onto
 a year-long 15-minute horizon: the reader as it is now and, side by side in
-the same run, the reader of a baseline commit (its ``portfolio/series.py``
-taken from git and loaded beside the package).  Prints time (median of
-``--repeats`` runs; one run for the large file) and tracemalloc's peak, and
+the same run, the reader of a baseline commit (its ``portfolio/series.py``,
+or ``portfolio/series/`` after the split, taken from git and loaded beside
+the package).  Prints time (median of ``--repeats`` runs; one run for the
+large file) and tracemalloc's peak, and
 the ratio of each to the file's size.  Not collected by pytest; no targets
 asserted (docs/performance.md, "Series reader").
 
@@ -40,14 +41,28 @@ DECL = Span("bench.folio", 1, 1, 1, 2)
 
 
 def baseline_module(rev: str):
-    """``portfolio/series.py`` at ``rev``, loaded as a module of the package."""
-    source = subprocess.run(["git", "-C", str(ROOT), "show", f"{rev}:portfolio/series.py"],
-                            check=True, capture_output=True, text=True).stdout
-    spec = importlib.util.spec_from_loader("portfolio._series_baseline", loader=None)
+    """The series reader at ``rev`` (``portfolio/series.py``, or the package
+    ``portfolio/series/`` from its split on), loaded beside the package."""
+    name = "portfolio._series_baseline"
+    single = subprocess.run(["git", "-C", str(ROOT), "show", f"{rev}:portfolio/series.py"],
+                            capture_output=True, text=True)
+    if single.returncode == 0:
+        spec = importlib.util.spec_from_loader(name, loader=None)
+        module = importlib.util.module_from_spec(spec)
+        module.__package__ = "portfolio"
+        sys.modules[spec.name] = module
+        exec(compile(single.stdout, f"{rev}:portfolio/series.py", "exec"), module.__dict__)
+        return module
+    folder = Path(tempfile.mkdtemp(prefix="series_baseline_"))
+    archive = subprocess.run(["git", "-C", str(ROOT), "archive", rev, "portfolio/series"],
+                             check=True, capture_output=True).stdout
+    subprocess.run(["tar", "-x", "-C", str(folder)], input=archive, check=True)
+    package = folder / "portfolio" / "series"
+    spec = importlib.util.spec_from_file_location(name, package / "__init__.py",
+                                                  submodule_search_locations=[str(package)])
     module = importlib.util.module_from_spec(spec)
-    module.__package__ = "portfolio"
-    sys.modules[spec.name] = module
-    exec(compile(source, f"{rev}:portfolio/series.py", "exec"), module.__dict__)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
     return module
 
 

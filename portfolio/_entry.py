@@ -22,6 +22,6 @@ signal.signal(signal.SIGINT, _interrupted_at_start_up)
 
 
 def run() -> None:
-    from .cli import run as cli_run           # the imports the handler above covers
-    signal.signal(signal.SIGINT, signal.default_int_handler)
-    cli_run()
+    from . import cli                         # the imports the handler above covers
+    signal.signal(signal.SIGINT, cli.on_interrupt)
+    cli.run()

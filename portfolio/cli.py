@@ -405,6 +405,29 @@ class _Progress:
                 self.status = None
 
 
+_interrupted = False
+
+
+def on_interrupt(signum, frame) -> None:
+    """The command's SIGINT handler: remember the Ctrl-C, then raise KeyboardInterrupt.
+
+    A C extension being imported at that moment may turn the KeyboardInterrupt
+    into another error (NumPy reports an ImportError for its datetime module);
+    the flag lets :func:`run` still end quietly with 130."""
+    global _interrupted
+    _interrupted = True
+    raise KeyboardInterrupt
+
+
+def _leave_interrupted() -> None:
+    _quiet_stdout()
+    print("portfolio: interrupted", file=sys.stderr)
+    sys.stderr.flush()
+    # a cancelled HiGHS run may still be busy in a worker thread until its
+    # next check: leave without waiting for it (nothing is being written)
+    os._exit(130)
+
+
 def run() -> None:  # console-script entry point
     """``main`` with the process-level cases: Ctrl-C (exit 130), a reader
     that went away (``portfolio lint ... | head``) or a full standard output:
@@ -416,12 +439,7 @@ def run() -> None:  # console-script entry point
             sys.stderr.flush()
             os._exit(130)             # see below: do not wait for a cancelled HiGHS run
     except KeyboardInterrupt:
-        _quiet_stdout()
-        print("portfolio: interrupted", file=sys.stderr)
-        sys.stderr.flush()
-        # a cancelled HiGHS run may still be busy in a worker thread until its
-        # next check: leave without waiting for it (nothing is being written)
-        os._exit(130)
+        _leave_interrupted()
     except BrokenPipeError:
         _quiet_stdout()                 # the reader has gone: nothing more to say
         code = 141                      # 128 + SIGPIPE, as a shell reports it
@@ -431,6 +449,10 @@ def run() -> None:  # console-script entry point
         _quiet_stdout()
         print(printable(f"portfolio: cannot write to standard output: {e.strerror}"), file=sys.stderr)
         code = EXIT_USAGE
+    except Exception:
+        if not _interrupted:
+            raise
+        _leave_interrupted()   # an error that a Ctrl-C caused on its way through
     sys.exit(code)
 
 

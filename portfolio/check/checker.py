@@ -1,38 +1,24 @@
-"""The checker's state and its passes over the statements."""
+"""The checker's passes over the statements: the heading, the names, the declarations."""
 
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Dict, List, Optional
+from typing import List, Optional
 
 from .. import model as M
-from ..diagnostics import DuplicateSetting, MissingSetting, Sink, UnusedPreset
-from ..series import SeriesSpec, load_series
+from ..diagnostics import DuplicateSetting, MissingSetting, UnusedPreset
+from ..series import load_series
 from ..spans import Span
 from . import network
+from .context import Context
 from .horizon import check_horizon
-from .names import Names
-from .quantities import Quantities
 from .sources import series_spec
 from .storage import check_preset_chain
-from .tree import Block, Node
+from .tree import Node
 
 
-class Checker:
-    """What the passes share: the sink, the namespace, the horizon, the series to load."""
-
-    def __init__(self, path: str, base_dir: Path, sink: Sink, confine: bool = False):
-        self.path = path
-        self.base_dir = base_dir
-        self.sink = sink
-        self.confine = confine      # read no series file outside base_dir
-        self.names = Names(sink)
-        self.units = Quantities(sink)
-        self.presets: Dict[str, Block] = {}
-        self.used_presets: set = set()
-        self.circles: set = set()   # preset circles already reported
-        self.specs: List[SeriesSpec] = []
-        self.horizon: Optional[M.Horizon] = None
+class Checker(Context):
+    """The passes over the statements."""
 
     def run(self, stmts: List[Node]) -> Optional[M.Portfolio]:
         name, name_span = self.heading(stmts)

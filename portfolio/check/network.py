@@ -8,22 +8,20 @@ graph (:func:`portfolio.graph.check_topology`).
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING, Dict, List, Optional, Tuple
+from typing import Dict, List, Optional, Tuple
 
 from .. import model as M
 from .. import units as U
 from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced, Implausible,
                            ImportUnpriced, OutOfRange, RouteDuplicate, RouteKindMismatch, RouteToSelf,
                            SpillNotAllowed, UnusedSetting)
+from .context import Context
 from .horizon import MAX_STEPS
 from .names import a
 from .quantities import fmt
 from .sources import series_spec
 from .storage import check_storage
 from .tree import Block, PriceExpr, Route, Setting, said
-
-if TYPE_CHECKING:
-    from .checker import Checker
 
 # What a route kind may join: (source kind, target kind).  docs/language.md
 ROUTE_RULES = {
@@ -34,7 +32,7 @@ ROUTE_RULES = {
 }
 
 
-def settings(ck: "Checker", nodes, what: str) -> Dict[str, Setting]:
+def settings(ck: Context, nodes, what: str) -> Dict[str, Setting]:
     """Settings by key; a second one with the same key is reported and left out."""
     out: Dict[str, Setting] = {}
     for n in nodes:
@@ -46,7 +44,7 @@ def settings(ck: "Checker", nodes, what: str) -> Dict[str, Setting]:
     return out
 
 
-def _limits(ck: "Checker", s: Dict[str, Setting], what: str):
+def _limits(ck: Context, s: Dict[str, Setting], what: str):
     """The export and import limits among ``s``: (values, spans); ``what`` names them in messages."""
     vals, spans = {}, {}
     for key in ("export_max", "import_max"):
@@ -58,7 +56,7 @@ def _limits(ck: "Checker", s: Dict[str, Setting], what: str):
 
 # -- connections and caps ----------------------------------------------------------------
 
-def check_connection(ck: "Checker", st: Block) -> M.Connection:
+def check_connection(ck: Context, st: Block) -> M.Connection:
     name = st.name.text
     s = settings(ck, st.settings, f"connection '{name}'")
     vals, spans = _limits(ck, s, f"the {{}} of '{name}'")
@@ -73,7 +71,7 @@ def check_connection(ck: "Checker", st: Block) -> M.Connection:
     return M.Connection(name=name, span=st.span, spans=spans, **vals)
 
 
-def _check_prices(ck: "Checker", st: Block, s: Dict[str, Setting], vals: dict) -> None:
+def _check_prices(ck: Context, st: Block, s: Dict[str, Setting], vals: dict) -> None:
     """Every direction a connection can carry needs a price: a missing buy price
     would make imports free (an error), a missing sell price makes exports worthless."""
     name, sp = st.name.text, st.name.span
@@ -89,7 +87,7 @@ def _check_prices(ck: "Checker", st: Block, s: Dict[str, Setting], vals: dict) -
                     "note: or 'export max 0 MW' if the connection cannot export")
 
 
-def price_expr(ck: "Checker", node: PriceExpr, owner: str) -> Optional[M.PriceExpr]:
+def price_expr(ck: Context, node: PriceExpr, owner: str) -> Optional[M.PriceExpr]:
     if node.series is None:
         got = ck.units.quantity(node.quantity, (U.PRICE,), f"the price of '{owner}'")
         return M.PriceExpr(series=None, adder=got[1], span=node.span) if got else None
@@ -103,7 +101,7 @@ def price_expr(ck: "Checker", node: PriceExpr, owner: str) -> Optional[M.PriceEx
     return M.PriceExpr(series=series, adder=adder, span=node.span) if series else None
 
 
-def check_cap(ck: "Checker", st: Block) -> M.Cap:
+def check_cap(ck: Context, st: Block) -> M.Cap:
     s = settings(ck, st.settings, "the 'total' limits")
     vals, spans = _limits(ck, s, "the total {}")
     if not s:
@@ -113,7 +111,7 @@ def check_cap(ck: "Checker", st: Block) -> M.Cap:
 
 # -- sites ----------------------------------------------------------------------------------
 
-def check_site(ck: "Checker", st: Block, found: dict) -> None:
+def check_site(ck: Context, st: Block, found: dict) -> None:
     """Add the site, and what it holds, to ``found`` (the portfolio's collections by field name)."""
     name = st.name.text
     conn = ck.names.ref(st.other, ("connection",), "connection")
@@ -138,7 +136,7 @@ def check_site(ck: "Checker", st: Block, found: dict) -> None:
                 found["routes"].append(r)
 
 
-def check_supply(ck: "Checker", node: Block, site: str) -> M.Supply:
+def check_supply(ck: Context, node: Block, site: str) -> M.Supply:
     nm = node.name.text
     series_spec(ck.units, ck.specs, node.name, node.other, "power", node.span)
     s = settings(ck, node.settings, f"supply '{nm}'")
@@ -171,7 +169,7 @@ def check_supply(ck: "Checker", node: Block, site: str) -> M.Supply:
 
 # -- routes ---------------------------------------------------------------------------------
 
-def route_syntax(ck: "Checker", st: Route) -> Optional[Tuple[M.Route, float]]:
+def route_syntax(ck: Context, st: Route) -> Optional[Tuple[M.Route, float]]:
     """A route as written, with its delay in hours (made steps in :func:`check_routes`)."""
     src = ck.names.ref(st.source, ("storage",), "storage")
     kind = st.kind.text
@@ -210,7 +208,7 @@ def route_syntax(ck: "Checker", st: Route) -> Optional[Tuple[M.Route, float]]:
     return r, delay_h  # the delay in steps is settled in check_routes, once the horizon is known
 
 
-def _factor(ck: "Checker", opt: Setting) -> float:
+def _factor(ck: Context, opt: Setting) -> float:
     f = float(opt.value.text)
     if not (f > 0 and math.isfinite(f)):
         ck.sink.add(OutOfRange, opt.span, f"the factor must be above zero, found {fmt(f)}")
@@ -220,7 +218,7 @@ def _factor(ck: "Checker", opt: Setting) -> float:
     return f
 
 
-def _route_efficiency(ck: "Checker", opt: Setting, kind: str, vals: dict, spans: dict) -> None:
+def _route_efficiency(ck: Context, opt: Setting, kind: str, vals: dict, spans: dict) -> None:
     got = ck.units.quantity(opt.value, (U.FRACTION,), "the route's efficiency")
     if got is not None:
         if not 0 < got[1] <= 1:
@@ -233,7 +231,7 @@ def _route_efficiency(ck: "Checker", opt: Setting, kind: str, vals: dict, spans:
                     f"an efficiency applies to 'transfer' routes; a {kind} route loses nothing on the way (use 'factor')")
 
 
-def check_routes(ck: "Checker", routes: List[Tuple[M.Route, float]], storages: Dict[str, M.Storage]) -> List[M.Route]:
+def check_routes(ck: Context, routes: List[Tuple[M.Route, float]], storages: Dict[str, M.Storage]) -> List[M.Route]:
     """Routes in steps of the horizon, each joining stores it may join, under a name of its own."""
     out = []
     taken: set = set()
@@ -262,7 +260,7 @@ def check_routes(ck: "Checker", routes: List[Tuple[M.Route, float]], storages: D
     return out
 
 
-def _delay_steps(ck: "Checker", r: M.Route, delay_h: float) -> Optional[Tuple[int, bool]]:
+def _delay_steps(ck: Context, r: M.Route, delay_h: float) -> Optional[Tuple[int, bool]]:
     """(the delay in whole steps, whether it was whole); None when no horizon could hold it."""
     step = ck.horizon.step_hours if ck.horizon else None
     if not step:
@@ -280,7 +278,7 @@ def _delay_steps(ck: "Checker", r: M.Route, delay_h: float) -> Optional[Tuple[in
     return int(round(d)), ok
 
 
-def _joins(ck: "Checker", r: M.Route, storages: Dict[str, M.Storage], seen: dict) -> bool:
+def _joins(ck: Context, r: M.Route, storages: Dict[str, M.Storage], seen: dict) -> bool:
     """The route joins two different stores of kinds its kind may join, the first of its kind from its source."""
     ok = True
     src, dst = storages.get(r.source), storages.get(r.target)
@@ -311,7 +309,7 @@ def _joins(ck: "Checker", r: M.Route, storages: Dict[str, M.Storage], seen: dict
     return ok
 
 
-def _output_name(ck: "Checker", r: M.Route, taken: set) -> Optional[str]:
+def _output_name(ck: Context, r: M.Route, taken: set) -> Optional[str]:
     """A unique output name: a second transfer between the same two stores gets a suffix."""
     name, n = r.name, 2
     while name in taken:

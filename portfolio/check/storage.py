@@ -10,26 +10,24 @@ carries in from before the horizon (``was ...``) is read by
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING, Dict, Optional, Tuple
+from typing import Dict, Optional, Tuple
 
 from .. import model as M
 from .. import units as U
 from ..diagnostics import (DuplicateSetting, LimitInconsistent, MissingSetting, OutOfRange, RuleTooLong,
                            SocInconsistent, UnusedSetting)
 from ..spans import Span
+from .context import Context
 from .names import suggest
 from .quantities import fmt
 from .sources import series_spec
 from .state import check_carried_state, steps_rounded_up
 from .tree import Block, Quantity, said
 
-if TYPE_CHECKING:
-    from .checker import Checker
-
 
 # -- presets and merged settings ---------------------------------------------------------
 
-def preset_settings(ck: "Checker", name: str, chain: Tuple[str, ...], at: Span,
+def preset_settings(ck: Context, name: str, chain: Tuple[str, ...], at: Span,
                     use: bool = True) -> Optional[Dict[str, object]]:
     """The settings preset ``name`` gives, its parents' first; None when one is unknown or in a circle."""
     node = ck.presets.get(name)
@@ -56,12 +54,12 @@ def preset_settings(ck: "Checker", name: str, chain: Tuple[str, ...], at: Span,
     return merged
 
 
-def check_preset_chain(ck: "Checker", st: Block) -> None:
+def check_preset_chain(ck: Context, st: Block) -> None:
     # Presets are checked through the storages that take them; a circle is reported once here.
     preset_settings(ck, st.name.text, (), st.name.span, use=False)
 
 
-def storage_settings(ck: "Checker", nodes, what: str) -> Dict[str, object]:
+def storage_settings(ck: Context, nodes, what: str) -> Dict[str, object]:
     """Settings by key (each 'soc' part its own; 'round trip' is the efficiency); repeats reported."""
     out: Dict[str, object] = {}
     for n in nodes:
@@ -80,7 +78,7 @@ def storage_settings(ck: "Checker", nodes, what: str) -> Dict[str, object]:
     return out
 
 
-def check_storage(ck: "Checker", node: Block, site: str) -> Optional[M.Storage]:
+def check_storage(ck: Context, node: Block, site: str) -> Optional[M.Storage]:
     nm = node.name.text
     settings: Dict[str, object] = {}
     if node.other is not None:
@@ -109,7 +107,7 @@ class StorageBuilder:
                   ("discharge_min", "minimum discharge when running"),
                   ("min_run_h", "minimum run"), ("min_rest_h", "minimum rest"))
 
-    def __init__(self, ck: "Checker", name: str, site: str, span: Span, s: Dict[str, object]):
+    def __init__(self, ck: Context, name: str, site: str, span: Span, s: Dict[str, object]):
         self.ck, self.name, self.site, self.span_, self.s = ck, name, site, span, s
         self.sink = ck.sink
         self.spans: Dict[str, Span] = {}

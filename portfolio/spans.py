@@ -23,20 +23,8 @@ class Span:
         return f"{self.path}:{self.line}:{self.col}"
 
     @classmethod
-    def from_meta(cls, path: str, meta) -> "Span":
-        """Build a span from a Lark token or a tree's ``meta``."""
-        if getattr(meta, "empty", False):
-            return cls(path, 1, 1, 1, 1)
-        return cls(path, meta.line, meta.column, meta.end_line, meta.end_column)
-
-    @classmethod
     def whole_file(cls, path: str) -> "Span":
         return cls(path, 1, 1, 1, 1)
-
-    def join(self, other: "Span") -> "Span":
-        start = min((self.line, self.col), (other.line, other.col))
-        end = max((self.end_line, self.end_col), (other.end_line, other.end_col))
-        return Span(self.path, start[0], start[1], end[0], end[1])
 
 
 NOWHERE = Span("<api>", 1, 1, 1, 1)

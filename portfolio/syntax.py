@@ -81,13 +81,21 @@ def parser() -> Lark:
 @lru_cache(maxsize=1)
 def keywords() -> frozenset:
     """Every word the language reserves somewhere (for messages and suggestions)."""
-    words = set()
-    for t in parser().terminals:
-        if t.pattern.type == "str" and t.pattern.value[:1].isalpha():
-            words.add(t.pattern.value)
-        elif t.name in EXPECTED_WORDS and "|" in t.pattern.value and _WORDY.match(t.pattern.value):
-            words.update(w for w in re.split(r"[|()?:]+", t.pattern.value) if w)
-    return frozenset(words)
+    return frozenset(w for t in parser().terminals for w in _words_of(t.name))
+
+
+@lru_cache(maxsize=1)
+def fixed_keywords() -> frozenset:
+    """The words the grammar spells out one by one ('max', 'per', ...), without the
+    words of a choice such as ALLOWED ('allowed' or 'forbidden')."""
+    return frozenset(t.pattern.value for t in parser().terminals
+                     if t.pattern.type == "str" and t.pattern.value[:1].isalpha())
+
+
+@lru_cache(maxsize=1)
+def _statement_words() -> frozenset:
+    """The words a statement starts with: what the parser accepts at the top of a file."""
+    return frozenset(w for n in parser().parse_interactive("").accepts() for w in _words_of(n))
 
 
 # Plain words for the grammar's named tokens.
@@ -172,6 +180,18 @@ def _found(token: Token) -> str:
     return f"'{token.value}'"
 
 
+def span_of(path: str, node) -> Span:
+    """The span of a token or of a tree's ``meta``: the one converter from Lark's
+    positions (1-based columns, exclusive end) to a :class:`Span`.  Something
+    with no position (an empty file's tree) is the file's first character."""
+    if getattr(node, "line", None) is None or getattr(node, "empty", False):
+        return Span.whole_file(path)
+    end_col = node.end_column
+    if end_col is None:
+        end_col = node.column + len(node)
+    return Span(path, node.line, node.column, node.end_line or node.line, end_col)
+
+
 def _span_of_token(path: str, token: Token, text: str) -> Span:
     if token.type == "$END" or token.line is None:
         lines = _lines(text)
@@ -179,8 +199,7 @@ def _span_of_token(path: str, token: Token, text: str) -> Span:
             lines.pop()   # point at the end of the last line with text on it
         end = len(lines[-1].rstrip("\r")) + 1
         return Span(path, len(lines), end, len(lines), end)
-    end_col = token.end_column if token.end_column is not None else token.column + len(token.value)
-    return Span(path, token.line, token.column, token.end_line or token.line, end_col)
+    return span_of(path, token)
 
 
 def _lines(text: str):
@@ -212,7 +231,6 @@ def _open_braces(text: str) -> Optional[Span]:
 
 _UNIT_NOTE = "note: every quantity carries a unit: MW, kW, GW, MWh, kWh, GWh, %, h, min, or 'per MWh' for money"
 _TIMESTAMP_LIKE = re.compile(r"\d{4}-\d")
-_STATEMENT_WORDS = {"portfolio", "horizon", "price", "preset", "connection", "site", "route", "total"}
 _TAIL = 256   # characters before a token searched for "number, then keyword"
 _NUMBER_THEN_WORD = re.compile(r"([-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?)\s+([A-Za-z_][A-Za-z0-9_]*)\s*$")
 
@@ -357,7 +375,7 @@ def _report(err: UnexpectedInput, text: str, path: str, sink: Sink) -> None:
         msg = f"expected {describe_expected(expected)}, found {_found(tok)}"
         notes = []
         brace = _open_braces(text[:tok.start_pos]) if tok.start_pos is not None else None
-        if brace is not None and str(tok.value) in _STATEMENT_WORDS:
+        if brace is not None and str(tok.value) in _statement_words():
             notes.append(f"note: is the '{{' at line {brace[0]}, column {brace[1]} closed?")
         if "UNIT" in expected and prev is not None and prev.type == "NUMBER":
             msg = f"the number {prev.value} needs a unit, found {_found(tok)}"

@@ -3,7 +3,7 @@
 ``was idle [for D]``, ``was charging [for D] at P``, ``was discharging [for D] at P``
 (docs/language.md): what the store did just before step 0, so that minimum
 run, minimum rest and ramp limits hold across the start of the horizon.
-Interpreted for :class:`portfolio.check.StorageBuilder`; the result goes to
+Interpreted for :class:`portfolio.check.storage.StorageBuilder`; the result goes to
 ``Storage.prior_mode``, ``prior_h`` and ``prior_net_mw``, and the span of the
 ``was`` statement to ``spans["prior_mode"]`` (every row built from it points
 there).
@@ -14,9 +14,9 @@ from __future__ import annotations
 import math
 from typing import Optional
 
-from . import model as M
-from . import units as U
-from .diagnostics import LimitInconsistent, OutOfRange, RuleTooLong, UnusedSetting
+from .. import model as M
+from .. import units as U
+from ..diagnostics import LimitInconsistent, OutOfRange, RuleTooLong, UnusedSetting
 
 EPS = 1e-9
 
@@ -36,27 +36,25 @@ def check_carried_state(b) -> None:
     if "was" not in b.s:
         return
     ck, v, nm, sink = b.ck, b.vals, b.name, b.ck.sink
-    node = b.s["was"].children[0]
+    node = b.s["was"].value
     was_span = b.sp("was")
     b.spans["prior_mode"] = was_span
-    parts = list(node.children)
-    if node.data == "was_idle":
-        mode, out_q = M.PRIOR_IDLE, None
+    if node.mode is None:
+        mode = M.PRIOR_IDLE
     else:
-        mode = M.PRIOR_CHARGE if str(parts.pop(0)) == "charging" else M.PRIOR_DISCHARGE
-        out_q = parts.pop()
+        mode = M.PRIOR_CHARGE if node.mode.text == "charging" else M.PRIOR_DISCHARGE
     word = M.PRIOR_WORDS[mode]
     ok = True
     hours = None
     rules = (v.get("min_run_h") or 0) > 0 or (v.get("min_rest_h") or 0) > 0
-    if parts:
-        dur_q = parts[0]
-        b.spans["prior_h"] = ck.span(dur_q)
-        got = ck.quantity(dur_q, (U.TIME,), f"the time '{nm}' was {word} before the horizon")
+    dur_q = node.duration
+    if dur_q is not None:
+        b.spans["prior_h"] = dur_q.span
+        got = ck.units.quantity(dur_q, (U.TIME,), f"the time '{nm}' was {word} before the horizon")
         if got is None:
             ok = False
         elif got[1] <= 0:
-            sink.add(OutOfRange, ck.span(dur_q), f"the time '{nm}' was {word} before the horizon must be "
+            sink.add(OutOfRange, dur_q.span, f"the time '{nm}' was {word} before the horizon must be "
                      f"above zero, found {got[1]:.6g} h",
                      f"note: leave out 'for ...' if '{nm}' was {word} for longer than any of its rules")
             ok = False
@@ -64,17 +62,18 @@ def check_carried_state(b) -> None:
             hours = got[1]
             whole = steps_rounded_up(hours, ck.horizon.step_hours) if ck.horizon else None
             if whole is not None and rules:
-                sink.add(RuleTooLong, ck.span(dur_q), f"'{nm}' was {word} for {hours:.6g} h before the horizon, "
+                sink.add(RuleTooLong, dur_q.span, f"'{nm}' was {word} for {hours:.6g} h before the horizon, "
                          f"not a whole number of {ck.horizon.step_hours * 60:.6g}-minute steps; it counts as "
                          f"{whole} step{'s' if whole != 1 else ''}")
     net = 0.0
+    out_q = node.output
     if out_q is not None:
-        b.spans["prior_net_mw"] = ck.span(out_q)
-        out = ck.power(out_q, f"the output of '{nm}' before the horizon")
+        b.spans["prior_net_mw"] = out_q.span
+        out = ck.units.power(out_q, f"the output of '{nm}' before the horizon")
         if out is None:
             ok = False
         else:
-            ok = _output_fits(b, mode, out, ck.span(out_q), was_span) and ok
+            ok = _output_fits(b, mode, out, out_q.span, was_span) and ok
             net = out if mode == M.PRIOR_DISCHARGE else -out
     if not ok:
         return

@@ -141,15 +141,20 @@ def test_ctrl_c_at_start_up_gives_no_traceback(tmp_path, previous):
         _same_as_before(previous)
 
 
+def _ends_quietly_with_130(code: str) -> None:
+    """Run ``code`` in a fresh interpreter with SIGINT at its default."""
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
+                       preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    assert p.returncode == 130 and p.stderr == "portfolio: interrupted\n", (p.returncode, p.stderr)
+
+
 def test_a_ctrl_c_during_the_imports_ends_quietly():
     # deterministic: the interrupt arrives right after the entry module is
     # imported, while the rest would still be importing
     code = ("import portfolio._entry, os, signal, time\n"
             "os.kill(os.getpid(), signal.SIGINT)\n"
             "time.sleep(5)\n")
-    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
-                       preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
-    assert p.returncode == 130 and p.stderr == "portfolio: interrupted\n", (p.returncode, p.stderr)
+    _ends_quietly_with_130(code)
 
 
 def test_a_ctrl_c_turned_into_another_error_by_an_import_still_ends_quietly():
@@ -166,9 +171,7 @@ def test_a_ctrl_c_turned_into_another_error_by_an_import_still_ends_quietly():
             "        raise ImportError('PyCapsule_Import could not import module \"datetime\"')\n"
             "cli.main = main\n"
             "cli.run()\n")
-    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
-                       preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
-    assert p.returncode == 130 and p.stderr == "portfolio: interrupted\n", (p.returncode, p.stderr)
+    _ends_quietly_with_130(code)
 
 
 def test_an_error_without_a_ctrl_c_is_not_taken_for_one():

@@ -17,11 +17,11 @@ that was not set by the user (a default) has no entry in ``spans``; use
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from datetime import datetime
 from types import MappingProxyType
 from typing import Mapping, Optional
 
 import numpy as np
-import pandas as pd
 
 from .spans import NOWHERE, Span
 
@@ -65,23 +65,29 @@ class Decl:
 
 @dataclass(frozen=True)
 class Horizon:
-    start: pd.Timestamp          # tz-aware, in ``zone``
+    start: datetime              # tz-aware, in ``zone`` (pandas is not needed to check a file)
     steps: int
     step_hours: float
     zone: str
     span: Span = NOWHERE
 
     @property
-    def index(self) -> pd.DatetimeIndex:
-        """Step starts, tz-aware in the horizon's zone (fixed absolute steps)."""
-        start_utc = self.start.tz_convert("UTC")
+    def index(self):
+        """Step starts as a ``pandas.DatetimeIndex``, tz-aware in the horizon's zone
+        (fixed absolute steps)."""
+        import pandas as pd
+
+        start_utc = pd.Timestamp(self.start).tz_convert("UTC")
         idx = pd.date_range(start_utc, periods=self.steps,
                             freq=pd.Timedelta(hours=self.step_hours))
         return idx.tz_convert(self.zone)
 
     @property
-    def end(self) -> pd.Timestamp:
-        return self.start + pd.Timedelta(hours=self.step_hours * self.steps)
+    def end(self):
+        """The end as a ``pandas.Timestamp`` in the horizon's zone."""
+        import pandas as pd
+
+        return pd.Timestamp(self.start) + pd.Timedelta(hours=self.step_hours * self.steps)
 
 
 @dataclass(frozen=True, eq=False)

@@ -4,11 +4,10 @@ from __future__ import annotations
 
 import math
 import re
+from datetime import datetime, timedelta, timezone
 from functools import lru_cache
 from typing import Dict, Optional
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError, available_timezones
-
-import pandas as pd
 
 from .. import model as M
 from .. import units as U
@@ -24,6 +23,11 @@ MIN_STEP_H = 1 / 3600  # one second
 # the years a timestamp may fall in: pandas' nanosecond timestamps run from
 # 1677-09-21 to 2262-04-11; whole years inside that
 FIRST_YEAR, LAST_YEAR = 1678, 2261
+_LAST_INSTANT = datetime(2262, 4, 11, 23, 47, 16, 854775, tzinfo=timezone.utc)   # pandas' last
+# what datetime.fromisoformat reads exactly as pandas does; anything else in the
+# grammar's TIMESTAMP (more than 6 digits of a second, a date with an offset but
+# no time) goes to pandas
+_PLAIN = re.compile(r"\d{4}-\d{2}-\d{2}(T\d{2}:\d{2}(:\d{2}(\.\d{1,6})?)?(Z|[+-]\d{2}:?\d{2})?)?$")
 _NOT_ZONES = {"localtime", "posixrules", "Factory"}   # files of the system's zone folder, not IANA names
 
 
@@ -71,14 +75,16 @@ def check_horizon(node: Block, units: Quantities) -> Optional[M.Horizon]:
         end = timestamp(parts["h_end"].value, zone, sink)
         if end is None:
             return None
-        length_h = (end - start) / pd.Timedelta(hours=1)
+        length_h = (_utc(end) - _utc(start)).total_seconds() / 3600
         lsp = parts["h_end"].span
     steps = _whole_steps(length_h, step_h, lsp, sink)
     if steps is None:
         return None
     try:
-        start + pd.Timedelta(hours=step_h * steps)
+        beyond = _utc(start) + timedelta(hours=step_h * steps) > _LAST_INSTANT
     except (OverflowError, ValueError):
+        beyond = True
+    if beyond:
         sink.add(OutOfRange, lsp, f"the horizon ends after {LAST_YEAR}, the last year supported")
         return None
     return M.Horizon(start=start, steps=steps, step_hours=step_h, zone=zone, span=node.span)
@@ -132,35 +138,64 @@ def _whole_steps(length_h: float, step_h: float, lsp, sink: Sink) -> Optional[in
     return int(round(steps))
 
 
-def timestamp(word: Word, zone: str, sink: Sink) -> Optional[pd.Timestamp]:
+def _utc(t: datetime) -> datetime:
+    # aware datetimes sharing one tzinfo subtract as wall times: go through UTC
+    return t.astimezone(timezone.utc)
+
+
+def timestamp(word: Word, zone: str, sink: Sink) -> Optional[datetime]:
     text, sp = word.text, word.span
     m = re.match(r"(\d{4}-\d{2}-\d{2})T24:00(?::00(?:\.0+)?)?(.*)$", text)
     if m:     # ISO 8601's end of day: say which instant it is, in the language's spelling
         try:
-            nxt = (pd.Timestamp(m.group(1)) + pd.Timedelta(days=1)).strftime("%Y-%m-%d")
+            nxt = (datetime.strptime(m.group(1), "%Y-%m-%d") + timedelta(days=1)).strftime("%Y-%m-%d")
             hint = f"; write the next day's start, '{nxt}T00:00{m.group(2)}'"
         except (ValueError, OverflowError):
             hint = ""
         sink.add(BadTimestamp, sp, f"'{text}': 24:00 (the end of a day) is not accepted{hint}")
         return None
-    try:
-        ts = pd.Timestamp(text)
-    except (ValueError, OverflowError):
-        sink.add(BadTimestamp, sp, f"'{text}' is not a valid date and time")
-        return None
-    if ts is pd.NaT:
+    ts = _parse(text)
+    if ts is None:
         sink.add(BadTimestamp, sp, f"'{text}' is not a valid date and time")
         return None
     if not FIRST_YEAR <= ts.year <= LAST_YEAR:
         sink.add(BadTimestamp, sp, f"'{text}' is outside the years supported ({FIRST_YEAR} to {LAST_YEAR})")
         return None
     if ts.tzinfo is None:
-        try:
-            ts = ts.tz_localize(zone, nonexistent="raise", ambiguous="raise")
-        except Exception:
+        ts = _localize(ts, zone)
+        if ts is None:
             sink.add(BadTimestamp, sp, f"'{text}' does not name one instant in {zone} "
                      "(a daylight-saving change); add a UTC offset such as +01:00")
             return None
     else:
-        ts = ts.tz_convert(zone)
+        ts = ts.astimezone(ZoneInfo(zone))
     return ts
+
+
+def _parse(text: str) -> Optional[datetime]:
+    """The grammar's TIMESTAMP as a datetime (aware when it carries an offset)."""
+    if _PLAIN.match(text):
+        try:
+            return datetime.fromisoformat(text)
+        except ValueError:
+            return None
+    import pandas as pd          # nanoseconds: the careful reading
+
+    try:
+        ts = pd.Timestamp(text)
+    except (ValueError, OverflowError):
+        return None
+    return None if ts is pd.NaT else ts
+
+
+def _localize(ts: datetime, zone: str) -> Optional[datetime]:
+    """A wall time in ``zone``, or None when it names no instant (skipped by a
+    daylight-saving change) or two (repeated by one)."""
+    tz = ZoneInfo(zone)
+    first, second = ts.replace(tzinfo=tz, fold=0), ts.replace(tzinfo=tz, fold=1)
+    if first.utcoffset() != second.utcoffset():
+        return None                                  # repeated or skipped
+    back = _utc(first).astimezone(tz).replace(tzinfo=None)
+    if back != ts.replace(tzinfo=None):
+        return None                                  # skipped
+    return first

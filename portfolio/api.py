@@ -104,8 +104,6 @@ def read_source(path: Union[str, Path]):
             return data.decode("utf-8-sig"), None
         except UnicodeDecodeError as e:
             why = f"it is not UTF-8 text (byte {e.start})"
-        else:  # pragma: no cover
-            why = "unknown"
     return None, UnreadableFile(Span.whole_file(str(path)), f"cannot read '{path}': {why}")
 
 

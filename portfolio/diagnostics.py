@@ -12,7 +12,7 @@ that the two agree.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import ClassVar, Dict, List, Optional, Type
+from typing import ClassVar, Dict, List, Type
 
 from .spans import Span
 

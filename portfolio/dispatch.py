@@ -63,9 +63,6 @@ class Relaxation:
                 "amount": self.amount, "steps": self.steps,
                 "first": self.first.isoformat() if self.first is not None else None}
 
-    def __str__(self) -> str:
-        return f"{self.span}: {self.description} (gives {self.amount:.5g} over {self.steps} step(s))"
-
 
 @dataclass
 class DispatchResult:

@@ -47,8 +47,8 @@ def read_bytes(path: Union[str, Path]) -> bytes:
         if stat.S_ISDIR(st.st_mode):
             raise IsADirectoryError(21, "Is a directory", str(path))
         if not stat.S_ISREG(st.st_mode):
-            raise InputError(f"it is not a regular file (a device, pipe or socket); "
-                             f"only files are read")
+            raise InputError("it is not a regular file (a device, pipe or socket); "
+                             "only files are read")
         limit = limit_bytes()
         if st.st_size > limit:
             raise InputError(_too_big(st.st_size, limit))

@@ -18,14 +18,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import datetime
-from types import MappingProxyType
 from typing import Mapping, Optional
 
 import numpy as np
 
 from .spans import NOWHERE, Span
 
-EMPTY: Mapping[str, Span] = MappingProxyType({})
 
 # Storage kinds with a meaning to the checks (what a route may carry).  Any
 # other kind label is accepted and treated as "other".
@@ -49,7 +47,6 @@ END_EQUAL = "equal"        # soc[T] == value
 ROUTE_RELEASE = "release"    # water drawn to generate, passed downstream
 ROUTE_SPILL = "spill"        # water spilled, passed downstream
 ROUTE_TRANSFER = "transfer"  # energy moved store-to-store (e.g. heat network)
-ROUTE_KINDS = (ROUTE_RELEASE, ROUTE_SPILL, ROUTE_TRANSFER)
 
 
 @dataclass(frozen=True)

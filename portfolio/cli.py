@@ -241,7 +241,7 @@ def cmd_dispatch(args, out, err) -> int:
             return EXIT_USAGE
         _print_result(result, out)
         if not args.quiet:
-            from .schedule import CAUTION   # one wording for the terminal and summary.json
+            from .contract import CAUTION   # one wording for the terminal and summary.json
             _print_assets(result, out)
             print(printable(f"schedule written to {out_dir}/"), file=out)
             print(f"caution: {CAUTION}", file=out)
@@ -326,14 +326,15 @@ def _print_assets(result, out) -> None:
     from rich.console import Console
     from rich.table import Table
 
+    from .contract import CLI_ASSET_COLUMNS, CLI_GROUP_ORDER
+
     console = Console(file=out, width=120, highlight=False)
     summary = result.summary
-    for group in ("connections", "sites", "storages", "supplies", "demands", "routes"):
+    for group in CLI_GROUP_ORDER:
         rows = summary.get(group) or {}
         if not rows:
             continue
-        cols = [c for c in ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
-                            "curtailed_mwh", "spilled_mwh", "in_transit_end_mwh")
+        cols = [c for c in CLI_ASSET_COLUMNS
                 if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
                 or (c == "revenue" and any(c in v for v in rows.values()))]
         table = Table(title=group, title_justify="left", show_edge=False)

@@ -16,6 +16,7 @@ from typing import Dict, Tuple
 import networkx as nx
 
 from . import model as M
+from .topology import Topology
 
 # kind -> (matplotlib marker, fill colour, words for the legend)
 NODE_STYLE = {
@@ -55,7 +56,7 @@ def edge_label(key: str, attrs) -> str:
     text = key
     if "route" in attrs:
         r = attrs["route"]
-        text = f"{key}, {r.delay_steps} step{'s' if r.delay_steps != 1 else ''}"
+        text = f"{r.kind}, {r.delay_steps} step{'s' if r.delay_steps != 1 else ''}"
         if r.factor != 1:
             text += f", x{r.factor:g}"
     if lim is not None:
@@ -69,26 +70,24 @@ def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
     Within a site: each storage with its natural supply beside it, then the
     site's supplies, then its demands.
     """
-    conns = [n for n, a in g.nodes(data=True) if a["kind"] == "connection"]
-    sites = [n for n, a in g.nodes(data=True) if a["kind"] == "site"]
+    topo = Topology.from_graph(g)
+    conns, sites = topo.connections, topo.sites
     assets = []
     placed = set()
     for site in sites:
-        for n, a in g.nodes(data=True):
-            if a["kind"] == "storage" and getattr(a.get("decl"), "site", None) == site:
-                for u in g.predecessors(n):
-                    if g.nodes[u]["kind"] == "supply" and g.nodes[u].get("natural") and u not in placed:
-                        assets.append(u)
-                        placed.add(u)
+        for n in topo.storages_at(site):
+            u = topo.natural_supply_of(n)
+            if u is not None and u not in placed:
+                assets.append(u)
+                placed.add(u)
+            assets.append(n)
+            placed.add(n)
+        for n in (*topo.supplies_at(site), *topo.demands_at(site)):
+            if n not in placed:
                 assets.append(n)
                 placed.add(n)
-        for kind in ("supply", "demand"):
-            for n, a in g.nodes(data=True):
-                if a["kind"] == kind and n not in placed and getattr(a.get("decl"), "site", None) == site:
-                    assets.append(n)
-                    placed.add(n)
     assets += [n for n, a in g.nodes(data=True)
-               if a["kind"] not in ("connection", "site") and n not in placed]
+               if a.get("kind") not in ("connection", "site") and n not in placed]
     pos = {n: (i + 0.5, 0.0) for i, n in enumerate(assets)}
 
     def centre(n, below, fallback):
@@ -96,21 +95,11 @@ def layout(g: nx.MultiDiGraph) -> Dict[str, Tuple[float, float]]:
         return sum(xs) / len(xs) if xs else fallback
 
     for i, site in enumerate(sites):
-        below = [n for n in assets if _site_of(g, n) == site]
+        below = [n for n in assets if topo.site_of(n) == site]
         pos[site] = (centre(site, below, i + 0.5), 1.6)
     for i, c in enumerate(conns):
-        below = [s for s in sites if getattr(g.nodes[s].get("decl"), "connection", None) == c]
-        pos[c] = (centre(c, below, i + 0.5), 3.2)
+        pos[c] = (centre(c, topo.sites_at(c), i + 0.5), 3.2)
     return pos
-
-
-def _site_of(g, n):
-    a = g.nodes[n]
-    site = getattr(a.get("decl"), "site", None)
-    if site is None:  # a natural supply: the site of its storage
-        for m in g.successors(n):
-            return getattr(g.nodes[m].get("decl"), "site", None)
-    return site
 
 
 def draw(g: nx.MultiDiGraph, path: Path, title: str = "") -> None:

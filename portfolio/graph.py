@@ -4,8 +4,15 @@ A :class:`networkx.MultiDiGraph` whose nodes are the portfolio's connections,
 sites, storages, supplies (including a reservoir's natural supply) and demands,
 and whose edges are every path energy or water can take.  Edge keys name the
 path (``export``, ``import``, ``charge``, ``discharge``, ``feed``,
-``serve``, ``natural``, and the route kinds).  Every node and edge carries
-``span``: the declaration it came from.
+``serve``, ``natural``, and the route kinds; a second route of one kind
+between the same two stores is keyed ``kind:name``).  Every node and edge carries
+``span``: the declaration it came from.  Membership is on the nodes: a
+storage's, supply's and demand's ``site``, a site's ``connection``; a route
+edge carries its declaration (``route``) and its place among them (``order``).
+
+Nothing else reads topology from the model: :class:`portfolio.topology.Topology`
+indexes this graph once, and the checks here, the compiler, the tables and the
+pictures ask it.
 """
 
 from __future__ import annotations
@@ -19,6 +26,7 @@ import numpy as np
 from . import model as M
 from .diagnostics import (EmptySite, NoPathToGrid, NowhereToGo, Sink, SupplyTargetElsewhere,
                           UnusedConnection, ZeroDelayCycle)
+from .topology import Topology
 
 
 def _open(limit: Optional[float]) -> bool:
@@ -30,7 +38,7 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
     for c in p.connections.values():
         g.add_node(c.name, kind="connection", span=c.span, decl=c)
     for s in p.sites.values():
-        g.add_node(s.name, kind="site", span=s.span, decl=s)
+        g.add_node(s.name, kind="site", span=s.span, decl=s, connection=s.connection)
         c = p.connections.get(s.connection)
         if c is None:
             continue
@@ -39,7 +47,7 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
         if _open(s.import_max) and _open(c.import_max):
             g.add_edge(c.name, s.name, key="import", span=s.where("import_max"), limit=s.import_max)
     for k in p.storages.values():
-        g.add_node(k.name, kind="storage", span=k.span, decl=k, storage_kind=k.kind)
+        g.add_node(k.name, kind="storage", span=k.span, decl=k, storage_kind=k.kind, site=k.site)
         if k.discharge_max > 0:
             g.add_edge(k.name, k.site, key="discharge", span=k.where("discharge_max"), limit=k.discharge_max)
         if k.charge_max > 0:
@@ -48,32 +56,36 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
             g.add_node(k.supply, kind="supply", span=k.where("supply"), decl=None, natural=True)
             g.add_edge(k.supply, k.name, key="natural", span=k.where("supply"), limit=None)
     for i in p.supplies.values():
-        g.add_node(i.name, kind="supply", span=i.span, decl=i, natural=False)
+        g.add_node(i.name, kind="supply", span=i.span, decl=i, natural=False, site=i.site)
         for t in i.targets:
             dest = i.site if t == "site" else t
             limit = None if t == "site" else p.storages[t].charge_max if t in p.storages else None
             g.add_edge(i.name, dest, key="feed", span=i.where("targets"), limit=limit)
     for d in p.demands.values():
-        g.add_node(d.name, kind="demand", span=d.span, decl=d)
+        g.add_node(d.name, kind="demand", span=d.span, decl=d, site=d.site)
         g.add_edge(d.site, d.name, key="serve", span=d.span, limit=None)
-    for r in p.routes:
-        g.add_edge(r.source, r.target, key=r.kind, span=r.span, limit=r.max_mw,
-                   delay=r.delay_steps, factor=r.factor, route=r)
+    for order, r in enumerate(p.routes):
+        # keyed by kind; a second route of one kind between the same stores keeps its own edge
+        key = r.kind if not g.has_edge(r.source, r.target, r.kind) else f"{r.kind}:{r.name}"
+        g.add_edge(r.source, r.target, key=key, span=r.span, limit=r.max_mw,
+                   delay=r.delay_steps, factor=r.factor, route=r, order=order)
     return g
 
 
 def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
+    topo = Topology.from_graph(g)
     # Supplies sent into a storage at another site.
     for i in p.supplies.values():
-        for t in i.targets:
-            if t != "site" and t in p.storages and p.storages[t].site != i.site:
+        for t in topo.supply_targets(i.name):
+            there = topo.site_of(t)
+            if there != i.site:
                 sink.add(SupplyTargetElsewhere, i.where("targets"),
                          f"supply '{i.name}' at site '{i.site}' cannot flow into '{t}', which is at site "
-                         f"'{p.storages[t].site}'", "note: a supply feeds its own site or storages there; use a route between storages")
+                         f"'{there}'", "note: a supply feeds its own site or storages there; use a route between storages")
     # Reachability: walk backwards once from every connection and demand (a battery
     # behind an import-only connection may still serve its site's demand).
     reach = set()
-    todo = deque(n for n, a in g.nodes(data=True) if a["kind"] in ("connection", "demand"))
+    todo = deque(n for n, a in g.nodes(data=True) if a.get("kind") in ("connection", "demand"))
     reach.update(todo)
     while todo:
         n = todo.popleft()
@@ -87,7 +99,7 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                      "what it holds can never be used",
                      "note: give it a 'discharge max', a route to a storage that can discharge, or open its site's export")
     for n, a in g.nodes(data=True):
-        if a["kind"] == "supply" and n not in reach:
+        if a.get("kind") == "supply" and n not in reach:
             sink.add(NoPathToGrid, a["span"], f"supply '{n}' has no path to any connection or demand")
     # Zero-delay route cycles.
     zero = nx.DiGraph()
@@ -106,16 +118,15 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                  "note: give at least one route in the cycle a delay of a whole step or more")
     # Connections and sites with nothing to do.
     for c in p.connections.values():
-        if not p.sites_at(c.name):
+        if not topo.sites_at(c.name):
             sink.add(UnusedConnection, c.span, f"connection '{c.name}' has no site attached")
-    busy = {x.site for x in (*p.storages.values(), *p.supplies.values(), *p.demands.values())}
     for s in p.sites.values():
-        if s.name not in busy:
+        if not topo.is_busy(s.name):
             sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, supply or demand")
-    _check_nowhere_to_go(p, sink)
+    _check_nowhere_to_go(p, topo, sink)
 
 
-def _check_nowhere_to_go(p: M.Portfolio, sink: Sink) -> None:
+def _check_nowhere_to_go(p: M.Portfolio, topo: Topology, sink: Sink) -> None:
     """Warn when a non-curtailable supply can peak above what its targets can take."""
     for i in p.supplies.values():
         if i.curtail_allowed or i.profile not in p.series:
@@ -127,12 +138,12 @@ def _check_nowhere_to_go(p: M.Portfolio, sink: Sink) -> None:
         site = p.sites.get(i.site)
         for t in i.targets:
             if t == "site" and site is not None:
-                conn = p.connections.get(site.connection)
+                conn = p.connections.get(topo.connection_of(site.name))
                 limits = [x for x in (site.export_max, conn.export_max if conn else None) if x is not None]
                 absorb += min(limits) if limits else float("inf")
-                absorb += sum(k.charge_max for k in p.storages_at(site.name))
-                absorb += sum(float(np.min(p.profile(d.profile))) for d in p.demands.values() if d.site == site.name)
-            elif t in p.storages:
+                absorb += sum(p.storages[k].charge_max for k in topo.storages_at(site.name))
+                absorb += sum(float(np.min(p.profile(p.demands[d].profile))) for d in topo.demands_at(site.name))
+            elif t in topo.supply_targets(i.name):
                 absorb += p.storages[t].charge_max
         if peak > absorb + 1e-9:
             sink.add(NowhereToGo, i.span,

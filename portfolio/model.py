@@ -250,9 +250,3 @@ class Portfolio:
         """Every file this portfolio was read from: its own file and its series files."""
         own = (self.path,) if self.path else ()
         return own + tuple(dict.fromkeys(s.source for s in self.series.values() if s.source))
-
-    def storages_at(self, site: str):
-        return [s for s in self.storages.values() if s.site == site]
-
-    def sites_at(self, connection: str):
-        return [s for s in self.sites.values() if s.connection == connection]

@@ -19,22 +19,21 @@ from typing import Tuple
 import numpy as np
 
 from .model import Portfolio
+from .topology import Topology
 
 
-def site_reach(p: Portfolio, site: str) -> Tuple[np.ndarray, np.ndarray]:
+def site_reach(p: Portfolio, topo: Topology, site: str) -> Tuple[np.ndarray, np.ndarray]:
     """(most it can export, most it can import) in MW per step, before its own limits."""
     n = p.horizon.steps
     out, inn = np.zeros(n), np.zeros(n)
-    for s in p.storages.values():
-        if s.site == site:
-            out += s.discharge_max
-            inn += s.charge_max
-    for f in p.supplies.values():
-        if f.site == site and "site" in f.targets:
-            out += p.profile(f.profile)
-    for d in p.demands.values():
-        if d.site == site:
-            inn += p.profile(d.profile)
+    for k in topo.storages_at(site):
+        s = p.storages[k]
+        out += s.discharge_max
+        inn += s.charge_max
+    for i in topo.site_supplies(site):
+        out += p.profile(p.supplies[i].profile)
+    for d in topo.demands_at(site):
+        inn += p.profile(p.demands[d].profile)
     return out, inn
 
 
@@ -42,7 +41,7 @@ def _within(values: np.ndarray, limit) -> np.ndarray:
     return values if limit is None else np.minimum(values, limit)
 
 
-def connection_reach(p: Portfolio, connection: str,
+def connection_reach(p: Portfolio, topo: Topology, connection: str,
                      declared: bool = False) -> Tuple[np.ndarray, np.ndarray]:
     """(most it can export, most it can import) in MW per step.
 
@@ -53,13 +52,13 @@ def connection_reach(p: Portfolio, connection: str,
     """
     n = p.horizon.steps
     out, inn = np.zeros(n), np.zeros(n)
-    for name, site in p.sites.items():
-        if site.connection == connection:
-            so, si = site_reach(p, name)
-            if declared:
-                so, si = _within(so, site.export_max), _within(si, site.import_max)
-            out += so
-            inn += si
+    for name in topo.sites_at(connection):
+        site = p.sites[name]
+        so, si = site_reach(p, topo, name)
+        if declared:
+            so, si = _within(so, site.export_max), _within(si, site.import_max)
+        out += so
+        inn += si
     if declared:
         c = p.connections[connection]
         out, inn = _within(out, c.export_max), _within(inn, c.import_max)

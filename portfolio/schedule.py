@@ -2,7 +2,11 @@
 
 Tables are pandas DataFrames indexed by step start (tz-aware, in the
 horizon's zone; index name ``time``).  Column sets are fixed by
-:data:`COLUMNS` (the output contract, docs/outputs.md).
+:mod:`portfolio.contract` (the output contract, docs/outputs.md): every
+table is made through :func:`portfolio.contract.frame`.  Who is where comes
+from the compiled model's topology (the network graph), and every quantity
+the model's rows also use (total charge, route flows, meter flows) from
+:mod:`portfolio.compile.expressions`, read through checked accessors.
 
 Conventions:
 
@@ -25,30 +29,18 @@ assets', a connection's revenue is its cashflow (before wear).
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from typing import Dict, Optional, Tuple
 
 import numpy as np
 import pandas as pd
 
+from .compile import expressions as E
+from .contract import (ASSET_GROUPS, ASSET_KEYS, CAUTION, COLUMNS, ROUTE_KEYS, STORAGE_KEYS,  # noqa: F401
+                       frame)                   # (CAUTION and COLUMNS re-exported)
+
 NOISE = 1e-9
 MODE_TOL = 1e-6
-
-CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
-           "operator's instructions and local codes and licensed practice always come first. Reservoir "
-           "spill affects people downstream.")
-
-COLUMNS = {
-    "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "routed_in_mw", "routed_out_mw"],
-    "supply": ["available_mw", "used_mw", "curtailed_mw"],
-    "demand": ["demand_mw"],
-    "site": ["import_mw", "export_mw"],
-    "connection": ["import_mw", "export_mw", "sell_price", "buy_price", "cashflow"],
-    "route": ["flow_mw", "arriving_mw"],
-}
-
-ASSET_KEYS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
-              "curtailed_mwh", "spilled_mwh")
 
 
 def clean(x: np.ndarray) -> np.ndarray:
@@ -57,8 +49,9 @@ def clean(x: np.ndarray) -> np.ndarray:
     return x
 
 
-def _net(exp: np.ndarray, imp: np.ndarray) -> Tuple[np.ndarray, np.ndarray]:
-    net = clean(exp - imp)
+def _net(net: np.ndarray) -> Tuple[np.ndarray, np.ndarray]:
+    """A meter's net export split into (export, import), at most one non-zero."""
+    net = clean(net)
     return np.maximum(net, 0.0), np.maximum(-net, 0.0)
 
 
@@ -67,151 +60,160 @@ def _asset(revenue=0.0, e_in=0.0, e_out=0.0, efc=None, curtailed=0.0, spilled=0.
     return {k: (None if v is None else float(v)) for k, v in zip(ASSET_KEYS, vals)}
 
 
+@dataclass
+class _Flows:
+    """A solution's flows, per asset (MW unless noted), before they become tables."""
+
+    charge: Dict[str, np.ndarray] = field(default_factory=dict)        # total charge
+    charge_site: Dict[str, np.ndarray] = field(default_factory=dict)   # drawn from the site
+    discharge: Dict[str, np.ndarray] = field(default_factory=dict)
+    route_flow: Dict[str, np.ndarray] = field(default_factory=dict)    # leaving, source units
+    route_arrive: Dict[str, np.ndarray] = field(default_factory=dict)  # arriving, target units
+    route_transit: Dict[str, float] = field(default_factory=dict)      # MWh on its way at the end
+    received: Dict[str, np.ndarray] = field(default_factory=dict)      # MWh per step from routes
+    sent: Dict[str, np.ndarray] = field(default_factory=dict)          # MWh per step into routes
+    supply_site: Dict[str, np.ndarray] = field(default_factory=dict)   # delivered to the site
+    step_price: Dict[str, np.ndarray] = field(default_factory=dict)    # connection -> price its flow met
+
+
 def build_tables(built, values: Dict[str, np.ndarray]):
     """Return ``(tables, summary_parts)`` for a solution's value arrays.
 
     ``tables`` maps every asset name to its DataFrame; ``summary_parts`` has
     the per-asset summary sections.
     """
-    p = built.portfolio
-    T, dt = built.steps, built.step_hours
+    p, topo = built.portfolio, built.topology
+    acc = E.Values(built, values)
     index = pd.DatetimeIndex(p.horizon.index, name="time")
-
-    def arr(name, asset):
-        return np.asarray(built.array(values, name, asset), dtype=float)
-
-    # -- storages and routes -------------------------------------------------
-    charge, charge_site, discharge = {}, {}, {}
-    direct = built.expr.get("direct_supplies", {})
-    for k in p.storages:
-        charge_site[k] = arr("charge_site", k)
-        total = charge_site[k].copy()
-        for i in direct.get(k, ()):
-            total = total + arr("supply_to", (i, k))
-        charge[k] = total
-        discharge[k] = arr("discharge", k)
-
-    route_flow, route_arrive, route_transit = {}, {}, {}
-    received = {k: np.zeros(T) for k in p.storages}
-    sent = {k: np.zeros(T) for k in p.storages}
-    for r in p.routes:
-        src = p.storages[r.source]
-        if r.kind == "release":
-            flow = discharge[r.source] / src.eta_discharge
-        elif r.kind == "spill":
-            flow = arr("spill", r.source)
-        else:
-            flow = arr("transfer", r.name)
-        gain = r.factor * r.efficiency
-        D = int(r.delay_steps)
-        arrive_mwh = np.zeros(T)
-        if D > 0:
-            arrive_mwh[:min(D, T)] = r.in_transit / D
-        if D < T:
-            arrive_mwh[D:] = gain * flow[:T - D] * dt
-        route_flow[r.name] = flow
-        route_arrive[r.name] = arrive_mwh / dt
-        route_transit[r.name] = gain * float(flow[max(T - D, 0):].sum()) * dt if D > 0 else 0.0
-        if D > T:  # part of what was in transit at the start has not arrived by the end either
-            route_transit[r.name] += r.in_transit * (D - T) / D
-        received[r.target] = received.get(r.target, np.zeros(T)) + arrive_mwh
-        sent[r.source] = sent[r.source] + flow * dt
-
+    flows = _Flows()
+    _storage_flows(acc, p, topo, flows)
+    _route_flows(acc, p, topo, flows)
     tables: Dict[str, pd.DataFrame] = {}
-    for k, s in p.storages.items():
-        c, d = clean(charge[k]), clean(discharge[k])
+    _storage_tables(acc, p, flows, tables, index)
+    _supply_and_demand_tables(acc, p, topo, flows, tables, index)
+    _meter_tables(acc, p, flows, tables, index)
+    return tables, _summary_parts(acc, p, topo, flows, tables)
+
+
+def _storage_flows(acc: E.Values, p, topo, flows: _Flows) -> None:
+    for k in p.storages:
+        flows.charge_site[k] = acc(E.CHARGE_SITE, k)
+        flows.charge[k] = acc.of(E.total_charge(topo, k))
+        flows.discharge[k] = acc(E.DISCHARGE, k)
+
+
+def _route_flows(acc: E.Values, p, topo, flows: _Flows) -> None:
+    dt = acc.dt
+    arriving_mwh = {}
+    for r in topo.routes:
+        flow = acc.route_flow(p, r)
+        arriving_mwh[r.name] = E.route_arriving_mwh(r, flow, dt)
+        flows.route_flow[r.name] = flow
+        flows.route_arrive[r.name] = arriving_mwh[r.name] / dt
+        flows.route_transit[r.name] = E.route_in_transit_end(r, flow, dt)
+    for k in p.storages:
+        received, sent = np.zeros(acc.steps), np.zeros(acc.steps)
+        for r in topo.routes_into(k):
+            received = received + arriving_mwh[r.name]
+        for r in topo.routes_out_of(k):
+            sent = sent + flows.route_flow[r.name] * dt
+        flows.received[k], flows.sent[k] = received, sent
+
+
+def _storage_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
+    dt = acc.dt
+    for k in p.storages:
+        c, d = clean(flows.charge[k]), clean(flows.discharge[k])
         mode = np.where(c > MODE_TOL, np.where(d > MODE_TOL, "both", "charge"),
                         np.where(d > MODE_TOL, "discharge", "idle"))
-        tables[k] = pd.DataFrame({
+        tables[k] = frame("storage", {
             "charge_mw": c,
             "discharge_mw": d,
-            "soc_mwh": clean(arr("soc", k)),
-            "spill_mw": clean(arr("spill", k)),
+            "soc_mwh": clean(acc(E.SOC, k)),
+            "spill_mw": clean(acc(E.SPILL, k)),
             "mode": mode,
-            "routed_in_mw": clean(received[k] / dt),
-            "routed_out_mw": clean(sent[k] / dt),
-        }, index=index)
+            "routed_in_mw": clean(flows.received[k] / dt),
+            "routed_out_mw": clean(flows.sent[k] / dt),
+        }, index)
     for r in p.routes:
-        tables[r.name] = pd.DataFrame({"flow_mw": clean(route_flow[r.name]),
-                                       "arriving_mw": clean(route_arrive[r.name])}, index=index)
+        tables[r.name] = frame("route", {"flow_mw": clean(flows.route_flow[r.name]),
+                                         "arriving_mw": clean(flows.route_arrive[r.name])}, index)
 
-    # -- supplies, demands ------------------------------------------------------
-    supply_site = {}
+
+def _supply_and_demand_tables(acc: E.Values, p, topo, flows: _Flows, tables, index) -> None:
     for name, f in p.supplies.items():
-        avail = p.profile(f.profile)
-        to_site = arr("supply_site", name)
-        used = to_site.copy()
-        for k in f.targets:
-            if k != "site":
-                used = used + arr("supply_to", (name, k))
-        supply_site[name] = to_site
-        tables[name] = pd.DataFrame({"available_mw": clean(avail), "used_mw": clean(used),
-                                     "curtailed_mw": clean(arr("curtailed", name))}, index=index)
+        flows.supply_site[name] = acc(E.SUPPLY_SITE, name)
+        tables[name] = frame("supply", {
+            "available_mw": clean(p.profile(f.profile)),
+            "used_mw": clean(acc.of(E.supply_used(topo, name))),
+            "curtailed_mw": clean(acc(E.CURTAILED, name))}, index)
     for name, dmd in p.demands.items():
-        tables[name] = pd.DataFrame({"demand_mw": clean(p.profile(dmd.profile))}, index=index)
+        tables[name] = frame("demand", {"demand_mw": clean(p.profile(dmd.profile))}, index)
 
-    # -- sites and connections -------------------------------------------------
+
+def _meter_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
+    dt = acc.dt
     for sname in p.sites:
-        exp, imp = _net(arr("site_export", sname), arr("site_import", sname))
-        tables[sname] = pd.DataFrame({"import_mw": imp, "export_mw": exp}, index=index)
-    step_price = {}
+        exp, imp = _net(acc.of(E.meter("site", sname)))
+        tables[sname] = frame("site", {"import_mw": imp, "export_mw": exp}, index)
     for cname, conn in p.connections.items():
-        exp, imp = _net(arr("conn_export", cname), arr("conn_import", cname))
+        exp, imp = _net(acc.of(E.meter("connection", cname)))
         sell, buy = p.price(conn.sell), p.price(conn.buy)
         cash = clean(dt * (sell * exp - buy * imp))
-        step_price[cname] = np.where(exp > 0, sell, buy)
-        tables[cname] = pd.DataFrame({"import_mw": imp, "export_mw": exp, "sell_price": sell,
-                                      "buy_price": buy, "cashflow": cash}, index=index)
+        flows.step_price[cname] = np.where(exp > 0, sell, buy)
+        tables[cname] = frame("connection", {"import_mw": imp, "export_mw": exp, "sell_price": sell,
+                                             "buy_price": buy, "cashflow": cash}, index)
 
-    # -- summary ---------------------------------------------------------------
+
+def _summary_parts(acc: E.Values, p, topo, flows: _Flows, tables) -> dict:
+    """The per-asset summary sections (docs/outputs.md, "Revenue attribution")."""
+    T, dt = acc.steps, acc.dt
+
     def site_price(sname):
-        site = p.sites.get(sname)
-        if site is None or site.connection not in step_price:
-            return np.zeros(T)
-        return step_price[site.connection]
+        conn = topo.connection_of(sname)
+        return flows.step_price[conn] if conn in flows.step_price else np.zeros(T)
+
+    def totals(name, col_in, col_out):
+        t = tables[name]
+        return float(t[col_in].sum()) * dt, float(t[col_out].sum()) * dt
 
     storages, supplies, demands, sites, connections, routes = {}, {}, {}, {}, {}, {}
     site_rev = {s: 0.0 for s in p.sites}
     for k, s in p.storages.items():
         pr = site_price(s.site)
-        d, cs = clean(discharge[k]), clean(charge_site[k])
+        d, cs = clean(flows.discharge[k]), clean(flows.charge_site[k])
         rev = float(np.sum(dt * pr * (d - cs))) - s.wear * float(d.sum()) * dt
         e_out = float(d.sum()) * dt
-        storages[k] = _asset(rev, float(clean(charge[k]).sum()) * dt, e_out,
+        storages[k] = _asset(rev, float(clean(flows.charge[k]).sum()) * dt, e_out,
                              e_out / s.energy if s.energy > 0 else None,
-                             0.0, float(clean(arr("spill", k)).sum()) * dt)
-        storages[k]["soc_end_mwh"] = float(clean(arr("soc", k))[-1]) if T else s.soc_start
+                             0.0, float(clean(acc(E.SPILL, k)).sum()) * dt)
+        storages[k][STORAGE_KEYS[-1]] = float(clean(acc(E.SOC, k))[-1]) if T else s.soc_start
         if s.site in site_rev:
             site_rev[s.site] += rev
     for name, f in p.supplies.items():
-        pr = site_price(f.site)
-        rev = float(np.sum(dt * pr * clean(supply_site[name])))
-        t = tables[name]
-        supplies[name] = _asset(rev, float(t["available_mw"].sum()) * dt, float(t["used_mw"].sum()) * dt,
-                               None, float(t["curtailed_mw"].sum()) * dt, 0.0)
+        rev = float(np.sum(dt * site_price(f.site) * clean(flows.supply_site[name])))
+        e_in, e_out = totals(name, "available_mw", "used_mw")
+        supplies[name] = _asset(rev, e_in, e_out, None, float(tables[name]["curtailed_mw"].sum()) * dt, 0.0)
         if f.site in site_rev:
             site_rev[f.site] += rev
     for name, dmd in p.demands.items():
-        pr = site_price(dmd.site)
         dem = clean(p.profile(dmd.profile))
-        rev = -float(np.sum(dt * pr * dem))
+        rev = -float(np.sum(dt * site_price(dmd.site) * dem))
         demands[name] = _asset(rev, float(dem.sum()) * dt, 0.0, None, 0.0, 0.0)
         if dmd.site in site_rev:
             site_rev[dmd.site] += rev
     for sname in p.sites:
-        t = tables[sname]
-        sites[sname] = _asset(site_rev[sname], float(t["import_mw"].sum()) * dt,
-                              float(t["export_mw"].sum()) * dt, None, 0.0, 0.0)
+        sites[sname] = _asset(site_rev[sname], *totals(sname, "import_mw", "export_mw"), None, 0.0, 0.0)
     for cname in p.connections:
-        t = tables[cname]
-        connections[cname] = _asset(float(t["cashflow"].sum()), float(t["import_mw"].sum()) * dt,
-                                    float(t["export_mw"].sum()) * dt, None, 0.0, 0.0)
+        connections[cname] = _asset(float(tables[cname]["cashflow"].sum()),
+                                    *totals(cname, "import_mw", "export_mw"), None, 0.0, 0.0)
     for r in p.routes:
-        routes[r.name] = {"in_transit_end_mwh": float(clean(np.array([route_transit[r.name]]))[0]),
-                          "flow_mwh": float(clean(np.array([route_flow[r.name].sum() * dt]))[0])}
+        figures = (flows.route_transit[r.name], flows.route_flow[r.name].sum() * dt)
+        routes[r.name] = {key: float(clean(np.array([x]))[0]) for key, x in zip(ROUTE_KEYS, figures)}
     parts = {"storages": storages, "supplies": supplies, "demands": demands, "sites": sites,
              "connections": connections, "routes": routes}
-    return tables, parts
+    assert tuple(parts) == tuple(ASSET_GROUPS)
+    return parts
 
 
 def wide(tables: Dict[str, pd.DataFrame], index: Optional[pd.DatetimeIndex] = None) -> pd.DataFrame:

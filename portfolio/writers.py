@@ -20,7 +20,8 @@ whoever holds it removes temporary folders that a killed run left behind.
 
 Files (docs/outputs.md): ``<name>.csv`` per asset, ``schedule.csv`` (wide),
 ``summary.json``, and with ``formats=("csv", "parquet")`` the same tables as
-``.parquet`` too.
+``.parquet`` too.  File names, the marker, the formats and the reserved
+names are the results contract's (:mod:`portfolio.contract`).
 """
 
 from __future__ import annotations
@@ -39,9 +40,7 @@ from typing import Iterable, List
 import numpy as np
 import pandas as pd
 
-MARKER = ".portfolio-output"
-FORMATS = ("csv", "parquet")
-RESERVED = ("schedule", "summary")
+from .contract import FORMATS, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE, table_file
 
 
 class OutputFolderError(Exception):
@@ -85,14 +84,14 @@ def planned_files(result, formats: Iterable[str]) -> List[str]:
     tables = result.tables or {}
     for fmt in formats:
         if result.schedule is not None:
-            names += [f"{n}.{fmt}" for n in tables] + [f"schedule.{fmt}"]
-    names.append("summary.json")
+            names += [table_file(n, fmt) for n in tables] + [table_file(WIDE, fmt)]
+    names.append(SUMMARY_FILE)
     return names
 
 
 def _check_names(result) -> None:
     for name in (result.tables or {}):
-        if name in RESERVED:
+        if name in RESERVED_NAMES:
             raise OutputFolderError(
                 f'an asset is named "{name}", which clashes with the output file {name}.csv/.json; '
                 f"rename the asset")
@@ -154,14 +153,12 @@ def _write_all(result, folder: Path, formats) -> List[str]:
     if result.schedule is not None:
         for fmt in formats:
             writer = _write_csv if fmt == "csv" else _write_parquet
-            for name, df in result.tables.items():
-                writer(df, folder / f"{name}.{fmt}")
-                written.append(f"{name}.{fmt}")
-            writer(result.schedule, folder / f"schedule.{fmt}")
-            written.append(f"schedule.{fmt}")
+            for name, df in [*result.tables.items(), (WIDE, result.schedule)]:
+                writer(df, folder / table_file(name, fmt))
+                written.append(table_file(name, fmt))
     text = json.dumps(_jsonable(result.summary), indent=2, allow_nan=False)
-    (folder / "summary.json").write_text(text + "\n", encoding="utf-8")
-    written.append("summary.json")
+    (folder / SUMMARY_FILE).write_text(text + "\n", encoding="utf-8")
+    written.append(SUMMARY_FILE)
     (folder / MARKER).write_text(json.dumps({"written_by": "portfolio", "files": written}) + "\n",
                                  encoding="utf-8")
     for name in written + [MARKER]:

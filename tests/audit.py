@@ -371,7 +371,7 @@ class _Audit:
                 if i.site == n:
                     inj = inj + self.col(i.name, "used_mw")
                     terms.append(self.col(i.name, "used_mw"))
-            for k in p.storages_at(n):
+            for k in [x for x in p.storages.values() if x.site == n]:
                 inj = inj + self.col(k.name, "discharge_mw") - self.col(k.name, "charge_mw")
                 terms += [self.col(k.name, "discharge_mw"), self.col(k.name, "charge_mw")]
             for dm in p.demands.values():
@@ -428,7 +428,7 @@ class _Audit:
                 self.at_most(n, "import above the connection's import max", imp, cn.import_max)
             net = np.zeros(T)
             terms = [imp, exp]
-            for s in p.sites_at(n):
+            for s in [x for x in p.sites.values() if x.connection == n]:
                 net = net + self.col(s.name, "export_mw") - self.col(s.name, "import_mw")
                 terms += [self.col(s.name, "export_mw"), self.col(s.name, "import_mw")]
             self.close(n, "net flow = sum of its sites' net flows", exp - imp, net,
@@ -528,7 +528,7 @@ class _Audit:
             site_rev, site_terms = 0.0, []
             direct = {k for i in p.supplies.values() if i.site == site.name for k in i.targets if k != "site"}
             group_got, group_want, group_terms = 0.0, 0.0, []
-            for k in p.storages_at(site.name):
+            for k in [x for x in p.storages.values() if x.site == site.name]:
                 e = entry("storages", k.name)
                 d, c = self.col(k.name, "discharge_mw"), self.col(k.name, "charge_mw")
                 terms = np.r_[dt * pr * d, dt * pr * c, k.wear * d * dt]

@@ -64,8 +64,8 @@ def _steps_up(hours: float, dt: float) -> int:
 def _safe_bound(p: Portfolio, conn_name: str) -> float:
     """An upper bound on the net flow through a connection (big-M when a limit is missing)."""
     total = 0.0
-    for s in p.sites_at(conn_name):
-        for k in p.storages_at(s.name):
+    for s in [x for x in p.sites.values() if x.connection == conn_name]:
+        for k in [x for x in p.storages.values() if x.site == s.name]:
             total += k.charge_max + k.discharge_max
         for i in p.supplies.values():
             if i.site == s.name:
@@ -246,7 +246,7 @@ def build_oracle(p: Portfolio):
     for s in p.sites.values():
         se[s.name] = cont("site_export", s.name, hi=s.export_max)
         si[s.name] = cont("site_import", s.name, hi=s.import_max)
-        stores = p.storages_at(s.name)
+        stores = [x for x in p.storages.values() if x.site == s.name]
         site_supplies = [i for i in p.supplies.values() if i.site == s.name and "site" in i.targets]
         dem = [p.profile(dm.profile) for dm in p.demands.values() if dm.site == s.name]
         for t in steps:
@@ -259,7 +259,7 @@ def build_oracle(p: Portfolio):
     for cn in p.connections.values():
         ce[cn.name] = cont("conn_export", cn.name, hi=cn.export_max)
         ci[cn.name] = cont("conn_import", cn.name, hi=cn.import_max)
-        sites = p.sites_at(cn.name)
+        sites = [x for x in p.sites.values() if x.connection == cn.name]
         sell, buy = p.price(cn.sell), p.price(cn.buy)
         for t in steps:
             add(ce[cn.name][t] - ci[cn.name][t]

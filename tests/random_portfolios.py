@@ -553,7 +553,7 @@ def features(p: Portfolio) -> Set[str]:
     seen |= {"demand"} if p.demands else set()
     for c in p.connections.values():
         buy, sell = p.price(c.buy), p.price(c.sell)
-        sites = p.sites_at(c.name)
+        sites = [x for x in p.sites.values() if x.connection == c.name]
         seen |= {n for n, on in (("conn_export_max", c.export_max is not None),
                                  ("conn_import_max", c.import_max is not None),
                                  ("direction_exclusive", c.exclusive),

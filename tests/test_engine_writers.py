@@ -9,7 +9,7 @@ import pytest
 import factory as F
 from portfolio import writers as W
 from portfolio.dispatch import dispatch
-from portfolio.schedule import COLUMNS
+from portfolio.contract import COLUMNS
 
 
 @pytest.fixture(scope="module")

@@ -30,6 +30,11 @@ conn_export
 
 Binaries and start/stop variables are added by the modes, run_rest and
 direction families where a rule needs them.
+
+Who is where and what flows into what comes from the network graph, read
+once into ``ctx.topo`` (:class:`portfolio.topology.Topology`); quantities
+the rows and the schedule tables share (total charge, route flows, meter
+flows) are defined once in :mod:`.expressions`.
 """
 
 from __future__ import annotations
@@ -42,7 +47,10 @@ from typing import Dict, Hashable, List, Optional, Tuple
 
 import numpy as np
 
+from ..graph import build_graph
 from ..model import Portfolio
+from ..topology import Topology
+from . import expressions as E
 from .context import Ctx, Matrix, Origin  # noqa: F401  (re-exported)
 from .families import FAMILIES
 from .pyomo_model import lin  # noqa: F401  (re-exported)
@@ -70,6 +78,7 @@ class Built:
     slack_info: List[tuple] = field(default_factory=list)
     """relax mode: per slack variable (family, origin index, side, row key)."""
     expr: Dict[str, object] = field(default_factory=dict, repr=False)
+    topology: Optional[Topology] = field(default=None, repr=False)
     build_seconds: float = 0.0
     _model: object = field(default=None, init=False, repr=False)
     _columns: Optional[list] = field(default=None, init=False, repr=False)
@@ -108,10 +117,14 @@ class Built:
     def array(self, values: Dict[str, np.ndarray], name: str, asset: Hashable) -> np.ndarray:
         """The T values of ``name[asset, :]`` from a solution's value arrays.
 
-        Absent variable families or assets give zeros.
+        An asset without entries in the family (or a family with no entries
+        at all) gives zeros; a family this model never declared raises
+        :class:`~.expressions.UnknownVariable` (a misspelt name is not zeros).
         """
         blocks = self.var_blocks.get(name)
-        if blocks is None or asset not in blocks or name not in values:
+        if blocks is None:
+            raise E.UnknownVariable(f"the compiled model has no variable family {name!r}")
+        if asset not in blocks or name not in values:
             return np.zeros(self.steps)
         start = blocks[asset]
         return values[name][start:start + self.steps]
@@ -157,36 +170,31 @@ def _gc_paused():
 
 
 def _variables(ctx: Ctx) -> None:
-    p = ctx.p
-    st = list(p.storages.values())
-    ctx.add_var("charge_site", [s.name for s in st if s.charge_max > 0])
-    ctx.add_var("discharge", [s.name for s in st if s.discharge_max > 0])
-    ctx.add_var("soc", [s.name for s in st])
-    ctx.add_var("spill", [s.name for s in st if s.spill_allowed or s.supply is not None])
-    ins = list(p.supplies.values())
-    ctx.add_var("supply_to", [(i.name, k) for i in ins for k in i.targets if k != "site"])
-    ctx.add_var("supply_site", [i.name for i in ins if "site" in i.targets])
-    ctx.add_var("curtailed", [i.name for i in ins])
-    ctx.add_var("transfer", [r.name for r in p.routes if r.kind == "transfer"])
-    ctx.add_var("site_import", list(p.sites))
-    ctx.add_var("site_export", list(p.sites))
-    ctx.add_var("conn_import", list(p.connections))
-    ctx.add_var("conn_export", list(p.connections))
-    # storage -> supplies feeding it directly
-    direct: Dict[str, List[str]] = {k: [] for k in p.storages}
-    for i in ins:
-        for k in i.targets:
-            if k != "site" and k in direct:
-                direct[k].append(i.name)
-    ctx.expr["direct_supplies"] = direct
+    p, topo = ctx.p, ctx.topo
+    st = [p.storages[k] for k in topo.storages]
+    ctx.add_var(E.CHARGE_SITE, [s.name for s in st if s.charge_max > 0])
+    ctx.add_var(E.DISCHARGE, [s.name for s in st if s.discharge_max > 0])
+    ctx.add_var(E.SOC, [s.name for s in st])
+    ctx.add_var(E.SPILL, [s.name for s in st if s.spill_allowed or s.supply is not None])
+    ctx.add_var(E.SUPPLY_TO, [(i, k) for i in topo.supplies for k in topo.supply_targets(i)])
+    ctx.add_var(E.SUPPLY_SITE, [i for i in topo.supplies if topo.feeds_site(i)])
+    ctx.add_var(E.CURTAILED, list(topo.supplies))
+    ctx.add_var(E.TRANSFER, [r.name for r in topo.routes if r.kind == "transfer"])
+    ctx.add_var(E.SITE_IMPORT, list(topo.sites))
+    ctx.add_var(E.SITE_EXPORT, list(topo.sites))
+    ctx.add_var(E.CONN_IMPORT, list(topo.connections))
+    ctx.add_var(E.CONN_EXPORT, list(topo.connections))
 
 
-def build(p: Portfolio, variant: str = "tight", relax: bool = False) -> Built:
+def build(p: Portfolio, variant: str = "tight", relax: bool = False,
+          topology: Optional[Topology] = None) -> Built:
     """Compile ``p``.  ``relax=True`` adds a slack to every limit and rule and
-    minimises their total (used to explain an infeasible portfolio)."""
+    minimises their total (used to explain an infeasible portfolio).
+    ``topology``: the index of ``p``'s network graph, when the caller has it."""
     t0 = time.perf_counter()
     with _gc_paused():
-        ctx = Ctx(p, variant=variant, relax=relax)
+        topo = topology if topology is not None else Topology.from_graph(build_graph(p))
+        ctx = Ctx(p, variant=variant, relax=relax, topology=topo)
         _variables(ctx)
         for module in FAMILIES:
             module.build(ctx)
@@ -197,7 +205,7 @@ def build(p: Portfolio, variant: str = "tight", relax: bool = False) -> Built:
         var_keys=ctx.var_keys, var_blocks=ctx.var_blocks, binary_vars=list(ctx.binary_vars),
         origins={name: list(f.origins) for name, f in ctx.families.items()},
         family_kind={name: (f.kind, f.var or "") for name, f in ctx.families.items()},
-        slack_info=ctx.slack_info, expr=ctx.expr,
+        slack_info=ctx.slack_info, expr=ctx.expr, topology=topo,
     )
     built.build_seconds = time.perf_counter() - t0
     return built

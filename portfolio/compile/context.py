@@ -30,8 +30,10 @@ from typing import Dict, Hashable, List, Optional, Sequence, Tuple
 import numpy as np
 import scipy.sparse as sp
 
+from ..graph import build_graph
 from ..model import Portfolio
 from ..spans import Span
+from ..topology import Topology
 
 INF = math.inf
 
@@ -133,10 +135,13 @@ class Matrix:
 class Ctx:
     """Shared state while one Portfolio is compiled."""
 
-    def __init__(self, p: Portfolio, variant: str = "tight", relax: bool = False):
+    def __init__(self, p: Portfolio, variant: str = "tight", relax: bool = False,
+                 topology: Optional[Topology] = None):
         if variant not in ("tight", "plain"):
             raise ValueError(f"unknown formulation variant {variant!r} (use 'tight' or 'plain')")
         self.p = p
+        # who is where, what flows into what: read from the network graph, nowhere else
+        self.topo = topology if topology is not None else Topology.from_graph(build_graph(p))
         self.variant = variant
         self.relax = relax
         self.T = int(p.horizon.steps)
@@ -152,6 +157,7 @@ class Ctx:
         self.binary_vars: List[str] = []
         self.families: Dict[str, Family] = {}
         self.expr: Dict[str, object] = {}        # expressions shared between modules
+        self.memo: Dict[Hashable, object] = {}   # expression parts, made once per asset
         self.objective_terms: List[Tuple[float, object]] = []
         self.objective_const = 0.0
         self.slack_info: List[tuple] = []   # (family, origin idx, side, row key)
@@ -266,136 +272,113 @@ class Ctx:
     # -- turning it all into arrays ---------------------------------------------
     def finish(self) -> Matrix:
         """The collected variables, rows and bounds as a :class:`Matrix`."""
-        n = self.n_cols
-        col_lower = np.zeros(n)
-        col_upper = np.full(n, INF)
-        integer = np.zeros(n, dtype=bool)
-        var_ranges: Dict[str, Tuple[int, int]] = {}
-        var_index: Dict[str, list] = {}
-        binary: Dict[str, bool] = {}
+        cols = self._columns()
+        rows = _Rows(self.n_cols)
         col_key: List[object] = []        # filled only in relax mode: column -> (family, key)
-        for name, start in self._var_start.items():
-            stop = start + len(self.var_keys[name])
-            var_ranges[name] = (start, stop)
-            var_index[name] = self.var_keys[name]
-            binary[name] = name in self.binary_vars
-            ub = self._var_ub[name]
-            if ub is not None:
-                col_upper[start:stop] = ub
-            integer[start:stop] = binary[name]
-        if self._implied:
-            cols, his = zip(*self._implied)
-            np.minimum.at(col_upper, np.asarray(cols, dtype=np.int64), np.asarray(his, dtype=float))
-
-        rows_r: List[np.ndarray] = []     # triplets of every row family, global row numbers
-        rows_c: List[np.ndarray] = []
-        rows_v: List[np.ndarray] = []
-        row_lower: List[np.ndarray] = []
-        row_upper: List[np.ndarray] = []
-        blocks: List[RowBlock] = []
-        slack_rows: List[tuple] = []
-        n_rows = 0
-
-        def add_slacks(fam: Family, lo: np.ndarray, hi: np.ndarray, keys, first_row: int):
-            """A slack column per limited side of rows first_row.. (+s on the
-            lower side, -s on the upper), numbered row by row, lower side first."""
-            sides = np.stack([np.isfinite(lo), np.isfinite(hi)], axis=1).ravel()
-            which = np.nonzero(sides)[0]          # 2 * row + (0 lower, 1 upper)
-            s0 = n + len(slack_rows)
-            rows_r.append(first_row + which // 2)
-            rows_c.append(s0 + np.arange(len(which)))
-            rows_v.append(np.where(which % 2 == 0, 1.0, -1.0))
-            oi = fam.oi if fam.kind == "rows" else [b[3] for b in fam.bounds]
-            for w in which.tolist():
-                i = w // 2
-                slack_rows.append((fam.name, oi[i], "lo" if w % 2 == 0 else "hi", keys[i]))
-
         for fam in self.families.values():
             if fam.kind == "bounds":
-                if not fam.bounds:
-                    continue
-                cols = np.fromiter((b[0] for b in fam.bounds), dtype=np.int64, count=len(fam.bounds))
-                lo = np.array([b[1] for b in fam.bounds], dtype=float)    # None -> nan
-                hi = np.array([b[2] for b in fam.bounds], dtype=float)
-                lo[np.isnan(lo)] = -INF
-                hi[np.isnan(hi)] = INF
-                if not self.relax:
-                    np.maximum.at(col_lower, cols, lo)
-                    np.minimum.at(col_upper, cols, hi)
-                    continue
-                # relax mode: one row per bound call (keys may repeat, so number them)
-                if not col_key:
+                if fam.bounds and self.relax and not col_key:
                     col_key = self._column_keys()
-                m = len(cols)
-                rows_r.append(n_rows + np.arange(m))
-                rows_c.append(cols)
-                rows_v.append(np.ones(m))
-                add_slacks(fam, lo, hi, [col_key[c] for c in cols], n_rows)
-                row_lower.append(lo)
-                row_upper.append(hi)
-                blocks.append(RowBlock(fam.name, n_rows, n_rows + m, list(range(m))))
-                n_rows += m
-                continue
-            m = len(fam.keys)
-            if not m:
-                continue
-            if len(set(fam.keys)) != m:
-                seen = set()
-                for key in fam.keys:
-                    if key in seen:
-                        raise RuntimeError(f"row {fam.name}{key} added twice")
-                    seen.add(key)
-            const = np.array(fam.const, dtype=float)
-            lo = np.array(fam.lo, dtype=float)
-            hi = np.array(fam.hi, dtype=float)
-            lo = np.where(np.isnan(lo), -INF, lo - const)
-            hi = np.where(np.isnan(hi), INF, hi - const)
-            lens = np.array(fam.row_len, dtype=np.int64)
-            if fam.terms:
-                tv = np.array(fam.terms, dtype=float).reshape(-1, 2)   # None column -> nan
-                r = np.repeat(np.arange(m, dtype=np.int64), lens)
-                keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
-                rows_r.append(n_rows + r[keep])
-                rows_c.append(tv[keep, 1].astype(np.int64))
-                rows_v.append(tv[keep, 0])
-            if self.relax and fam.relaxable:
-                add_slacks(fam, lo, hi, fam.keys, n_rows)
-            row_lower.append(lo)
-            row_upper.append(hi)
-            blocks.append(RowBlock(fam.name, n_rows, n_rows + m, fam.keys))
-            n_rows += m
+                self._add_bounds(fam, cols, rows, col_key)
+            else:
+                self._add_rows(fam, rows)
+        self.slack_info = rows.slack_rows
+        cols = self._with_slacks(cols, len(rows.slack_rows))
+        cost, offset, maximize = self._objective(len(cols.lower))
+        return Matrix(A=rows.matrix(len(cols.lower)), row_lower=_cat(rows.lower, float),
+                      row_upper=_cat(rows.upper, float), col_lower=cols.lower,
+                      col_upper=cols.upper, integer=cols.integer, cost=cost, offset=offset,
+                      maximize=maximize, var_ranges=cols.ranges, var_index=cols.index,
+                      binary=cols.binary, blocks=rows.blocks)
 
-        n_slack = len(slack_rows)
-        self.slack_info = slack_rows
-        if self.relax:
-            var_ranges["slack"] = (n, n + n_slack)
-            var_index["slack"] = list(range(n_slack))
-            binary["slack"] = False
-            col_lower = np.concatenate([col_lower, np.zeros(n_slack)])
-            col_upper = np.concatenate([col_upper, np.full(n_slack, INF)])
-            integer = np.concatenate([integer, np.zeros(n_slack, dtype=bool)])
-        n_total = n + n_slack
+    def _columns(self) -> "_Columns":
+        """Column bounds and integrality of the variable families (implied bounds applied)."""
+        n = self.n_cols
+        cols = _Columns(lower=np.zeros(n), upper=np.full(n, INF), integer=np.zeros(n, dtype=bool))
+        for name, start in self._var_start.items():
+            stop = start + len(self.var_keys[name])
+            cols.ranges[name] = (start, stop)
+            cols.index[name] = self.var_keys[name]
+            cols.binary[name] = name in self.binary_vars
+            ub = self._var_ub[name]
+            if ub is not None:
+                cols.upper[start:stop] = ub
+            cols.integer[start:stop] = cols.binary[name]
+        if self._implied:
+            at, his = zip(*self._implied)
+            np.minimum.at(cols.upper, np.asarray(at, dtype=np.int64), np.asarray(his, dtype=float))
+        return cols
 
+    def _add_bounds(self, fam: Family, cols: "_Columns", rows: "_Rows", col_key: list) -> None:
+        """A bound family: column bounds, or (relax mode) one row per bound call."""
+        if not fam.bounds:
+            return
+        at = np.fromiter((b[0] for b in fam.bounds), dtype=np.int64, count=len(fam.bounds))
+        lo = np.array([b[1] for b in fam.bounds], dtype=float)    # None -> nan
+        hi = np.array([b[2] for b in fam.bounds], dtype=float)
+        lo[np.isnan(lo)] = -INF
+        hi[np.isnan(hi)] = INF
+        if not self.relax:
+            np.maximum.at(cols.lower, at, lo)
+            np.minimum.at(cols.upper, at, hi)
+            return
+        # keys may repeat, so the rows are numbered
+        m = len(at)
+        first = rows.n
+        rows.triplets(first + np.arange(m), at, np.ones(m))
+        rows.add_slacks(fam, lo, hi, [col_key[c] for c in at], first)
+        rows.block(fam.name, lo, hi, list(range(m)))
+
+    def _add_rows(self, fam: Family, rows: "_Rows") -> None:
+        """A row family: its terms as triplets, its bounds less its constants."""
+        m = len(fam.keys)
+        if not m:
+            return
+        if len(set(fam.keys)) != m:
+            seen = set()
+            for key in fam.keys:
+                if key in seen:
+                    raise RuntimeError(f"row {fam.name}{key} added twice")
+                seen.add(key)
+        const = np.array(fam.const, dtype=float)
+        lo = np.array(fam.lo, dtype=float)
+        hi = np.array(fam.hi, dtype=float)
+        lo = np.where(np.isnan(lo), -INF, lo - const)
+        hi = np.where(np.isnan(hi), INF, hi - const)
+        lens = np.array(fam.row_len, dtype=np.int64)
+        if fam.terms:
+            tv = np.array(fam.terms, dtype=float).reshape(-1, 2)   # None column -> nan
+            r = np.repeat(np.arange(m, dtype=np.int64), lens)
+            keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
+            rows.triplets(rows.n + r[keep], tv[keep, 1].astype(np.int64), tv[keep, 0])
+        if self.relax and fam.relaxable:
+            rows.add_slacks(fam, lo, hi, fam.keys, rows.n)
+        rows.block(fam.name, lo, hi, fam.keys)
+
+    def _with_slacks(self, cols: "_Columns", n_slack: int) -> "_Columns":
+        """Relax mode: the slack columns after the variables (>= 0, continuous)."""
+        if not self.relax:
+            return cols
+        n = self.n_cols
+        cols.ranges["slack"] = (n, n + n_slack)
+        cols.index["slack"] = list(range(n_slack))
+        cols.binary["slack"] = False
+        return _Columns(lower=np.concatenate([cols.lower, np.zeros(n_slack)]),
+                        upper=np.concatenate([cols.upper, np.full(n_slack, INF)]),
+                        integer=np.concatenate([cols.integer, np.zeros(n_slack, dtype=bool)]),
+                        ranges=cols.ranges, index=cols.index, binary=cols.binary)
+
+    def _objective(self, n_total: int) -> Tuple[np.ndarray, float, bool]:
+        """(cost per column, offset, maximise?): the money, or in relax mode the total slack."""
         cost = np.zeros(n_total)
         if self.relax:
-            cost[n:] = 1.0
-            offset, maximize = 0.0, False
-        else:
-            if self.objective_terms:
-                tv = np.array(self.objective_terms, dtype=float).reshape(-1, 2)
-                keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
-                np.add.at(cost, tv[keep, 1].astype(np.int64), tv[keep, 0])
-            offset, maximize = float(self.objective_const), True
-
-        cat = lambda parts, dtype: np.concatenate(parts) if parts else np.zeros(0, dtype=dtype)
-        A = sp.csc_matrix((cat(rows_v, float), (cat(rows_r, np.int64), cat(rows_c, np.int64))),
-                          shape=(n_rows, n_total))     # sums repeated entries
-        A.eliminate_zeros()
-        A.sort_indices()
-        return Matrix(A=A, row_lower=cat(row_lower, float), row_upper=cat(row_upper, float),
-                      col_lower=col_lower, col_upper=col_upper, integer=integer, cost=cost,
-                      offset=offset, maximize=maximize, var_ranges=var_ranges,
-                      var_index=var_index, binary=binary, blocks=blocks)
+            cost[self.n_cols:] = 1.0
+            return cost, 0.0, False
+        if self.objective_terms:
+            tv = np.array(self.objective_terms, dtype=float).reshape(-1, 2)
+            keep = (tv[:, 0] != 0) & ~np.isnan(tv[:, 1])
+            np.add.at(cost, tv[keep, 1].astype(np.int64), tv[keep, 0])
+        return cost, float(self.objective_const), True
 
     def _column_keys(self) -> List[tuple]:
         """Column -> its variable key ``(*asset, t)``."""
@@ -403,3 +386,68 @@ class Ctx:
         for name in self._var_start:
             out.extend(self.var_keys[name])
         return out
+
+
+def _cat(parts, dtype) -> np.ndarray:
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=dtype)
+
+
+@dataclass
+class _Columns:
+    """Column data while a :class:`Matrix` is made."""
+
+    lower: np.ndarray
+    upper: np.ndarray
+    integer: np.ndarray
+    ranges: Dict[str, Tuple[int, int]] = field(default_factory=dict)
+    index: Dict[str, list] = field(default_factory=dict)
+    binary: Dict[str, bool] = field(default_factory=dict)
+
+
+class _Rows:
+    """Row data while a :class:`Matrix` is made: triplets with global row numbers,
+    row bounds, blocks, and (relax mode) the slack columns numbered after ``n_cols``."""
+
+    def __init__(self, n_cols: int):
+        self.n_cols = n_cols
+        self.n = 0
+        self.r: List[np.ndarray] = []
+        self.c: List[np.ndarray] = []
+        self.v: List[np.ndarray] = []
+        self.lower: List[np.ndarray] = []
+        self.upper: List[np.ndarray] = []
+        self.blocks: List[RowBlock] = []
+        self.slack_rows: List[tuple] = []     # (family, origin idx, side, row key)
+
+    def triplets(self, r: np.ndarray, c: np.ndarray, v: np.ndarray) -> None:
+        self.r.append(r)
+        self.c.append(c)
+        self.v.append(v)
+
+    def block(self, name: str, lo: np.ndarray, hi: np.ndarray, keys: list) -> None:
+        """Close a family's rows: ``n .. n + len(lo)``."""
+        m = len(lo)
+        self.lower.append(lo)
+        self.upper.append(hi)
+        self.blocks.append(RowBlock(name, self.n, self.n + m, keys))
+        self.n += m
+
+    def add_slacks(self, fam: Family, lo: np.ndarray, hi: np.ndarray, keys, first_row: int) -> None:
+        """A slack column per limited side of rows first_row.. (+s on the lower side,
+        -s on the upper), numbered row by row, lower side first."""
+        sides = np.stack([np.isfinite(lo), np.isfinite(hi)], axis=1).ravel()
+        which = np.nonzero(sides)[0]          # 2 * row + (0 lower, 1 upper)
+        s0 = self.n_cols + len(self.slack_rows)
+        self.triplets(first_row + which // 2, s0 + np.arange(len(which)),
+                      np.where(which % 2 == 0, 1.0, -1.0))
+        oi = fam.oi if fam.kind == "rows" else [b[3] for b in fam.bounds]
+        for w in which.tolist():
+            i = w // 2
+            self.slack_rows.append((fam.name, oi[i], "lo" if w % 2 == 0 else "hi", keys[i]))
+
+    def matrix(self, n_total: int) -> sp.csc_matrix:
+        A = sp.csc_matrix((_cat(self.v, float), (_cat(self.r, np.int64), _cat(self.c, np.int64))),
+                          shape=(self.n, n_total))     # sums repeated entries
+        A.eliminate_zeros()
+        A.sort_indices()
+        return A

@@ -1,8 +1,11 @@
 """Constraint families, one per module, run in this order by ``compile.build``.
 
-Every module exposes ``build(ctx)``; its docstring states the math.  Modules
-may publish expressions in ``ctx.expr`` for later ones (``routes`` publishes
-what each storage receives and sends before ``storage_balance`` runs).
+Every module exposes ``build(ctx)``; its docstring states the math.
+Quantities several families share (total charge, route flows, meter flows)
+come from :mod:`portfolio.compile.expressions`, and who is where from
+``ctx.topo``, so the order below matters only where a module publishes
+something in ``ctx.expr`` for a later one (``modes`` publishes its binaries
+for ``run_rest``).
 """
 
 from . import (direction, grid_limits, modes, objective, power_limits, ramp, routes, run_rest,

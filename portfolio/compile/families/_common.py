@@ -5,23 +5,21 @@ from __future__ import annotations
 import math
 from typing import Dict, List, Optional, Tuple
 
+from .. import expressions as E
 from ..context import Ctx, Origin
 from ...model import PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, PRIOR_WORDS, Storage
 
 
 def charge_terms(ctx: Ctx, k: str, t: int, coef: float = 1.0) -> List[Tuple[float, object]]:
-    """Total charge of storage ``k`` at ``t``: draw from the site plus direct supplies."""
-    terms = []
-    v = ctx.v("charge_site", k, t)
-    if v is not None:
-        terms.append((coef, v))
-    for i in ctx.expr["direct_supplies"].get(k, ()):
-        terms.append((coef, ctx.v("supply_to", (i, k), t)))
-    return terms
+    """Total charge of storage ``k`` at ``t`` (:func:`.expressions.total_charge`)."""
+    parts = ctx.memo.get(("total_charge", k))
+    if parts is None:
+        parts = ctx.memo[("total_charge", k)] = E.total_charge(ctx.topo, k)
+    return E.terms(ctx, parts, t, coef)
 
 
 def discharge_terms(ctx: Ctx, k: str, t: int, coef: float = 1.0) -> List[Tuple[float, object]]:
-    v = ctx.v("discharge", k, t)
+    v = ctx.v(E.DISCHARGE, k, t)
     return [(coef, v)] if v is not None else []
 
 

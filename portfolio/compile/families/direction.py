@@ -46,7 +46,7 @@ def build(ctx: Ctx) -> None:
     for cname, steps in needed.items():
         c = p.connections[cname]
         # in relax mode the declared limits may give: the big-M may not lean on them
-        me, mi = connection_reach(p, cname, declared=not ctx.relax)
+        me, mi = connection_reach(p, ctx.topo, cname, declared=not ctx.relax)
         if c.exclusive:
             o = Origin(c.where("exclusive"), f'connection "{cname}" may not import and export at once')
         else:

@@ -21,6 +21,7 @@ never reaches the solver as a number.
 from __future__ import annotations
 
 from ...reach import connection_reach, site_reach
+from .. import expressions as E
 from ..context import Ctx, Origin
 from ._common import fmt
 
@@ -28,12 +29,12 @@ from ._common import fmt
 def _implied(ctx: Ctx) -> None:
     p = ctx.p
     for sname in p.sites:
-        out, inn = site_reach(p, sname)
+        out, inn = site_reach(p, ctx.topo, sname)
         for t in ctx.steps:
             ctx.implied("site_export", sname, t, out[t])
             ctx.implied("site_import", sname, t, inn[t])
     for cname in p.connections:
-        out, inn = connection_reach(p, cname)
+        out, inn = connection_reach(p, ctx.topo, cname)
         for t in ctx.steps:
             ctx.implied("conn_export", cname, t, out[t])
             ctx.implied("conn_import", cname, t, inn[t])
@@ -50,12 +51,13 @@ def build(ctx: Ctx) -> None:
             for t in ctx.steps:
                 ctx.bound(f"site_{side}_max", f"site_{side}", sname, t, hi=lim, origin=o)
     for cname, c in p.connections.items():
-        sites = [s for s, site in p.sites.items() if site.connection == cname]
+        net = E.meter("connection", cname)
+        sites = [E.meter("site", s) for s in ctx.topo.sites_at(cname)]
         o = Origin(c.span, f'meter of connection "{cname}" (net of its sites)')
         for t in ctx.steps:
-            terms = [(1.0, ctx.v("conn_export", cname, t)), (-1.0, ctx.v("conn_import", cname, t))]
+            terms = E.terms(ctx, net, t)
             for s in sites:
-                terms += [(-1.0, ctx.v("site_export", s, t)), (1.0, ctx.v("site_import", s, t))]
+                terms += E.terms(ctx, s, t, -1.0)
             ctx.row("connection_meter", (cname, t), terms, lo=0.0, hi=0.0, origin=o,
                     relaxable=False)
         for side, lim in (("export", c.export_max), ("import", c.import_max)):

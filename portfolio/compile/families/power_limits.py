@@ -20,10 +20,9 @@ from ._common import charge_terms, fmt
 
 
 def build(ctx: Ctx) -> None:
-    direct = ctx.expr["direct_supplies"]
     for k, s in ctx.p.storages.items():
         o = Origin(s.where("charge_max"), f'charge limit of storage "{k}" ({fmt(s.charge_max)} MW)')
-        if direct.get(k):
+        if ctx.topo.supplies_into(k):
             for t in ctx.steps:
                 ctx.row("charge_limit_with_supplies", (k, t), charge_terms(ctx, k, t), hi=s.charge_max, origin=o)
         else:

@@ -11,23 +11,24 @@ from __future__ import annotations
 
 import numpy as np
 
+from .. import expressions as E
 from ..context import Ctx, Origin
 
 
 def build(ctx: Ctx) -> None:
-    p = ctx.p
+    p, topo = ctx.p, ctx.topo
     for sname, site in p.sites.items():
-        storages = [k for k, s in p.storages.items() if s.site == sname]
-        supplies = [i for i, f in p.supplies.items() if f.site == sname and "site" in f.targets]
+        storages = topo.storages_at(sname)
+        supplies = topo.site_supplies(sname)
         demand = np.zeros(ctx.T)
-        for d in p.demands.values():
-            if d.site == sname:
-                demand = demand + p.profile(d.profile)
+        for d in topo.demands_at(sname):
+            demand = demand + p.profile(p.demands[d].profile)
+        net_out = E.meter("site", sname)
         o = Origin(site.span, f'power balance of site "{sname}"')
         for t in ctx.steps:
-            terms = [(1.0, ctx.v("supply_site", i, t)) for i in supplies]
-            terms += [(1.0, ctx.v("discharge", k, t)) for k in storages]
-            terms += [(-1.0, ctx.v("charge_site", k, t)) for k in storages]
-            terms += [(1.0, ctx.v("site_import", sname, t)), (-1.0, ctx.v("site_export", sname, t))]
+            terms = [(1.0, ctx.v(E.SUPPLY_SITE, i, t)) for i in supplies]
+            terms += [(1.0, ctx.v(E.DISCHARGE, k, t)) for k in storages]
+            terms += [(-1.0, ctx.v(E.CHARGE_SITE, k, t)) for k in storages]
+            terms += E.terms(ctx, net_out, t, -1.0)       # import - export
             ctx.row("site_balance", (sname, t), terms, lo=float(demand[t]), hi=float(demand[t]),
                     origin=o, relaxable=False)

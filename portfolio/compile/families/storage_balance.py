@@ -13,7 +13,8 @@ q = spill, n = natural supply (MW, the storage's supply series):
     end rule:  at_least: soc[T-1] >= end_value;  equal: soc[T-1] = end_value
                                               (family ``end_rule``)
 
-routes_in / transfers_out come from :mod:`.routes` (MWh per step).  Natural
+routes_in / transfers_out are the routes' in[r,t] and out[r,t] (:mod:`.routes`, MWh
+per step, from :mod:`portfolio.compile.expressions`).  Natural
 supply cannot be curtailed: a full store must spill it (infeasible when spill
 is not allowed, which the relaxation then reports).
 """
@@ -21,21 +22,32 @@ is not allowed, which the relaxation then reports).
 from __future__ import annotations
 
 from ...model import END_AT_LEAST, END_EQUAL
+from .. import expressions as E
 from ..context import Ctx, Origin
 from ._common import charge_terms, discharge_terms, fmt
+
+
+def _routes_in(ctx: Ctx, routes, t: int):
+    """MWh arriving at a store in step ``t`` along ``routes``: (terms, constant)."""
+    terms, const = [], 0.0
+    for r in routes:
+        tt, cc = E.route_arriving_terms(ctx, r, t)
+        terms += tt
+        const += cc
+    return terms, const
 
 
 def build(ctx: Ctx) -> None:
     p = ctx.p
     dt = ctx.dt
-    route_in = ctx.expr["route_in"]
-    route_send = ctx.expr["route_send"]
     for k, s in p.storages.items():
+        into = ctx.topo.routes_into(k)
+        transfers = [r for r in ctx.topo.routes_out_of(k) if r.kind == "transfer"]
         a = (1.0 - s.loss_per_h) ** dt
         natural = p.profile(s.supply) if s.supply is not None else None
         o = Origin(s.span, f'energy balance of storage "{k}"')
         for t in ctx.steps:
-            terms = [(1.0, ctx.v("soc", k, t))]
+            terms = [(1.0, ctx.v(E.SOC, k, t))]
             const = 0.0
             if t > 0:
                 terms.append((-a, ctx.v("soc", k, t - 1)))
@@ -47,10 +59,10 @@ def build(ctx: Ctx) -> None:
                 terms.append((dt, ctx.v("spill", k, t)))
             if natural is not None:
                 const += float(natural[t]) * dt
-            rin, rconst = route_in[k](t)
+            rin, rconst = _routes_in(ctx, into, t)
             terms += [(-c, v) for c, v in rin]
             const += rconst
-            terms += route_send[k](t)
+            terms += [term for r in transfers for term in E.route_out_terms(ctx, r, t)]
             # soc - (supplies) = const  ->  rhs = const
             ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=o,
                     relaxable=False)

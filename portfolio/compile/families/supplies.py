@@ -14,6 +14,7 @@ bounded by the storage's ``charge_limit`` and takes its charge efficiency).
 
 from __future__ import annotations
 
+from .. import expressions as E
 from ..context import Ctx, Origin
 
 
@@ -21,10 +22,10 @@ def build(ctx: Ctx) -> None:
     p = ctx.p
     for name, i in p.supplies.items():
         avail = p.profile(i.profile)
+        used = E.supply_used(ctx.topo, name)
         o = Origin(i.span, f'supply "{name}" must go somewhere (used or curtailed)')
         for t in ctx.steps:
-            terms = [(1.0, ctx.v("supply_site", name, t)), (1.0, ctx.v("curtailed", name, t))]
-            terms += [(1.0, ctx.v("supply_to", (name, k), t)) for k in i.targets if k != "site"]
+            terms = E.terms(ctx, used, t) + [(1.0, ctx.v(E.CURTAILED, name, t))]
             ctx.row("supply_split", (name, t), terms, lo=float(avail[t]), hi=float(avail[t]),
                     origin=o, relaxable=False)
         if not i.curtail_allowed:

@@ -1,0 +1,132 @@
+"""The results contract: what a dispatch writes, in one place (docs/outputs.md).
+
+* :data:`TABLES`: per table kind, its columns in order, each with its unit
+  and meaning; :data:`COLUMNS` the names alone.
+* :data:`SUMMARY_KEYS` (and :data:`OPTIONAL_SUMMARY_KEYS`): the top-level
+  keys of ``summary.json``; :data:`ASSET_GROUPS`: the per-asset sections;
+  :data:`ASSET_KEYS`, :data:`STORAGE_KEYS`, :data:`ROUTE_KEYS`: the keys of
+  one asset's entry.
+* :data:`RESERVED_NAMES`: names an asset may not take (they are output files).
+* :data:`CAUTION`: the one wording of the caution, for summary.json and the terminal.
+* Output folder: :data:`MARKER`, :data:`FORMATS`, :data:`WIDE`, :data:`SUMMARY_FILE`,
+  :func:`table_file`.
+
+:mod:`portfolio.schedule` makes its tables through :func:`frame` (a table
+whose columns differ from the contract is an error), :mod:`portfolio.writers`
+names files and refuses folders by it, and the CLI's tables follow it.  A
+test compares docs/outputs.md with this module.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Dict, Mapping, Tuple
+
+import numpy as np
+import pandas as pd
+
+CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
+           "operator's instructions and local codes and licensed practice always come first. Reservoir "
+           "spill affects people downstream.")
+
+
+@dataclass(frozen=True)
+class Column:
+    name: str
+    unit: str       # MW, MWh, money/MWh, money, or "-" for a word
+    meaning: str
+
+
+# -- tables -------------------------------------------------------------------------------
+
+TABLES: Mapping[str, Tuple[Column, ...]] = {
+    "storage": (
+        Column("charge_mw", "MW", "total charge: drawn from the site plus supply fed straight into the store"),
+        Column("discharge_mw", "MW", "discharge, grid side"),
+        Column("soc_mwh", "MWh", "content at the END of the step"),
+        Column("spill_mw", "MW", "spilled: stored MWh per step / step hours"),
+        Column("mode", "-", "charge, discharge, idle, or both (tolerance 1e-6 MW)"),
+        Column("routed_in_mw", "MW", "arriving from routes, target units (water in transit at the start included)"),
+        Column("routed_out_mw", "MW", "leaving into routes of every kind, source's stored MWh per step / step hours"),
+    ),
+    "supply": (
+        Column("available_mw", "MW", "the supply's profile: used + curtailed"),
+        Column("used_mw", "MW", "delivered to the site and straight into stores together"),
+        Column("curtailed_mw", "MW", "not taken"),
+    ),
+    "demand": (
+        Column("demand_mw", "MW", "the demand's profile"),
+    ),
+    "site": (
+        Column("import_mw", "MW", "net import through the site's meter"),
+        Column("export_mw", "MW", "net export through the site's meter"),
+    ),
+    "connection": (
+        Column("import_mw", "MW", "net import through the connection's meter"),
+        Column("export_mw", "MW", "net export through the connection's meter"),
+        Column("sell_price", "money/MWh", "the sell price expression"),
+        Column("buy_price", "money/MWh", "the buy price expression"),
+        Column("cashflow", "money", "step hours x (sell_price x export_mw - buy_price x import_mw)"),
+    ),
+    "route": (
+        Column("flow_mw", "MW", "leaving the source: source's stored MWh per step / step hours"),
+        Column("arriving_mw", "MW", "reaching the target after the delay, factor and efficiency applied"),
+    ),
+}
+
+COLUMNS: Dict[str, list] = {kind: [c.name for c in cols] for kind, cols in TABLES.items()}
+
+# -- summary.json ------------------------------------------------------------------------
+
+SUMMARY_KEYS = (
+    "status", "objective", "best_bound", "mip_gap", "build_seconds", "solve_seconds",
+    "handoff_seconds", "start_seconds", "start_objective", "lp_bound", "explain_seconds",
+    "polish_seconds", "time_limit", "certificate", "polish", "tie_break", "steps", "step_hours",
+    "start", "zone", "portfolio", "variant", "warm_start", "solver_status", "model", "caution",
+    "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
+)
+OPTIONAL_SUMMARY_KEYS = ("message",)          # present only when there is something to say
+
+# summary section -> the table kind of its assets
+ASSET_GROUPS: Mapping[str, str] = {
+    "storages": "storage", "supplies": "supply", "demands": "demand", "sites": "site",
+    "connections": "connection", "routes": "route",
+}
+
+ASSET_KEYS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+              "curtailed_mwh", "spilled_mwh")
+STORAGE_KEYS = ASSET_KEYS + ("soc_end_mwh",)
+ROUTE_KEYS = ("in_transit_end_mwh", "flow_mwh")
+
+# the per-asset figures the terminal shows, in this order (a column is shown when
+# some asset of the group has it non-zero; revenue whenever the group has it)
+CLI_ASSET_COLUMNS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+                     "curtailed_mwh", "spilled_mwh", "in_transit_end_mwh")
+CLI_GROUP_ORDER = ("connections", "sites", "storages", "supplies", "demands", "routes")
+
+# -- output folder -------------------------------------------------------------------------
+
+MARKER = ".portfolio-output"       # lists the files this tool wrote; its presence makes a folder ours
+FORMATS = ("csv", "parquet")
+WIDE = "schedule"                  # every table in one: schedule.<format>
+SUMMARY_FILE = "summary.json"
+RESERVED_NAMES = (WIDE, "summary")  # an asset so named would clash with an output file
+
+
+def table_file(name: str, fmt: str) -> str:
+    """The file of one table (an asset's, or :data:`WIDE`) in format ``fmt``."""
+    return f"{name}.{fmt}"
+
+
+def frame(kind: str, data: Mapping[str, np.ndarray], index: pd.DatetimeIndex) -> pd.DataFrame:
+    """A table of ``kind`` with the contract's columns, in the contract's order.
+
+    ``data`` must give exactly those columns: a missing or an extra one is a
+    programming error (raised), never a silent change of the output.
+    """
+    want = COLUMNS[kind]
+    if set(data) != set(want) or len(data) != len(want):
+        missing = [c for c in want if c not in data]
+        extra = [c for c in data if c not in want]
+        raise KeyError(f"{kind} table: columns differ from the contract (missing {missing}, extra {extra})")
+    return pd.DataFrame({c: data[c] for c in want}, index=index)

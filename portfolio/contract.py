@@ -20,10 +20,12 @@ test compares docs/outputs.md with this module.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Dict, Mapping, Tuple
+from typing import TYPE_CHECKING, Dict, Mapping, Tuple
 
-import numpy as np
-import pandas as pd
+if TYPE_CHECKING:
+    import numpy as np
+    import pandas as pd
+
 
 CAUTION = ("Schedules are advisory. The plant's own protection systems, manufacturer limits, the grid "
            "operator's instructions and local codes and licensed practice always come first. Reservoir "
@@ -118,7 +120,7 @@ def table_file(name: str, fmt: str) -> str:
     return f"{name}.{fmt}"
 
 
-def frame(kind: str, data: Mapping[str, np.ndarray], index: pd.DatetimeIndex) -> pd.DataFrame:
+def frame(kind: str, data: Mapping[str, "np.ndarray"], index: "pd.DatetimeIndex") -> "pd.DataFrame":
     """A table of ``kind`` with the contract's columns, in the contract's order.
 
     ``data`` must give exactly those columns: a missing or an extra one is a
@@ -129,4 +131,6 @@ def frame(kind: str, data: Mapping[str, np.ndarray], index: pd.DatetimeIndex) ->
         missing = [c for c in want if c not in data]
         extra = [c for c in data if c not in want]
         raise KeyError(f"{kind} table: columns differ from the contract (missing {missing}, extra {extra})")
+    import pandas as pd   # the contract is also read by the checker, which needs no pandas
+
     return pd.DataFrame({c: data[c] for c in want}, index=index)

@@ -23,7 +23,8 @@ import pandas as pd
 from . import diagnostics as dg
 from .compile import Built, build
 from .model import Portfolio
-from .schedule import CAUTION, build_tables, wide
+from .contract import CAUTION
+from .schedule import build_tables, wide
 from .solve import (ERROR, FEASIBLE, INFEASIBLE, INFEASIBLE_OR_UNBOUNDED, NO_SCHEDULE, OPTIMAL,
                     UNBOUNDED, Deadline, Progress, SolveOptions, solve)
 from .spans import Span

@@ -36,8 +36,7 @@ import numpy as np
 import pandas as pd
 
 from .compile import expressions as E
-from .contract import (ASSET_GROUPS, ASSET_KEYS, CAUTION, COLUMNS, ROUTE_KEYS, STORAGE_KEYS,  # noqa: F401
-                       frame)                   # (CAUTION and COLUMNS re-exported)
+from .contract import ASSET_GROUPS, ASSET_KEYS, ROUTE_KEYS, STORAGE_KEYS, frame
 
 NOISE = 1e-9
 MODE_TOL = 1e-6

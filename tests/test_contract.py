@@ -16,7 +16,7 @@ sys.path.insert(0, str(Path(__file__).parent))
 import factory as F  # noqa: E402
 
 from portfolio import contract as C  # noqa: E402
-from portfolio.check.names import RESERVED_NAMES as CHECKED_NAMES  # noqa: E402
+from portfolio.api import lint_text  # noqa: E402
 from portfolio.dispatch import dispatch  # noqa: E402
 
 DOC = (Path(__file__).parent.parent / "docs" / "outputs.md").read_text(encoding="utf-8")
@@ -77,8 +77,13 @@ def test_reserved_names_and_files_are_documented():
     assert C.table_file(C.WIDE, "csv") in files and C.table_file(C.WIDE, "parquet") in files
 
 
-def test_the_checker_reserves_the_same_names():
-    assert CHECKED_NAMES == set(C.RESERVED_NAMES)
+@pytest.mark.parametrize("name", C.RESERVED_NAMES + tuple(n.upper() for n in C.RESERVED_NAMES))
+def test_the_checker_refuses_every_reserved_name(name):
+    text = ('horizon start 2027-03-01T00:00 length 4 h step 1 h zone "UTC"\n'
+            "connection grid { export max 10 MW import max 10 MW sell at 5 per MWh buy at 5 per MWh }\n"
+            f"site yard at grid {{ storage {name} {{ kind battery energy 4 MWh charge max 2 MW discharge max 2 MW }} }}\n")
+    found = lint_text(text)
+    assert [d.code for d in found.errors] == ["P206"], found.diagnostics
 
 
 def test_a_dispatch_writes_what_the_contract_says(tmp_path):

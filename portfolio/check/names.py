@@ -11,10 +11,10 @@ from dataclasses import dataclass
 from typing import Dict, Optional, Tuple
 
 from ..diagnostics import DuplicateName, NameCaseClash, NameTooLong, ReservedName, Sink, UnknownName, WrongNameKind
+from ..contract import RESERVED_NAMES
 from ..spans import Span
 from .tree import Word
 
-RESERVED_NAMES = {"schedule", "summary"}   # output files schedule.csv and summary.json
 # an asset's output file is "<name>.parquet": 255 bytes at most on common file systems
 MAX_NAME_BYTES = 255 - len(".parquet")
 

@@ -53,9 +53,6 @@ from ..topology import Topology
 from . import expressions as E
 from .context import Ctx, Matrix, Origin  # noqa: F401  (re-exported)
 from .families import FAMILIES
-from .pyomo_model import lin  # noqa: F401  (re-exported)
-
-VARIANTS = ("tight", "plain")
 
 
 @dataclass

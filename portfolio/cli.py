@@ -12,12 +12,12 @@ import argparse
 import errno
 import os
 import sys
-import time
 from pathlib import Path
 from typing import List, Optional
 
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
+from .cli_output import Progress, explain_failure, print_assets, print_result, status_line
 from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
@@ -223,7 +223,7 @@ def cmd_dispatch(args, out, err) -> int:
     if args.no_warm_start:
         kw["warm_start"] = False
     options = SolveOptions(**kw)
-    progress = _Progress(err, quiet=args.quiet)
+    progress = Progress(err, quiet=args.quiet)
     try:
         result = dispatch(r.portfolio, options, progress=progress)
     finally:
@@ -236,13 +236,13 @@ def cmd_dispatch(args, out, err) -> int:
         try:
             result.write(out_dir, formats=formats)
         except (OSError, ValueError, OutputFolderError) as e:
-            print(_status_line(result), file=out)
+            print(status_line(result), file=out)
             print(printable(f"portfolio: error: cannot write '{out_dir}': {e}"), file=err)
             return EXIT_USAGE
-        _print_result(result, out)
+        print_result(result, out)
         if not args.quiet:
             from .contract import CAUTION   # one wording for the terminal and summary.json
-            _print_assets(result, out)
+            print_assets(result, out)
             print(printable(f"schedule written to {out_dir}/"), file=out)
             print(f"caution: {CAUTION}", file=out)
     else:
@@ -251,8 +251,8 @@ def cmd_dispatch(args, out, err) -> int:
             written = f"summary written to {out_dir}/summary.json (no schedule)"
         except (OSError, ValueError, OutputFolderError) as e:
             written = f"portfolio: could not write the summary to '{out_dir}': {e}"
-        _print_result(result, out)
-        _explain_failure(result, err)
+        print_result(result, out)
+        explain_failure(result, err)
         print(printable(written), file=err)
     return exit_code(status)
 
@@ -265,145 +265,6 @@ def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
     if od.exists() and not od.is_dir():
         return f"'{out_dir}' exists and is not a folder"
     return None
-
-
-def _print_result(result, out) -> None:
-    print(_status_line(result), file=out)
-    for note in result.summary.get("notes", ()):
-        print(printable(f"note: {note}"), file=out)
-
-
-def _status_line(result) -> str:
-    parts = [f"status: {result.status}"]
-    if result.objective is not None:
-        parts.append(f"objective {result.objective:,.2f}")
-    if result.mip_gap is not None:
-        gap = result.mip_gap if result.mip_gap > 1e-12 else 0.0
-        parts.append(f"gap {gap * 100:.3g} %")
-    parts.append(f"build {result.build_seconds:.2f} s")
-    parts.append(f"solve {result.solve_seconds:.2f} s")
-    return " | ".join(parts)
-
-
-def _explain_failure(result, err) -> None:
-    messages = {
-        "infeasible": "the portfolio's limits cannot all hold at once; no schedule",
-        "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); no schedule",
-        "no_schedule": _no_schedule_reason(result.summary),
-        "error": "the solver failed; no schedule",
-    }
-    print(printable(f"portfolio: {messages.get(result.status, result.status)}"), file=err)
-    said = result.summary.get("message") or ""
-    solver = result.summary.get("solver_status") or ""
-    if result.status == "error" and (said or solver):
-        print(printable(f"  what the solver said: {said or solver}"), file=err)
-    relaxed = getattr(result, "relaxed", None) or []
-    if relaxed:
-        print("these limits had to give for a schedule to exist (largest first):", file=err)
-        for r in relaxed[:20]:
-            first = f", first at {r.first.isoformat()}" if getattr(r, "first", None) is not None else ""
-            print(printable(f"  {r.span}: {r.description} (by {r.amount:.5g} over {r.steps} step(s){first})"),
-                  file=err)
-        if len(relaxed) > 20:
-            print(f"  ... and {len(relaxed) - 20} more", file=err)
-
-
-def _no_schedule_reason(summary: dict) -> str:
-    """Why no schedule came back, in the words of what actually stopped it."""
-    solver = (summary.get("solver_status") or "").lower()
-    limit = summary.get("time_limit")
-    if "memory" in solver:
-        return "the solver ran out of memory before it found a schedule; no schedule"
-    if "time limit" in solver or limit is not None:
-        return (f"no schedule was found within the time limit ({limit:g} s); a longer --time-limit "
-                f"may find one; no schedule" if limit is not None else
-                "no schedule was found within the solver's time limit; no schedule")
-    shown = summary.get("solver_status") or "it stopped without a reason"
-    return f"the solver stopped before it found a schedule ({shown}); no schedule"
-
-
-def _print_assets(result, out) -> None:
-    from rich.console import Console
-    from rich.table import Table
-
-    from .contract import CLI_ASSET_COLUMNS, CLI_GROUP_ORDER
-
-    console = Console(file=out, width=120, highlight=False)
-    summary = result.summary
-    for group in CLI_GROUP_ORDER:
-        rows = summary.get(group) or {}
-        if not rows:
-            continue
-        cols = [c for c in CLI_ASSET_COLUMNS
-                if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
-                or (c == "revenue" and any(c in v for v in rows.values()))]
-        table = Table(title=group, title_justify="left", show_edge=False)
-        table.add_column("name")
-        for c in cols:
-            table.add_column(c, justify="right")
-        for name, v in rows.items():
-            table.add_row(name, *[_num(v.get(c)) for c in cols])
-        console.print(table)
-
-
-def _num(x) -> str:
-    if x is None:
-        return ""
-    if isinstance(x, (int, float)):
-        return f"{x:,.3f}"
-    return str(x)
-
-
-class _Progress:
-    """Feedback on stderr once a solve has run for a couple of seconds.
-
-    A timer starts a spinner after ``after`` seconds (LPs report nothing while
-    they run); MIP solves also update it with the best objective and gap.
-    """
-
-    def __init__(self, err, quiet=False, after=2.0):
-        import threading
-
-        self.err, self.quiet = err, quiet
-        self.start = time.monotonic()
-        self.status = None
-        self.text = "solving..."
-        self.lock = threading.Lock()
-        self.timer = None
-        if not quiet:
-            self.timer = threading.Timer(after, self._show)
-            self.timer.daemon = True
-            self.timer.start()
-
-    def _show(self):
-        from rich.console import Console
-
-        with self.lock:
-            if self.status is None and self.timer is not None:
-                self.status = Console(file=self.err).status(self.text)
-                self.status.start()
-
-    def __call__(self, elapsed, objective=None, bound=None, gap=None):
-        if self.quiet:
-            return
-        text = f"solving... {elapsed:.0f} s"
-        if objective is not None:
-            text += f"  best {objective:,.2f}"
-        if gap is not None:
-            text += f"  gap {gap * 100:.3g} %"
-        with self.lock:
-            self.text = text
-            if self.status is not None:
-                self.status.update(text)
-
-    def close(self):
-        with self.lock:
-            if self.timer is not None:
-                self.timer.cancel()
-                self.timer = None
-            if self.status is not None:
-                self.status.stop()
-                self.status = None
 
 
 _interrupted = False

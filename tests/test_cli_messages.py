@@ -3,7 +3,7 @@ the solver, not a guess (a longer time limit helps only when one was set)."""
 
 from __future__ import annotations
 
-from portfolio.cli import _no_schedule_reason
+from portfolio.cli_output import _no_schedule_reason
 
 
 def test_a_memory_limit_is_named():

@@ -1,0 +1,148 @@
+"""What the ``portfolio dispatch`` command shows: the status line, why there is
+no schedule, the asset tables and the progress line.  Used by :mod:`portfolio.cli`
+only (the library never prints)."""
+
+from __future__ import annotations
+
+import time
+
+from .render import printable
+
+
+def print_result(result, out) -> None:
+    print(status_line(result), file=out)
+    for note in result.summary.get("notes", ()):
+        print(printable(f"note: {note}"), file=out)
+
+
+def status_line(result) -> str:
+    parts = [f"status: {result.status}"]
+    if result.objective is not None:
+        parts.append(f"objective {result.objective:,.2f}")
+    if result.mip_gap is not None:
+        gap = result.mip_gap if result.mip_gap > 1e-12 else 0.0
+        parts.append(f"gap {gap * 100:.3g} %")
+    parts.append(f"build {result.build_seconds:.2f} s")
+    parts.append(f"solve {result.solve_seconds:.2f} s")
+    return " | ".join(parts)
+
+
+def explain_failure(result, err) -> None:
+    messages = {
+        "infeasible": "the portfolio's limits cannot all hold at once; no schedule",
+        "unbounded": "the profit is unbounded: some flow has no limit (check connection and storage limits); no schedule",
+        "no_schedule": _no_schedule_reason(result.summary),
+        "error": "the solver failed; no schedule",
+    }
+    print(printable(f"portfolio: {messages.get(result.status, result.status)}"), file=err)
+    said = result.summary.get("message") or ""
+    solver = result.summary.get("solver_status") or ""
+    if result.status == "error" and (said or solver):
+        print(printable(f"  what the solver said: {said or solver}"), file=err)
+    relaxed = getattr(result, "relaxed", None) or []
+    if relaxed:
+        print("these limits had to give for a schedule to exist (largest first):", file=err)
+        for r in relaxed[:20]:
+            first = f", first at {r.first.isoformat()}" if getattr(r, "first", None) is not None else ""
+            print(printable(f"  {r.span}: {r.description} (by {r.amount:.5g} over {r.steps} step(s){first})"),
+                  file=err)
+        if len(relaxed) > 20:
+            print(f"  ... and {len(relaxed) - 20} more", file=err)
+
+
+def _no_schedule_reason(summary: dict) -> str:
+    """Why no schedule came back, in the words of what actually stopped it."""
+    solver = (summary.get("solver_status") or "").lower()
+    limit = summary.get("time_limit")
+    if "memory" in solver:
+        return "the solver ran out of memory before it found a schedule; no schedule"
+    if "time limit" in solver or limit is not None:
+        return (f"no schedule was found within the time limit ({limit:g} s); a longer --time-limit "
+                f"may find one; no schedule" if limit is not None else
+                "no schedule was found within the solver's time limit; no schedule")
+    shown = summary.get("solver_status") or "it stopped without a reason"
+    return f"the solver stopped before it found a schedule ({shown}); no schedule"
+
+
+def print_assets(result, out) -> None:
+    from rich.console import Console
+    from rich.table import Table
+
+    from .contract import CLI_ASSET_COLUMNS, CLI_GROUP_ORDER
+
+    console = Console(file=out, width=120, highlight=False)
+    summary = result.summary
+    for group in CLI_GROUP_ORDER:
+        rows = summary.get(group) or {}
+        if not rows:
+            continue
+        cols = [c for c in CLI_ASSET_COLUMNS
+                if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
+                or (c == "revenue" and any(c in v for v in rows.values()))]
+        table = Table(title=group, title_justify="left", show_edge=False)
+        table.add_column("name")
+        for c in cols:
+            table.add_column(c, justify="right")
+        for name, v in rows.items():
+            table.add_row(name, *[_num(v.get(c)) for c in cols])
+        console.print(table)
+
+
+def _num(x) -> str:
+    if x is None:
+        return ""
+    if isinstance(x, (int, float)):
+        return f"{x:,.3f}"
+    return str(x)
+
+
+class Progress:
+    """Feedback on stderr once a solve has run for a couple of seconds.
+
+    A timer starts a spinner after ``after`` seconds (LPs report nothing while
+    they run); MIP solves also update it with the best objective and gap.
+    """
+
+    def __init__(self, err, quiet=False, after=2.0):
+        import threading
+
+        self.err, self.quiet = err, quiet
+        self.start = time.monotonic()
+        self.status = None
+        self.text = "solving..."
+        self.lock = threading.Lock()
+        self.timer = None
+        if not quiet:
+            self.timer = threading.Timer(after, self._show)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def _show(self):
+        from rich.console import Console
+
+        with self.lock:
+            if self.status is None and self.timer is not None:
+                self.status = Console(file=self.err).status(self.text)
+                self.status.start()
+
+    def __call__(self, elapsed, objective=None, bound=None, gap=None):
+        if self.quiet:
+            return
+        text = f"solving... {elapsed:.0f} s"
+        if objective is not None:
+            text += f"  best {objective:,.2f}"
+        if gap is not None:
+            text += f"  gap {gap * 100:.3g} %"
+        with self.lock:
+            self.text = text
+            if self.status is not None:
+                self.status.update(text)
+
+    def close(self):
+        with self.lock:
+            if self.timer is not None:
+                self.timer.cancel()
+                self.timer = None
+            if self.status is not None:
+                self.status.stop()
+                self.status = None

@@ -7,7 +7,7 @@ the :class:`~.context.Origin` (source Span plus description) of every limit it
 encodes, so an infeasibility can be traced back to a line of the user's file.
 
 The result holds the MILP twice over: as sparse arrays
-(:class:`~.context.Matrix`, what the default solver path passes to HiGHS)
+(:class:`~.arrays.Matrix`, what the default solver path passes to HiGHS)
 and as a Pyomo model (``Built.model``, one component per variable and row
 family), which is made from the arrays the first time it is asked for.
 
@@ -51,7 +51,8 @@ from ..graph import build_graph
 from ..model import Portfolio
 from ..topology import Topology
 from . import expressions as E
-from .context import Ctx, Matrix, Origin  # noqa: F401  (re-exported)
+from .arrays import Matrix  # noqa: F401  (re-exported)
+from .context import Ctx, Origin  # noqa: F401  (re-exported)
 from .families import FAMILIES
 
 

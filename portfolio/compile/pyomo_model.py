@@ -1,4 +1,4 @@
-"""The Pyomo model of a compiled portfolio, made from its :class:`~.context.Matrix`.
+"""The Pyomo model of a compiled portfolio, made from its :class:`~.arrays.Matrix`.
 
 One ``Var`` per variable family (indexed by ``(*asset, t)``, ``slack`` by
 number in relax mode), one indexed ``Constraint`` per row family (indexed by
@@ -18,7 +18,7 @@ from typing import Optional, Sequence, Tuple
 
 import numpy as np
 
-from .context import Matrix, RowBlock
+from .arrays import Matrix, RowBlock
 
 
 def to_pyomo(mx: Matrix, name: str, values: Optional[np.ndarray] = None):

@@ -3,7 +3,7 @@
 A solver path (the HiGHS matrix path, the Pyomo path, the warm start) returns
 a :class:`Claim`: a vector of column values and what the solver says of it
 (status, objective, bound).  :func:`certify` checks the claim against the
-compiled :class:`~portfolio.compile.context.Matrix` itself and returns a
+compiled :class:`~portfolio.compile.arrays.Matrix` itself and returns a
 :class:`Certificate` whose figures are the project's own:
 
 1. **feasible** — every column bound, every row and integrality hold for the

@@ -5,20 +5,32 @@ every token carry line and column.  Syntax errors become ``P101``/``P102``/
 ``P103`` diagnostics in plain words; grammar token names never reach the user.
 A word the language has retired (``RETIRED_WORDS``) is ``P104``, naming its
 replacement; the file does not load (no silent alias).
+
+The LALR tables are not built at each start: they ship in the package as
+``portfolio/syntax_tables.json`` (``parser()`` says why and how), rewritten by
+``python -m portfolio.syntax --regenerate`` after the grammar changes
+(tests/test_syntax_tables.py fails until then).
 """
 
 from __future__ import annotations
 
 import difflib
+import hashlib
+import json
+import os
 import re
+import sys
 import threading
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from typing import Callable, Dict, Optional
 
+import lark
 from lark import Lark, Token, Tree
 from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
+from lark.grammar import Rule
+from lark.lexer import TerminalDef
 
 from .diagnostics import BadTimestamp, RetiredWord, Sink, SyntaxProblem, UnclosedBlock
 from .spans import Span
@@ -68,14 +80,109 @@ def _keyword_terminals(grammar: str) -> Dict[str, Callable]:
     return {n: _keyword_boundary for n in names}
 
 
+# How the parser is made from the grammar.  Changing one of these changes the
+# tables' key, so the shipped tables stop being used until they are regenerated.
+OPTIONS = {"parser": "lalr", "lexer": "contextual", "propagate_positions": True, "maybe_placeholders": False}
+TABLES_FILE = "syntax_tables.json"
+
+
+def grammar_key(grammar: str) -> str:
+    """What the parse tables are made from besides Lark: the grammar and the options."""
+    made_of = f"{sorted(OPTIONS.items())!r}\n{grammar}"
+    return hashlib.sha256(made_of.encode("utf-8")).hexdigest()
+
+
+def build_parser(text: str) -> Lark:
+    """Lark builds the LALR tables from the grammar (most of a lint's start-up before
+    the tables were shipped: docs/performance.md)."""
+    return Lark(text, **OPTIONS, lexer_callbacks=_keyword_terminals(text))
+
+
 @lru_cache(maxsize=1)
 def parser() -> Lark:
-    # No parse-table cache on disk: Lark's cache is a pickle, and unpickling a
-    # file from a user-writable folder runs whatever it holds.  Building the
-    # tables takes about 50 ms.
+    """The parser, from the tables shipped in the package when they were made from
+    this grammar, these options and this Lark; otherwise built from the grammar.
+
+    Lark's own ``cache=True`` is not used: it is a pickle in a user-writable
+    temporary folder, and unpickling a file such a folder holds runs whatever
+    it holds.  The tables are instead ``portfolio/syntax_tables.json``, package
+    data beside the code (as trusted as the code), written by
+    ``python -m portfolio.syntax --regenerate``: Lark's own serialized form of
+    the parser (``memo_serialize``, what its standalone generator embeds),
+    read back with ``Lark._load_from_dict``.  JSON, so reading it runs nothing
+    whatever it holds, and it reads in milliseconds with or without a bytecode
+    cache (the same literals as a Python module take longer to compile than
+    Lark takes to build the tables).  Lark's standalone generator was not
+    chosen: its module carries a copy of Lark's runtime whose ``Tree``,
+    ``Token`` and exceptions are other classes than those of ``lark``, which
+    the checker and this module use.  The lexer callbacks (keyword boundaries)
+    are functions, so they are not stored: they are given again on loading.
+    """
     text = grammar_text()
-    return Lark(text, parser="lalr", lexer="contextual", propagate_positions=True,
-                maybe_placeholders=False, lexer_callbacks=_keyword_terminals(text))
+    stored = _tables()
+    if not _fit(stored, text):
+        return build_parser(text)   # tests/test_syntax_tables.py fails until they are regenerated
+    return Lark._load_from_dict(stored["data"], stored["memo"], lexer_callbacks=_keyword_terminals(text))
+
+
+def tables_fit(text: str) -> bool:
+    """Whether the shipped tables were made from the grammar ``text``, the options and this Lark."""
+    return _fit(_tables(), text)
+
+
+def _fit(stored: dict, text: str) -> bool:
+    # Lark's serialized form changes between its releases (1.3 added an option
+    # 1.2 refuses), so tables made by another version are never read: the
+    # parser is built, as before the tables were shipped.
+    return stored.get("grammar_key") == grammar_key(text) and stored.get("lark_version") == lark.__version__
+
+
+def _int_keys(pairs):
+    # JSON keys are strings; Lark numbers its memo entries, states and tokens.
+    return {int(k) if k.isdigit() else k: v for k, v in pairs}
+
+
+def _tables() -> dict:
+    """The shipped tables ({} when the package has none)."""
+    try:
+        raw = resources.files("portfolio").joinpath(TABLES_FILE).read_bytes()
+    except (FileNotFoundError, OSError):
+        return {}
+    return json.loads(raw, object_pairs_hook=_int_keys)
+
+
+def tables_text(text: str) -> str:
+    """The content of ``portfolio/syntax_tables.json`` for the grammar ``text``.
+
+    Lark numbers terminals and states differently from one build to the next
+    (it orders some sets by object identity), so two regenerations need not
+    give the same text; tests/test_syntax_tables.py compares the tables with
+    a fresh build up to that numbering."""
+    built = build_parser(text)
+    data, memo = built.memo_serialize([TerminalDef, Rule])
+    data["options"] = {k: v for k, v in data["options"].items() if k != "lexer_callbacks"}
+    head = {"note": "Lark's LALR tables for grammar/portfolio.lark, written by "
+                    "python -m portfolio.syntax --regenerate; do not edit",
+            "grammar_key": grammar_key(text), "lark_version": lark.__version__}
+    fields = [f"{json.dumps(k)}: {json.dumps(v, separators=(',', ':'))}"
+              for k, v in [*head.items(), ("memo", memo), ("data", data)]]
+    return "{" + ",\n ".join(fields) + "}\n"
+
+
+def write_tables(path: Path) -> None:
+    """Write the tables file (atomically: a temporary file, then rename)."""
+    import tempfile   # only for regenerating
+
+    text = tables_text(grammar_text())
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".syntax_tables.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as out:
+            out.write(text)
+        os.chmod(tmp, 0o644)   # mkstemp makes it readable by its owner only
+        os.replace(tmp, path)
+    except BaseException:
+        os.unlink(tmp)
+        raise
 
 
 @lru_cache(maxsize=1)
@@ -399,3 +506,10 @@ def _report(err: UnexpectedInput, text: str, path: str, sink: Sink) -> None:
         sink.add(SyntaxProblem, span, f"unexpected character {shown}{what}")
         return
     sink.add(SyntaxProblem, Span.whole_file(path), f"cannot read the file: {err}")  # pragma: no cover
+
+
+if __name__ == "__main__":      # python -m portfolio.syntax --regenerate: after editing the grammar
+    if sys.argv[1:] != ["--regenerate"]:
+        sys.exit("usage: python -m portfolio.syntax --regenerate")
+    write_tables(Path(__file__).with_name(TABLES_FILE))
+    sys.exit(0)

@@ -18,7 +18,10 @@ import sysconfig
 import zipfile
 from pathlib import Path
 
+import lark
 import pytest
+
+from portfolio import syntax
 
 ROOT = Path(__file__).resolve().parents[1]
 SOURCES = ["pyproject.toml", "README.md", "portfolio", "grammar"]
@@ -61,6 +64,7 @@ def test_wheel_holds_the_data_files(unzipped):
     names = _names(wheel)
     assert "portfolio/grammar/portfolio.lark" in names
     assert "portfolio/units.txt" in names
+    assert "portfolio/syntax_tables.json" in names
     assert (out / "portfolio" / "grammar" / "portfolio.lark").read_text("utf-8") == \
         (ROOT / "grammar" / "portfolio.lark").read_text("utf-8")
 
@@ -87,6 +91,7 @@ import portfolio, portfolio.grammar, portfolio.syntax as s, portfolio.units as u
 from portfolio import cli
 s.parser(); u.registry()
 print(json.dumps({"files": [portfolio.__file__, portfolio.grammar.__file__, s.__file__],
+                  "tables": s.tables_fit(s.grammar_text()),
                   "lint": cli.main(["lint", "--quiet", "--format", "json", *sys.argv[1:]])}))
 """
 
@@ -113,6 +118,13 @@ def test_unzipped_package_is_the_one_imported(probe):
     assert len(info["files"]) == 3
     for f in info["files"]:
         assert out.resolve() in Path(f).resolve().parents, f"imported {f}, not the unzipped wheel"
+
+
+def test_unzipped_package_reads_its_parse_tables(probe):
+    """portfolio/syntax_tables.json is in the wheel and fits the grammar there: no build at
+    start-up (unless this Lark is not the one that made the tables: tests/test_syntax_tables.py)."""
+    _, _, info = probe
+    assert info["tables"] is (syntax._tables().get("lark_version") == lark.__version__)
 
 
 def test_unzipped_package_lints(probe):

@@ -16,7 +16,7 @@ from . import files
 from .check import check
 from .diagnostics import Diagnostic, PortfolioError, Sink, UnreadableFile
 from .facade import LoadedPortfolio
-from .graph import build_graph, check_topology
+from .graph import check_topology, network
 from .model import Portfolio
 from .spans import Span
 from .syntax import lines_of, parse
@@ -27,8 +27,13 @@ class LintResult:
     path: str
     diagnostics: List[Diagnostic] = field(default_factory=list)
     portfolio: Optional[Portfolio] = None
-    graph: object = None
+    network: object = None        # graph.Network: the network graph as data
     unreadable: bool = False
+
+    @property
+    def graph(self):
+        """The network graph as a :class:`networkx.MultiDiGraph` (made on request)."""
+        return None if self.network is None else self.network.to_networkx()
 
     @property
     def errors(self) -> List[Diagnostic]:
@@ -78,9 +83,9 @@ def _stages(text: str, path: str, base: Path, sink: Sink, result: LintResult,
     if tree is not None:
         p = check(tree, path, base, sink, confine=confine)
         if p is not None:
-            g = build_graph(p)
+            g = network(p)
             check_topology(p, g, sink)
-            result.graph = g
+            result.network = g
             if not sink.has_errors:
                 result.portfolio = p
 

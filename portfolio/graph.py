@@ -1,6 +1,10 @@
 """Stage 3: checked model -> network graph, and the topology checks.
 
-A :class:`networkx.MultiDiGraph` whose nodes are the portfolio's connections,
+:func:`network` builds the graph as plain data (:class:`Network`: nodes with
+attributes, keyed edges in the order made), so checking a file needs no
+graph library; :func:`build_graph` gives the same graph as a
+:class:`networkx.MultiDiGraph` (pictures, the API's ``.graph()``, cycle
+search).  The graph's nodes are the portfolio's connections,
 sites, storages, supplies (including a reservoir's natural supply) and demands,
 and whose edges are every path energy or water can take.  Edge keys name the
 path (``export``, ``import``, ``charge``, ``discharge``, ``feed``,
@@ -18,9 +22,9 @@ pictures ask it.
 from __future__ import annotations
 
 from collections import deque
-from typing import Optional
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Dict, Iterator, Optional, Tuple
 
-import networkx as nx
 import numpy as np
 
 from . import model as M
@@ -28,13 +32,60 @@ from .diagnostics import (EmptySite, NoPathToGrid, NowhereToGo, Sink, SupplyTarg
                           UnusedConnection, ZeroDelayCycle)
 from .topology import Topology
 
+if TYPE_CHECKING:
+    import networkx as nx
+
 
 def _open(limit: Optional[float]) -> bool:
     return limit is None or limit > 0
 
 
-def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
-    g = nx.MultiDiGraph(name=p.name)
+@dataclass
+class Network:
+    """The network graph as data: what networkx's ``MultiDiGraph`` would hold,
+    made by the same calls (``add_node`` merges attributes, ``add_edge`` adds a
+    missing end as a bare node and replaces an edge with the same key)."""
+
+    name: str
+    nodes: Dict[str, dict] = field(default_factory=dict)
+    edges: Dict[Tuple[str, str, str], dict] = field(default_factory=dict)
+
+    def add_node(self, n: str, **attrs) -> None:
+        self.nodes.setdefault(n, {}).update(attrs)
+
+    def add_edge(self, u: str, v: str, key: str, **attrs) -> None:
+        self.nodes.setdefault(u, {})
+        self.nodes.setdefault(v, {})
+        self.edges.setdefault((u, v, key), {}).update(attrs)
+
+    def has_edge(self, u: str, v: str, key: str) -> bool:
+        return (u, v, key) in self.edges
+
+    def edge_list(self) -> Iterator[Tuple[str, str, str, dict]]:
+        """(u, v, key, attributes) in the order the edges were made."""
+        for (u, v, key), a in self.edges.items():
+            yield u, v, key, a
+
+    def to_networkx(self) -> "nx.MultiDiGraph":
+        import networkx as nx
+
+        g = nx.MultiDiGraph(name=self.name)
+        g.add_nodes_from(self.nodes.items())
+        for u, v, key, a in self.edge_list():
+            g.add_edge(u, v, key=key, **a)
+        return g
+
+    def topology(self) -> Topology:
+        return Topology.from_parts(self.nodes.items(), self.edge_list())
+
+
+def build_graph(p: M.Portfolio) -> "nx.MultiDiGraph":
+    """The network graph as a :class:`networkx.MultiDiGraph`."""
+    return network(p).to_networkx()
+
+
+def network(p: M.Portfolio) -> Network:
+    g = Network(name=p.name)
     for c in p.connections.values():
         g.add_node(c.name, kind="connection", span=c.span, decl=c)
     for s in p.sites.values():
@@ -72,8 +123,8 @@ def build_graph(p: M.Portfolio) -> nx.MultiDiGraph:
     return g
 
 
-def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
-    topo = Topology.from_graph(g)
+def check_topology(p: M.Portfolio, g: Network, sink: Sink) -> None:
+    topo = g.topology()
     # Supplies sent into a storage at another site.
     for i in p.supplies.values():
         for t in topo.supply_targets(i.name):
@@ -84,12 +135,15 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
                          f"'{there}'", "note: a supply feeds its own site or storages there; use a route between storages")
     # Reachability: walk backwards once from every connection and demand (a battery
     # behind an import-only connection may still serve its site's demand).
+    pred: Dict[str, list] = {}
+    for u, v, _, _ in g.edge_list():
+        pred.setdefault(v, []).append(u)
     reach = set()
-    todo = deque(n for n, a in g.nodes(data=True) if a.get("kind") in ("connection", "demand"))
+    todo = deque(n for n, a in g.nodes.items() if a.get("kind") in ("connection", "demand"))
     reach.update(todo)
     while todo:
         n = todo.popleft()
-        for u in g.predecessors(n):
+        for u in pred.get(n, ()):
             if u not in reach:
                 reach.add(u)
                 todo.append(u)
@@ -98,14 +152,29 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
             sink.add(NoPathToGrid, k.span, f"storage '{k.name}' has no path to any connection or demand: "
                      "what it holds can never be used",
                      "note: give it a 'discharge max', a route to a storage that can discharge, or open its site's export")
-    for n, a in g.nodes(data=True):
+    for n, a in g.nodes.items():
         if a.get("kind") == "supply" and n not in reach:
             sink.add(NoPathToGrid, a["span"], f"supply '{n}' has no path to any connection or demand")
-    # Zero-delay route cycles.
+    _check_zero_delay_cycles(g, sink)
+    # Connections and sites with nothing to do.
+    for c in p.connections.values():
+        if not topo.sites_at(c.name):
+            sink.add(UnusedConnection, c.span, f"connection '{c.name}' has no site attached")
+    for s in p.sites.values():
+        if not topo.is_busy(s.name):
+            sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, supply or demand")
+    _check_nowhere_to_go(p, topo, sink)
+
+
+def _check_zero_delay_cycles(g: Network, sink: Sink) -> None:
+    zero_delay = [(u, v, a["route"]) for u, v, _, a in g.edge_list() if "route" in a and a["delay"] == 0]
+    if len(zero_delay) < 2:
+        return                   # a cycle through two or more stores needs two routes
+    import networkx as nx
+
     zero = nx.DiGraph()
-    for u, v, key, a in g.edges(keys=True, data=True):
-        if "route" in a and a["delay"] == 0:
-            zero.add_edge(u, v, route=a["route"])
+    for u, v, r in zero_delay:
+        zero.add_edge(u, v, route=r)
     for comp in nx.strongly_connected_components(zero):
         if len(comp) < 2:
             continue
@@ -116,14 +185,6 @@ def check_topology(p: M.Portfolio, g: nx.MultiDiGraph, sink: Sink) -> None:
         sink.add(ZeroDelayCycle, first.span, f"routes form a cycle with zero total delay: {path}",
                  *[f"note: route at {r.span}" for r in routes],
                  "note: give at least one route in the cycle a delay of a whole step or more")
-    # Connections and sites with nothing to do.
-    for c in p.connections.values():
-        if not topo.sites_at(c.name):
-            sink.add(UnusedConnection, c.span, f"connection '{c.name}' has no site attached")
-    for s in p.sites.values():
-        if not topo.is_busy(s.name):
-            sink.add(EmptySite, s.span, f"site '{s.name}' has no storage, supply or demand")
-    _check_nowhere_to_go(p, topo, sink)
 
 
 def _check_nowhere_to_go(p: M.Portfolio, topo: Topology, sink: Sink) -> None:

@@ -24,9 +24,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Dict, List, Mapping, Optional, Tuple
+from typing import TYPE_CHECKING, Dict, Iterable, List, Mapping, Optional, Tuple
 
-import networkx as nx
+if TYPE_CHECKING:
+    import networkx as nx
 
 Names = Tuple[str, ...]
 _EMPTY: Names = ()
@@ -64,10 +65,23 @@ class Topology:
     _natural: Mapping[str, str] = field(default_factory=dict, repr=False)
 
     @classmethod
-    def from_graph(cls, g: nx.MultiDiGraph) -> "Topology":
+    def from_graph(cls, g: "nx.MultiDiGraph") -> "Topology":
+        return cls.from_parts(g.nodes(data=True), g.edges(keys=True, data=True))
+
+    @classmethod
+    def from_parts(cls, node_items: Iterable[Tuple[str, dict]],
+                   edge_items: Iterable[Tuple[str, str, str, dict]]) -> "Topology":
+        """From the graph's nodes ``(name, attributes)`` and edges
+        ``(u, v, key, attributes)``, each in the order they were made."""
+        edges = list(edge_items)
+        out_of: Dict[str, List[Tuple[str, str]]] = {}
+        into_node: Dict[str, List[Tuple[str, str]]] = {}
+        for u, v, key, _ in edges:
+            out_of.setdefault(u, []).append((v, key))
+            into_node.setdefault(v, []).append((u, key))
         nodes = {kind: [] for kind in (CONNECTION, SITE, STORAGE, SUPPLY, DEMAND)}
         kind_of, site_of, conn_of, natural = {}, {}, {}, {}
-        for n, a in g.nodes(data=True):
+        for n, a in node_items:
             kind = a.get("kind")
             if kind is None:
                 continue          # a name a declaration refers to but nobody declared
@@ -92,7 +106,7 @@ class Topology:
         targets: Dict[str, List[str]] = {}
         to_site = set()
         for i in nodes[SUPPLY]:
-            for _, dest, key in g.out_edges(i, keys=True):
+            for dest, key in out_of.get(i, ()):
                 if key != FEED:
                     continue
                 if kind_of.get(dest) == STORAGE:
@@ -103,8 +117,8 @@ class Topology:
             for k in targets.get(i, ()):
                 if i not in into.get(k, ()):
                     into.setdefault(k, []).append(i)
-        route_edges = sorted(((a["order"], a["route"]) for *_, a in g.edges(keys=True, data=True)
-                              if "route" in a), key=lambda x: x[0])
+        route_edges = sorted(((a["order"], a["route"]) for *_, a in edges if "route" in a),
+                             key=lambda x: x[0])
         routes = tuple(r for _, r in route_edges)
         routes_in: Dict[str, List] = {}
         routes_out: Dict[str, List] = {}
@@ -112,7 +126,7 @@ class Topology:
             routes_in.setdefault(r.target, []).append(r)
             routes_out.setdefault(r.source, []).append(r)
         for k in nodes[STORAGE]:
-            for u, _, key in g.in_edges(k, keys=True):
+            for u, key in into_node.get(k, ()):
                 if key == NATURAL:
                     natural[k] = u
         return cls(

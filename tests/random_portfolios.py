@@ -653,9 +653,9 @@ def front_end_errors(p: Portfolio) -> List[str]:
 def topology_errors(p: Portfolio) -> List[str]:
     """Errors the front end's graph checks would report for ``p``."""
     from portfolio.diagnostics import Sink
-    from portfolio.graph import build_graph, check_topology
+    from portfolio.graph import check_topology, network
     sink = Sink()
-    check_topology(p, build_graph(p), sink)
+    check_topology(p, network(p), sink)
     return [f"{d.span}: {d.message}" for d in sink.errors]
 
 

@@ -22,7 +22,7 @@ from portfolio.api import load  # noqa: E402
 from portfolio.compile import build  # noqa: E402
 from portfolio.compile import expressions as E  # noqa: E402
 from portfolio.compile.context import Ctx  # noqa: E402
-from portfolio.graph import build_graph  # noqa: E402
+from portfolio.graph import build_graph, network  # noqa: E402
 from portfolio.schedule import build_tables  # noqa: E402
 from portfolio.topology import Topology  # noqa: E402
 
@@ -38,8 +38,23 @@ def _portfolios():
 
 
 @pytest.mark.parametrize("name,p", list(_portfolios()), ids=lambda x: x if isinstance(x, str) else "")
-def test_topology_answers_what_the_declarations_say(name, p):
-    topo = Topology.from_graph(build_graph(p))
+def test_the_graph_as_data_is_the_networkx_graph(name, p):
+    # lint reads the graph as data (no networkx import); pictures and the API
+    # get networkx's graph: the same nodes in order, the same keyed edges with
+    # their attributes, and each node's out-edges in the same order
+    net, g = network(p), build_graph(p)
+    assert list(net.nodes.items()) == list(g.nodes(data=True))
+    assert net.edges == {(u, v, k): a for u, v, k, a in g.edges(keys=True, data=True)}
+    for n in net.nodes:
+        assert [(v, k) for u, v, k, _ in net.edge_list() if u == n] == \
+            [(v, k) for _, v, k in g.out_edges(n, keys=True)]
+    assert net.topology() == Topology.from_graph(g)
+
+
+@pytest.mark.parametrize("name,p", list(_portfolios()), ids=lambda x: x if isinstance(x, str) else "")
+@pytest.mark.parametrize("read", ["data", "networkx"])
+def test_topology_answers_what_the_declarations_say(name, p, read):
+    topo = network(p).topology() if read == "data" else Topology.from_graph(build_graph(p))
     assert topo.storages == tuple(p.storages) and topo.sites == tuple(p.sites)
     assert topo.supplies == tuple(p.supplies) and topo.demands == tuple(p.demands)
     assert topo.routes == tuple(p.routes)
@@ -81,8 +96,8 @@ def test_a_graph_with_dangling_names_still_indexes():
     p = F.portfolio(2, storages=[F.storage("cell")],
                     supplies=[F.supply("pv", "sun", targets=("ghost", "cell"))],
                     series_list=[F.series("sun", [1.0, 2.0])])
-    g = build_graph(p)
-    topo = Topology.from_graph(g)
+    g = network(p)
+    topo = g.topology()
     assert topo.supply_targets("pv") == ("cell",) and topo.kind("ghost") is None
     check_topology(p, g, Sink())
 

@@ -47,7 +47,7 @@ from typing import Dict, Hashable, List, Optional, Tuple
 
 import numpy as np
 
-from ..graph import build_graph
+from ..graph import network
 from ..model import Portfolio
 from ..topology import Topology
 from . import expressions as E
@@ -191,7 +191,7 @@ def build(p: Portfolio, variant: str = "tight", relax: bool = False,
     ``topology``: the index of ``p``'s network graph, when the caller has it."""
     t0 = time.perf_counter()
     with _gc_paused():
-        topo = topology if topology is not None else Topology.from_graph(build_graph(p))
+        topo = topology if topology is not None else network(p).topology()
         ctx = Ctx(p, variant=variant, relax=relax, topology=topo)
         _variables(ctx)
         for module in FAMILIES:

@@ -29,7 +29,7 @@ from typing import Dict, Hashable, List, Optional, Sequence, Tuple
 
 import numpy as np
 
-from ..graph import build_graph
+from ..graph import network
 from ..model import Portfolio
 from ..spans import Span
 from ..topology import Topology
@@ -97,7 +97,7 @@ class Ctx:
             raise ValueError(f"unknown formulation variant {variant!r} (use 'tight' or 'plain')")
         self.p = p
         # who is where, what flows into what: read from the network graph, nowhere else
-        self.topo = topology if topology is not None else Topology.from_graph(build_graph(p))
+        self.topo = topology if topology is not None else network(p).topology()
         self.variant = variant
         self.relax = relax
         self.T = int(p.horizon.steps)

@@ -47,6 +47,7 @@ class Relaxed:
     seconds: float
     soc: Dict[str, np.ndarray] = field(default_factory=dict)
     value: Dict[str, np.ndarray] = field(default_factory=dict)
+    start_value: Dict[str, float] = field(default_factory=dict)   # one more MWh at the start: a * y[0]
 
     @property
     def solved(self) -> bool:
@@ -94,6 +95,7 @@ def relax(built, options: Optional[SolveOptions] = None, seconds: Optional[float
         val = np.zeros(T)
         val[:-1] = a * yk[1:]
         out.value[k] = val          # the last step's is zero: the horizon's end has no future
+        out.start_value[k] = float(a * yk[0]) if T else 0.0
     out.seconds = time.perf_counter() - t0
     return out
 

@@ -67,6 +67,9 @@ def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
         last = start + length == T
         task = _task(p, full, values, relaxed, spec, options, number, start, commit, length, last)
         out = runner(task)
+        if not out.solved and outcomes:
+            out = _repaired(p, full, x, values, relaxed, options, pieces, number, runner, outcomes,
+                            out, spec, last)
         outcomes.append(out)
         if not out.solved:
             status = out.status if out.status in (INFEASIBLE, ERROR) else ERROR
@@ -88,6 +91,25 @@ def _task(p, full, values, relaxed, spec, options, number, start, commit, length
     if end == END_TARGET:
         fallback = window_model(p, full, values, start, length, "value", relaxed)
     return WindowTask(number, start, commit, model, options, end, fallback)
+
+
+def _repaired(p, full, x, values, relaxed, options, pieces, number, runner, outcomes, failed,
+              spec, last) -> WindowOutcome:
+    """A window that cannot be scheduled from what the one before left (an end rule out of
+    reach, a carried-in run that cannot go on): solve the one before again, seeing only its
+    commit and ending at least at the LP's state of charge there, then this one again."""
+    pstart, pcommit, _ = pieces[number - 2]
+    model = window_model(p, full, values, pstart, pcommit, END_TARGET, relaxed)
+    again = runner(WindowTask(number - 1, pstart, pcommit, model, options, "repair"))
+    if not again.solved:
+        return failed
+    again.message = (f"solved again, ending at the LP's state of charge, because window {number} "
+                     f"gave {failed.status} after it")
+    outcomes[-1] = again
+    _place(full, x, again, pstart)
+    start, commit, length = pieces[number - 1]
+    out = runner(_task(p, full, values, relaxed, spec, options, number, start, commit, length, last))
+    return out if out.solved else failed
 
 
 def _place(full, x: np.ndarray, out: WindowOutcome, start: int) -> None:

@@ -71,7 +71,8 @@ def test_stitched_is_below_the_optimum_which_is_below_the_bound(family, seed, en
     assert r.best_bound == w["lp_bound"] and r.objective == w["stitched_objective"]
     assert w["gap"] == pytest.approx((w["lp_bound"] - r.objective) / max(abs(r.objective), 1.0))
     out = _audited(p, r, tmp_path)
-    assert (out / "windows.csv").read_text().count("\n") == w["count"] + 1
+    assert (out / "windows.csv").read_text().count("\n") == len(w["windows"]) + 1
+    assert sum(x["commit_steps"] for x in w["windows"]) == T
     assert json.loads((out / "summary.json").read_text())["windows"]["count"] == w["count"]
 
 
@@ -234,3 +235,22 @@ def test_the_cli_dispatches_by_windows(tmp_path, capsys):
     w = summary["windows"]
     assert w["commit_h"] == 12 and w["overlap_h"] == 6 and w["max_violation"] <= 1e-6
     assert summary["objective"] == pytest.approx(w["stitched_objective"])
+
+
+def test_ctrl_c_between_or_inside_windows_stops_cleanly(tmp_path):
+    """As tests/test_interrupts.py does for a single dispatch: SIGINT to a running
+    ``portfolio dispatch --windows`` gives 130, one line, no traceback, and leaves the
+    previous output folder as it was (nothing half-written beside it)."""
+    import test_interrupts as TI
+
+    demo = DEMO
+    out = tmp_path / "out"
+    assert main(["dispatch", str(demo), "--out", str(out), "--quiet"]) == 0
+    before = {q.name: q.read_bytes() for q in out.iterdir()}
+    src = TI._month_of_quarter_hours(tmp_path)
+    code, _, err, _took = TI._interrupt(
+        [TI._command(), "dispatch", str(src), "--out", str(out), "--windows", "1d/1d"], 6.0)
+    assert code == 130, (code, err)
+    assert "Traceback" not in err and "interrupted" in err
+    assert {q.name: q.read_bytes() for q in out.iterdir()} == before
+    assert sorted(q.name for q in tmp_path.iterdir() if q.name.startswith(".out")) == []

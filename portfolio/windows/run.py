@@ -63,24 +63,27 @@ def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
     x = np.zeros(full.matrix.num_col)
     values = values_by_family(full, x)     # views into x: the committed schedule so far
     outcomes: List[WindowOutcome] = []
-    for number, (start, commit, length) in enumerate(pieces, 1):
+    for i, (start, commit, length) in enumerate(pieces):
         last = start + length == T
-        task = _task(p, full, values, relaxed, spec, options, number, start, commit, length, last)
-        out = runner(task)
+        out = runner(_task(p, full, values, relaxed, spec, options, i + 1, start, commit, length, last))
         if not out.solved and outcomes:
-            out = _repaired(p, full, x, values, relaxed, options, pieces, number, runner, outcomes,
-                            out, spec, last)
+            merged = _merged(p, full, values, relaxed, spec, options, pieces, i, runner)
+            if merged is not None:
+                outcomes[:] = [o for o in outcomes if o.start < merged.start]
+                if outcomes:      # an earlier merged window may reach past this one's start
+                    outcomes[-1].commit = min(outcomes[-1].commit, merged.start - outcomes[-1].start)
+                out = merged
         outcomes.append(out)
         if not out.solved:
             status = out.status if out.status in (INFEASIBLE, ERROR) else ERROR
             when = p.horizon.index[start].isoformat()
             return _failed(p, full, options, status,
-                           f"window {number} of {len(pieces)} (from {when}) gave {out.status}"
+                           f"window {i + 1} of {len(pieces)} (from {when}) gave {out.status}"
                            + (f": {out.message}" if out.message else ""), head, outcomes, t0)
-        _place(full, x, out, start)
+        _place(full, x, out, out.start)
         if progress is not None:
-            progress(number, len(pieces), time.perf_counter() - t0,
-                     objective(full.matrix, x) if last else None)
+            progress(i + 1, len(pieces), time.perf_counter() - t0,
+                     objective(full.matrix, x) if i + 1 == len(pieces) else None)
     return _stitched(p, full, x, options, head, outcomes, t0)
 
 
@@ -93,23 +96,29 @@ def _task(p, full, values, relaxed, spec, options, number, start, commit, length
     return WindowTask(number, start, commit, model, options, end, fallback)
 
 
-def _repaired(p, full, x, values, relaxed, options, pieces, number, runner, outcomes, failed,
-              spec, last) -> WindowOutcome:
-    """A window that cannot be scheduled from what the one before left (an end rule out of
-    reach, a carried-in run that cannot go on): solve the one before again, seeing only its
-    commit and ending at least at the LP's state of charge there, then this one again."""
-    pstart, pcommit, _ = pieces[number - 2]
-    model = window_model(p, full, values, pstart, pcommit, END_TARGET, relaxed)
-    again = runner(WindowTask(number - 1, pstart, pcommit, model, options, "repair"))
-    if not again.solved:
-        return failed
-    again.message = (f"solved again, ending at the LP's state of charge, because window {number} "
-                     f"gave {failed.status} after it")
-    outcomes[-1] = again
-    _place(full, x, again, pstart)
-    start, commit, length = pieces[number - 1]
-    out = runner(_task(p, full, values, relaxed, spec, options, number, start, commit, length, last))
-    return out if out.solved else failed
+MAX_BACK = 3      # windows a failed window may be merged back with
+
+
+def _merged(p, full, values, relaxed, spec, options, pieces, i, runner) -> Optional[WindowOutcome]:
+    """Window ``i`` cannot follow what the windows before it left (an end rule out of reach,
+    a carried-in run that cannot go on): solve it together with the one before it, then
+    the two before, ... (at most :data:`MAX_BACK`), as one window from the earlier start
+    state; None when none of these can be scheduled either."""
+    T = p.horizon.steps
+    start, commit, length = pieces[i]
+    for back in range(1, min(MAX_BACK, i) + 1):
+        j = i - back
+        first = pieces[j][0]
+        span = min(T - first, start - first + length)
+        last = first + span == T
+        task = _task(p, full, values, relaxed, spec, options, j + 1, first, start + commit - first,
+                     span, last)
+        out = runner(task)
+        if out.solved:
+            out.message = (f"windows {j + 1} to {i + 1} solved as one: window {i + 1} could not "
+                           f"follow the schedule committed before it")
+            return out
+    return None
 
 
 def _place(full, x: np.ndarray, out: WindowOutcome, start: int) -> None:

@@ -39,8 +39,9 @@ def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
                      runner: Callable[[WindowTask], WindowOutcome] = solve_window) -> DispatchResult:
     """Schedule ``p`` window by window (raises :class:`~.spec.WindowsError` for a bad ``spec``).
 
-    ``options.time_limit`` applies to the whole-horizon LP and to each window
-    on its own; ``options.mip_gap`` to each window.  ``runner`` solves one
+    ``options.time_limit`` applies to each window on its own (the
+    whole-horizon LP runs to its end: the bound and the end values need
+    it); ``options.mip_gap`` to each window.  ``runner`` solves one
     task (the default in this process; any callable taking the same plain
     data will do).
     """
@@ -50,7 +51,7 @@ def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
     pieces = plan(spec, T, dt)
     t0 = time.perf_counter()
     full = build(p, variant=options.variant)
-    relaxed = relax(full, options, options.time_limit)
+    relaxed = relax(full, options, None)      # the bound and the end values need it whole
     head = {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": spec.end,
             "count": len(pieces), "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
     if not relaxed.solved:

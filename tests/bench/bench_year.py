@@ -1,7 +1,8 @@
 """Benchmark: a year by windows against the monolith (not collected by pytest).
 
     python tests/bench/bench_year.py [--storages 10] [--hours 8760] [--windows 1d/1d]
-                                     [--end value] [--monolith-limit 0]
+                                     [--end value] [--gap 1e-4] [--window-limit S]
+                                     [--monolith-limit 0]
 
 The fleet of tests/bench/bench_time_limit.py: batteries on three sites over
 an hourly year, exclusive modes, minimum output when running and a 2 h
@@ -39,6 +40,7 @@ def main():
     ap.add_argument("--windows", default="1d/1d")
     ap.add_argument("--end", default="value", choices=("value", "target"))
     ap.add_argument("--gap", type=float, default=1e-4, help="each window's MIP gap")
+    ap.add_argument("--window-limit", type=float, default=None, help="seconds per window (and LP)")
     ap.add_argument("--monolith-limit", type=float, default=0.0, help="seconds; 0: no monolith")
     args = ap.parse_args()
     p = portfolio(args.storages, args.hours)
@@ -49,7 +51,7 @@ def main():
             print(f"  window {done}/{total} at {seconds:.0f} s", file=sys.stderr, flush=True)
 
     t0 = time.perf_counter()
-    r = dispatch_windows(p, spec, SolveOptions(mip_gap=args.gap), progress=progress)
+    r = dispatch_windows(p, spec, SolveOptions(mip_gap=args.gap, time_limit=args.window_limit), progress=progress)
     wall = time.perf_counter() - t0
     w = r.summary["windows"]
     print(f"{args.storages} storages x {args.hours} h, windows {args.windows} ({args.end})")

@@ -12,6 +12,7 @@ window.
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from typing import Callable, List, Optional
 
 import numpy as np
@@ -51,7 +52,7 @@ def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
     pieces = plan(spec, T, dt)
     t0 = time.perf_counter()
     full = build(p, variant=options.variant)
-    relaxed = relax(full, options, None)      # the bound and the end values need it whole
+    relaxed = relax(full, replace(options, time_limit=None))   # the bound and end values need it whole
     head = {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": spec.end,
             "count": len(pieces), "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
     if not relaxed.solved:

@@ -77,6 +77,13 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--threads", type=_threads, metavar="N", help="solver threads (default: HiGHS's choice)")
     d.add_argument("--no-warm-start", action="store_true",
                    help="skip the first schedule from the LP relaxation before the search")
+    d.add_argument("--windows", nargs="?", const="", metavar="COMMIT[/OVERLAP]",
+                   help="dispatch window by window, each committing COMMIT and seeing OVERLAP more "
+                        "(default 1d/1d; durations such as 24h, 1d, 90min), with the whole horizon's "
+                        "LP bound; see docs/windows.md")
+    d.add_argument("--window-end", choices=("value", "target"), default="value",
+                   help="how a window that is not the last treats its end: value what is left at the "
+                        "LP's marginal value (default) or reach the LP's state of charge")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
     d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
@@ -198,6 +205,16 @@ def cmd_dispatch(args, out, err) -> int:
     r, code = _lint_first(args.file, err, "nothing was dispatched or written", args.confine)
     if code is not None:
         return code
+    spec = None
+    if args.windows is not None:
+        from .windows import WindowsError, parse, plan
+        try:
+            spec = parse(args.windows, args.window_end)
+            hz = r.portfolio.horizon
+            plan(spec, hz.steps, hz.step_hours)
+        except WindowsError as e:
+            print(printable(f"portfolio: error: {e}; nothing was dispatched or written"), file=err)
+            return EXIT_USAGE
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
     if problem is None and args.parquet:
@@ -225,7 +242,11 @@ def cmd_dispatch(args, out, err) -> int:
     options = SolveOptions(**kw)
     progress = Progress(err, quiet=args.quiet)
     try:
-        result = dispatch(r.portfolio, options, progress=progress)
+        if spec is None:
+            result = dispatch(r.portfolio, options, progress=progress)
+        else:
+            from .windows import dispatch_windows
+            result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows)
     finally:
         progress.close()
     status = result.status
@@ -240,6 +261,8 @@ def cmd_dispatch(args, out, err) -> int:
             print(printable(f"portfolio: error: cannot write '{out_dir}': {e}"), file=err)
             return EXIT_USAGE
         print_result(result, out)
+        if spec is not None:
+            _print_windows(result, out)
         if not args.quiet:
             from .contract import CAUTION   # one wording for the terminal and summary.json
             print_assets(result, out)
@@ -255,6 +278,15 @@ def cmd_dispatch(args, out, err) -> int:
         explain_failure(result, err)
         print(printable(written), file=err)
     return exit_code(status)
+
+
+def _print_windows(result, out) -> None:
+    w = result.summary["windows"]
+    gap = "unknown" if w["gap"] is None else f"{100 * w['gap']:.3g} %"
+    bound = "none" if w["lp_bound"] is None else f"{w['lp_bound']:,.2f}"
+    print(printable(f"windows: {w['count']} of {w['commit_h']:g} h (+{w['overlap_h']:g} h seen), "
+                    f"{w['end']} at their ends; LP bound {bound}, gap {gap}; per window: windows.csv"),
+          file=out)
 
 
 def _output_problem(out_dir: Path, source: Path) -> Optional[str]:

@@ -125,6 +125,16 @@ class Progress:
                 self.status = Console(file=self.err).status(self.text)
                 self.status.start()
 
+    def windows(self, done, total, elapsed, objective=None):
+        """After each window of a dispatch by windows (portfolio.windows)."""
+        if self.quiet:
+            return
+        text = f"window {done}/{total}  {elapsed:.0f} s"
+        with self.lock:
+            self.text = text
+            if self.status is not None:
+                self.status.update(text)
+
     def __call__(self, elapsed, objective=None, bound=None, gap=None):
         if self.quiet:
             return

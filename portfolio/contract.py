@@ -74,6 +74,18 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("flow_mw", "MW", "leaving the source: source's stored MWh per step / step hours"),
         Column("arriving_mw", "MW", "reaching the target after the delay, factor and efficiency applied"),
     ),
+    # dispatch by windows only: one row per window, indexed by its first step (windows.csv)
+    "windows": (
+        Column("window", "-", "the window's number, from 1"),
+        Column("steps", "-", "steps the window sees (commit and overlap, clipped at the horizon's end)"),
+        Column("commit_steps", "-", "steps of it kept in the stitched schedule"),
+        Column("end", "-", "how its end was treated: value, target, or horizon (the last window)"),
+        Column("status", "-", "the window's certified status"),
+        Column("objective", "money", "the window's own objective, the value of what it leaves in store included"),
+        Column("bound", "money", "the window's certified bound"),
+        Column("gap", "-", "the window's relative gap"),
+        Column("seconds", "s", "time to build and solve it"),
+    ),
 }
 
 COLUMNS: Dict[str, list] = {kind: [c.name for c in cols] for kind, cols in TABLES.items()}
@@ -87,7 +99,11 @@ SUMMARY_KEYS = (
     "start", "zone", "portfolio", "variant", "warm_start", "solver_status", "model", "caution",
     "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
 )
-OPTIONAL_SUMMARY_KEYS = ("message",)          # present only when there is something to say
+OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
+                         "windows")          # dispatch by windows only (docs/windows.md)
+WINDOW_KEYS = ("commit_h", "overlap_h", "end", "count", "lp_bound", "lp_seconds", "stitched_objective",
+               "gap", "max_violation", "worst", "seconds", "windows")
+WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>
 
 # summary section -> the table kind of its assets
 ASSET_GROUPS: Mapping[str, str] = {

@@ -81,6 +81,7 @@ class DispatchResult:
     handoff_seconds: float = 0.0
     portfolio: Optional[Portfolio] = field(default=None, repr=False)
     built: Optional[Built] = field(default=None, repr=False)
+    windows: Optional[pd.DataFrame] = None     # dispatch by windows: the per-window table
 
     @property
     def has_schedule(self) -> bool:
@@ -181,7 +182,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     if status == INFEASIBLE_OR_UNBOUNDED:
         status = INFEASIBLE
 
-    return _result(p, built, sol, status, options, relaxed, message, notes, explain_s)
+    return make_result(p, built, sol, status, options, relaxed, message, notes, explain_s)
 
 
 def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
@@ -214,11 +215,11 @@ def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
     elif status == INFEASIBLE:
         notes.append("infeasible is HiGHS's claim for the changed model: a model changed in Pyomo "
                      "is not re-solved with slacks to name the limits that gave")
-    return _result(built.portfolio, built, sol, status, options, [], message, notes, 0.0,
+    return make_result(built.portfolio, built, sol, status, options, [], message, notes, 0.0,
                    changed=True)
 
 
-def _result(p: Portfolio, built: Built, sol, status: str, options: SolveOptions,
+def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOptions,
             relaxed: List[Relaxation], message: str, notes: List[str], explain_s: float,
             changed: bool = False) -> DispatchResult:
     """The tables, the summary and the :class:`DispatchResult` of a solve."""

@@ -45,12 +45,24 @@ class LoadedPortfolio:
     def name(self) -> str:
         return self.model.name
 
-    def dispatch(self, options=None, progress=None, **settings):
+    def dispatch(self, options=None, progress=None, windows=None, **settings):
         """Schedule the portfolio; see :func:`portfolio.dispatch.dispatch`.
 
         ``settings`` build the options when none are given:
         ``p.dispatch(time_limit=60, mip_gap=1e-3)``.
+
+        ``windows``: dispatch window by window (docs/windows.md): a
+        :class:`portfolio.windows.Windows`, its text (``"1d"``, ``"24h/12h"``)
+        or True for the defaults (commit a day, see a day more).  Then
+        ``progress`` is called as ``progress(done, total, seconds, objective)``
+        after each window, ``time_limit`` applies to each window, and a bad
+        setting raises :class:`portfolio.windows.WindowsError` (a coded message).
         """
+        if windows is not None and windows is not False:
+            from .windows import Windows, dispatch_windows, parse
+            spec = windows if isinstance(windows, Windows) else (
+                Windows() if windows is True else parse(str(windows)))
+            return dispatch_windows(self.model, spec, _options(options, settings), progress=progress)
         from .dispatch import dispatch
         return dispatch(self.model, _options(options, settings), progress=progress)
 

@@ -170,6 +170,10 @@ class Storage(Decl):
     prior_mode: Optional[str] = None     # PRIOR_IDLE, PRIOR_CHARGE or PRIOR_DISCHARGE
     prior_h: Optional[float] = None      # hours in that state before step 0; None: longer than any rule
     prior_net_mw: float = 0.0            # net output just before step 0, MW: discharge +, charge -, idle 0
+    # Hooks for one window of a longer horizon (portfolio.windows); never set from a file.
+    arriving: tuple = ()                 # ((route name, (MWh arriving in step 0, 1, ...)), ...): water
+    #                                      already on its way, fixed; replaces that route's in_transit
+    stored_value: float = 0.0            # money per MWh left in store at the end (an objective term)
 
     def __post_init__(self) -> None:
         if not self.exclusive and rules_make_exclusive(self.charge_min, self.discharge_min,

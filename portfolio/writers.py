@@ -40,7 +40,7 @@ from typing import Iterable, List
 import numpy as np
 import pandas as pd
 
-from .contract import FORMATS, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE, table_file
+from .contract import FORMATS, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE, WINDOWS_TABLE, table_file
 
 
 class OutputFolderError(Exception):
@@ -85,12 +85,22 @@ def planned_files(result, formats: Iterable[str]) -> List[str]:
     for fmt in formats:
         if result.schedule is not None:
             names += [table_file(n, fmt) for n in tables] + [table_file(WIDE, fmt)]
+            names += [table_file(n, fmt) for n, _ in _extra(result)]
     names.append(SUMMARY_FILE)
     return names
 
 
+def _extra(result) -> list:
+    """Tables beside the assets' (dispatch by windows: the per-window table)."""
+    windows = getattr(result, "windows", None)
+    return [(WINDOWS_TABLE, windows)] if windows is not None else []
+
+
 def _check_names(result) -> None:
     for name in (result.tables or {}):
+        if name in dict(_extra(result)):
+            raise OutputFolderError(f'an asset is named "{name}", which clashes with the per-window '
+                                    f"table {name}.csv; rename the asset")
         if name in RESERVED_NAMES:
             raise OutputFolderError(
                 f'an asset is named "{name}", which clashes with the output file {name}.csv/.json; '
@@ -153,7 +163,7 @@ def _write_all(result, folder: Path, formats) -> List[str]:
     if result.schedule is not None:
         for fmt in formats:
             writer = _write_csv if fmt == "csv" else _write_parquet
-            for name, df in [*result.tables.items(), (WIDE, result.schedule)]:
+            for name, df in [*result.tables.items(), (WIDE, result.schedule), *_extra(result)]:
                 writer(df, folder / table_file(name, fmt))
                 written.append(table_file(name, fmt))
     text = json.dumps(_jsonable(result.summary), indent=2, allow_nan=False)

@@ -4,7 +4,9 @@
               - sum_t dt * sum_k wear[k] * d[k,t]
 
 sell/buy are the connections' price expressions (money per MWh); wear is
-money per MWh discharged (grid side).  In relax mode the objective is
+money per MWh discharged (grid side).  A window of a longer horizon
+(:mod:`portfolio.windows`) adds ``+ stored_value[k] * soc[k,T-1]`` (money per
+MWh left in store at its end, ``Storage.stored_value``; zero otherwise).  In relax mode the objective is
 instead the total slack (minimised), see :mod:`portfolio.compile.context`.
 """
 
@@ -26,4 +28,6 @@ def build(ctx: Ctx) -> None:
     for k, s in p.storages.items():
         if s.wear and ctx.has("discharge", k):
             terms += [(-dt * s.wear, ctx.v("discharge", k, t)) for t in ctx.steps]
+        if s.stored_value and ctx.T:
+            terms.append((s.stored_value, ctx.v("soc", k, ctx.T - 1)))
     ctx.objective(terms)

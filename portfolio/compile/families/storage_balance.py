@@ -14,7 +14,11 @@ q = spill, n = natural supply (MW, the storage's supply series):
                                               (family ``end_rule``)
 
 routes_in / transfers_out are the routes' in[r,t] and out[r,t] (:mod:`.routes`, MWh
-per step, from :mod:`portfolio.compile.expressions`).  Natural
+per step, from :mod:`portfolio.compile.expressions`).  A window of a longer
+horizon (:mod:`portfolio.windows`) carries in what was released before it
+and arrives inside it as fixed MWh per step (``Storage.arriving``, per
+route): a constant on the right-hand side of those steps, whose row then
+points at the route's span.  Natural
 supply cannot be curtailed: a full store must spill it (infeasible when spill
 is not allowed, which the relaxation then reports).
 """
@@ -37,6 +41,18 @@ def _routes_in(ctx: Ctx, routes, t: int):
     return terms, const
 
 
+def _carried_in(k: str, s, into) -> list:
+    """(route, MWh per step) of the water carried into a window (``Storage.arriving``)."""
+    by_name = {r.name: r for r in into}
+    out = []
+    for name, mwh in s.arriving:
+        r = by_name.get(name)
+        if r is None:
+            raise ValueError(f'storage "{k}": water arriving along "{name}", which is no route into it')
+        out.append((r, tuple(float(x) for x in mwh)))
+    return out
+
+
 def build(ctx: Ctx) -> None:
     p = ctx.p
     dt = ctx.dt
@@ -46,6 +62,7 @@ def build(ctx: Ctx) -> None:
         a = (1.0 - s.loss_per_h) ** dt
         natural = p.profile(s.supply) if s.supply is not None else None
         o = Origin(s.span, f'energy balance of storage "{k}"')
+        carried = _carried_in(k, s, into)
         for t in ctx.steps:
             terms = [(1.0, ctx.v(E.SOC, k, t))]
             const = 0.0
@@ -62,9 +79,14 @@ def build(ctx: Ctx) -> None:
             rin, rconst = _routes_in(ctx, into, t)
             terms += [(-c, v) for c, v in rin]
             const += rconst
+            row_origin = o
+            for r, mwh in carried:
+                if t < len(mwh):
+                    const += mwh[t]
+                    row_origin = Origin(r.span, f'water in transit on route "{r.name}" into storage "{k}"')
             terms += [term for r in transfers for term in E.route_out_terms(ctx, r, t)]
             # soc - (supplies) = const  ->  rhs = const
-            ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=o,
+            ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=row_origin,
                     relaxable=False)
         smax = s.soc_max
         omax = Origin(s.where("soc_max") if "soc_max" in s.spans else s.where("energy"),

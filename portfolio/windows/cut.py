@@ -1,0 +1,129 @@
+"""One window's portfolio, made from the checked model and the schedule committed so far.
+
+:func:`window_model` slices the horizon and every series, and carries in,
+per storage, what the committed schedule did before the window:
+
+* ``soc_start``: its state of charge at the end of the step before;
+* ``prior_mode`` / ``prior_h`` / ``prior_net_mw`` (the language's ``was ...
+  for ... at ...``): the mode it was in, for how long (joined to the
+  portfolio's own carried-in state when the run or rest began before the
+  horizon) and its net output, for minimum run and rest and for the ramp;
+* ``arriving``: water released before the window on a delayed route that
+  arrives inside it (the route's own ``in_transit`` is then zero);
+* its end: the last window keeps the portfolio's end rule; any other ends
+  free, with what is left valued at the whole-horizon LP's marginal value
+  (``stored_value``) or, in target mode, at least the LP's state of charge.
+
+Everything is read from the FULL compiled portfolio's columns (the committed
+vector), so the window's carried-in state is exactly what the full model's
+rows will see when the stitched schedule is checked.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import Dict, Optional
+
+import numpy as np
+import pandas as pd
+
+from ..compile import expressions as E
+from ..model import (END_AT_LEAST, END_FREE, PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, Portfolio,
+                     Storage)
+from .spec import END_TARGET
+
+TOL = 1e-6     # MW: a flow below this is no flow (as schedule.MODE_TOL)
+_CODE = {0: PRIOR_IDLE, 1: PRIOR_CHARGE, 2: PRIOR_DISCHARGE}
+
+
+def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, length: int,
+                 end: str, relaxed) -> Portfolio:
+    """The portfolio of the window ``start .. start + length - 1``.
+
+    ``full``: the compiled whole portfolio; ``values``: its committed vector
+    by variable family (steps before ``start`` are the committed schedule);
+    ``end``: ``spec.END_VALUE`` or ``spec.END_TARGET``; ``relaxed``: the
+    whole-horizon LP (:class:`~.bound.Relaxed`).
+    """
+    h = p.horizon
+    T = h.steps
+    stop = start + length
+    begin = (pd.Timestamp(h.start).tz_convert("UTC")
+             + pd.Timedelta(hours=start * h.step_hours)).tz_convert(h.zone)
+    series = {n: replace(s, values=np.asarray(s.values)[start:stop]) for n, s in p.series.items()}
+    acc = E.Values(full, values)
+    arriving = _arriving(p, full, acc, start, length) if start > 0 else {}
+    storages = {}
+    for k, s in p.storages.items():
+        kw: dict = {}
+        if start > 0:
+            kw["soc_start"] = float(acc(E.SOC, k)[start - 1])
+            kw.update(_prior(full, acc, k, s, start))
+            kw["arriving"] = tuple(arriving.get(k, ()))
+        if stop < T:
+            kw["end_rule"], kw["end_value"] = END_FREE, 0.0
+            if end == END_TARGET:
+                target = float(relaxed.soc[k][stop - 1])
+                kw["end_rule"] = END_AT_LEAST
+                kw["end_value"] = min(max(target, s.soc_min), s.soc_max)
+            else:
+                kw["stored_value"] = float(relaxed.value[k][stop - 1])
+        storages[k] = replace(s, **kw)
+    routes = p.routes if start == 0 else tuple(replace(r, in_transit=0.0) for r in p.routes)
+    return replace(p, horizon=replace(h, start=begin, steps=length), series=series,
+                   storages=storages, routes=routes)
+
+
+def _arriving(p: Portfolio, full, acc, start: int, length: int) -> Dict[str, list]:
+    """Per target storage: (route, MWh per step) released before ``start`` that arrives
+    at or after it (as :func:`portfolio.compile.expressions.route_arriving_terms`)."""
+    out: Dict[str, list] = {}
+    dt = full.step_hours
+    for r in full.topology.routes:
+        D = int(r.delay_steps)
+        if D <= 0:
+            continue
+        flow = acc.route_flow(p, r)
+        mwh = []
+        for t in range(min(D, length)):
+            src = start + t - D
+            mwh.append(E.route_gain(r) * float(flow[src]) * dt if src >= 0 else r.in_transit / D)
+        out.setdefault(r.target, []).append((r.name, tuple(mwh)))
+    return out
+
+
+def _states(full, acc, k: str) -> Optional[np.ndarray]:
+    """Per step 0 idle, 1 charge, 2 discharge, from the mode binaries (None: the store has
+    no run or rest binaries, so its mode is read from its flows)."""
+    bins = full.expr.get("mode_bins", {}).get(k)
+    if not bins or "one" in bins:
+        return None
+    state = np.zeros(full.steps, dtype=np.int8)
+    if bins.get("charge"):
+        state[np.round(acc(bins["charge"], k)) >= 1] = 1
+    if bins.get("discharge"):
+        state[np.round(acc(bins["discharge"], k)) >= 1] = 2
+    return state
+
+
+def _prior(full, acc, k: str, s: Storage, start: int) -> dict:
+    """``prior_mode``, ``prior_h``, ``prior_net_mw`` at ``start`` from the committed schedule."""
+    d = acc(E.DISCHARGE, k)
+    c = acc.of(E.total_charge(full.topology, k))
+    net = float(d[start - 1] - c[start - 1])
+    state = _states(full, acc, k)
+    if state is None:
+        if s.ramp_mw_per_h is None:
+            return {}
+        mode = PRIOR_DISCHARGE if net > TOL else PRIOR_CHARGE if net < -TOL else PRIOR_IDLE
+        return {"prior_mode": mode, "prior_h": None, "prior_net_mw": net}
+    now = int(state[start - 1])
+    other = np.nonzero(state[:start] != now)[0]
+    steps = start - 1 - int(other[-1]) if other.size else start
+    hours: Optional[float] = steps * full.step_hours
+    if not other.size:                # the same state since the horizon began: join what came before
+        before = s.prior_mode or PRIOR_IDLE
+        if before == _CODE[now]:
+            hours = None if s.prior_h is None else s.prior_h + hours
+        # an undeclared state is idle and rested: a run since step 0 began at step 0
+    return {"prior_mode": _CODE[now], "prior_h": hours, "prior_net_mw": net}

@@ -1,0 +1,80 @@
+"""One window as a task: plain data in, plain data out (picklable, no shared state).
+
+:func:`solve_window` compiles the window's own portfolio, solves it through
+the ordinary certified path (:func:`portfolio.solve.solve`) and returns the
+first ``commit`` steps of every variable family, so a process pool or a
+cluster can run it as well as this process.  In target mode a window whose
+end target cannot be met is solved again with its end valued instead
+(``fallback``), and says so.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field, replace
+from typing import Dict, Hashable, Optional
+
+import numpy as np
+
+from ..compile import build
+from ..model import Portfolio
+from ..solve import FEASIBLE, OPTIMAL, SolveOptions, solve
+
+
+@dataclass
+class WindowTask:
+    number: int
+    start: int                       # first step, on the whole horizon
+    commit: int                      # steps kept
+    portfolio: Portfolio             # the window's own model (horizon, series, carried-in state, end)
+    options: SolveOptions
+    end: str                         # "value", "target" or "horizon" (the last window)
+    fallback: Optional[Portfolio] = None   # the same window with its end valued (target mode)
+
+
+@dataclass
+class WindowOutcome:
+    number: int
+    start: int
+    commit: int
+    length: int
+    end: str
+    status: str
+    objective: Optional[float] = None    # the window's own (with the value of its end state)
+    bound: Optional[float] = None
+    gap: Optional[float] = None
+    seconds: float = 0.0
+    message: str = ""
+    committed: Dict[str, Dict[Hashable, np.ndarray]] = field(default_factory=dict, repr=False)
+
+    @property
+    def solved(self) -> bool:
+        return self.status in (OPTIMAL, FEASIBLE)
+
+
+def solve_window(task: WindowTask) -> WindowOutcome:
+    """Solve one window; never raises for a window that cannot be scheduled (a status)."""
+    t0 = time.perf_counter()
+    options = replace(task.options, explain_infeasible=False)
+    out = _solve(task, task.portfolio, options, task.end)
+    if not out.solved and task.fallback is not None:
+        again = _solve(task, task.fallback, options, "value")
+        again.message = (f"its end target could not be met ({out.status}); solved again with "
+                          f"its end valued")
+        out = again
+    out.seconds = time.perf_counter() - t0
+    return out
+
+
+def _solve(task: WindowTask, p: Portfolio, options: SolveOptions, end: str) -> WindowOutcome:
+    built = build(p, variant=options.variant)
+    sol = solve(built, options)
+    out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, end, sol.status,
+                        sol.objective, sol.best_bound, sol.mip_gap, message=sol.message)
+    if out.solved:
+        for name, blocks in built.var_blocks.items():
+            vals = sol.values.get(name)
+            if vals is None or not blocks:
+                continue
+            out.committed[name] = {a: np.array(vals[b:b + task.commit]) for a, b in blocks.items()}
+    return out

@@ -23,7 +23,10 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests" / "bench"))
 
-STOP_WITHIN = 20.0    # seconds from the signal; an uninterrupted run takes minutes
+# Not a performance target: an uninterrupted run takes minutes, so stopping
+# within this many seconds of the signal shows the interrupt was honoured
+# mid-run rather than after it; generous for a loaded machine.
+STOP_WITHIN = 20.0
 
 
 def _command():
@@ -127,7 +130,7 @@ def test_ctrl_c_during_a_long_lp_stops_promptly(tmp_path, previous):
     code, out, err, took = _interrupt([_command(), "dispatch", str(src), "--out", str(previous[0])], 12.0)
     assert code == 130, (code, err)
     # in the simplex, which checks for an interrupt every few iterations
-    assert "Traceback" not in err and took < 5.0, took
+    assert "Traceback" not in err and took < STOP_WITHIN, took
     _same_as_before(previous)
 
 

@@ -81,9 +81,18 @@ def build_parser() -> argparse.ArgumentParser:
                    help="dispatch window by window, each committing COMMIT and seeing OVERLAP more "
                         "(default 1d/1d; durations such as 24h, 1d, 90min), with the whole horizon's "
                         "LP bound; see docs/windows.md")
-    d.add_argument("--window-end", choices=("value", "target"), default="value",
-                   help="how a window that is not the last treats its end: value what is left at the "
-                        "LP's marginal value (default) or reach the LP's state of charge")
+    d.add_argument("--window-end", metavar="RULE", default=None,
+                   help="how a window that is not the last treats its end: 'value' what is left at the "
+                        "LP's marginal value (default), reach the LP's state of charge ('target'), or "
+                        "end exactly there ('pin', the default with --workers); with --foresight: "
+                        "'hold' what it started with (default), 'free', or a money value per MWh")
+    d.add_argument("--workers", type=_threads, metavar="N", default=None,
+                   help="with --windows: solve N windows at once in N processes (ends pinned)")
+    d.add_argument("--foresight", metavar="DURATION", default=None,
+                   help="limited foresight: each window sees only DURATION ahead (e.g. 48h) and "
+                        "commits --commit of it; see docs/windows.md")
+    d.add_argument("--commit", metavar="DURATION", default=None,
+                   help="with --foresight: the hours each window keeps (default 1d)")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
     d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
@@ -205,16 +214,10 @@ def cmd_dispatch(args, out, err) -> int:
     r, code = _lint_first(args.file, err, "nothing was dispatched or written", args.confine)
     if code is not None:
         return code
-    spec = None
-    if args.windows is not None:
-        from .windows import WindowsError, parse, plan
-        try:
-            spec = parse(args.windows, args.window_end)
-            hz = r.portfolio.horizon
-            plan(spec, hz.steps, hz.step_hours)
-        except WindowsError as e:
-            print(printable(f"portfolio: error: {e}; nothing was dispatched or written"), file=err)
-            return EXIT_USAGE
+    spec, problem = _windows_spec(args, r.portfolio.horizon)
+    if problem:
+        print(printable(f"portfolio: error: {problem}; nothing was dispatched or written"), file=err)
+        return EXIT_USAGE
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
     if problem is None and args.parquet:
@@ -280,13 +283,52 @@ def cmd_dispatch(args, out, err) -> int:
     return exit_code(status)
 
 
+def _windows_spec(args, horizon):
+    """(spec or None, problem or None) from --windows, --window-end, --workers, --foresight, --commit."""
+    from .windows import WindowsError, foresight, parse, plan
+    windows = args.windows is not None
+    sighted = args.foresight is not None
+    if windows and sighted:
+        return None, "--windows and --foresight are two ways of cutting the horizon: choose one"
+    if not (windows or sighted):
+        for flag, value in (("--window-end", args.window_end), ("--workers", args.workers),
+                            ("--commit", args.commit)):
+            if value is not None:
+                return None, f"{flag} needs --windows or --foresight"
+        return None, None
+    if sighted and args.workers is not None:
+        return None, ("--workers: windows of limited foresight follow each other (each starts "
+                      "where the one before left), so they run one at a time")
+    if windows and args.commit is not None:
+        return None, "--commit goes with --foresight (with --windows write COMMIT[/OVERLAP])"
+    try:
+        if sighted:
+            spec = foresight(args.foresight, args.commit, args.window_end or "hold")
+        else:
+            workers = args.workers or 1
+            end = args.window_end or ("pin" if workers > 1 else "value")
+            spec = parse(args.windows, end, workers)
+        plan(spec, horizon.steps, horizon.step_hours)
+    except WindowsError as e:
+        return None, str(e)
+    return spec, None
+
+
 def _print_windows(result, out) -> None:
     w = result.summary["windows"]
     gap = "unknown" if w["gap"] is None else f"{100 * w['gap']:.3g} %"
     bound = "none" if w["lp_bound"] is None else f"{w['lp_bound']:,.2f}"
+    if w["foresight_h"] is not None:
+        ratio = "unknown" if w["ratio_to_bound"] is None else f"{100 * w['ratio_to_bound']:.2f} %"
+        print(printable(f"limited foresight: {w['count']} windows committing {w['commit_h']:g} h "
+                        f"and seeing {w['foresight_h']:g} h, '{w['end']}' at their ends; "
+                        f"{ratio} of the perfect-foresight LP bound {bound}; per window: "
+                        f"windows.csv"), file=out)
+        return
+    again = f", {w['resolved']} solved again at a seam" if w["workers"] > 1 else ""
     print(printable(f"windows: {w['count']} of {w['commit_h']:g} h (+{w['overlap_h']:g} h seen), "
-                    f"{w['end']} at their ends; LP bound {bound}, gap {gap}; per window: windows.csv"),
-          file=out)
+                    f"{w['end']} at their ends, {w['workers']} at once{again}; LP bound {bound}, "
+                    f"gap {gap}; per window: windows.csv"), file=out)
 
 
 def _output_problem(out_dir: Path, source: Path) -> Optional[str]:

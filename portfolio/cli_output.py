@@ -130,6 +130,8 @@ class Progress:
         if self.quiet:
             return
         text = f"window {done}/{total}  {elapsed:.0f} s"
+        if 0 < done < total:
+            text += f"  about {elapsed / done * (total - done):.0f} s to go"
         with self.lock:
             self.text = text
             if self.status is not None:

@@ -101,8 +101,9 @@ SUMMARY_KEYS = (
 )
 OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
                          "windows")          # dispatch by windows only (docs/windows.md)
-WINDOW_KEYS = ("commit_h", "overlap_h", "end", "count", "lp_bound", "lp_seconds", "stitched_objective",
-               "gap", "max_violation", "worst", "seconds", "windows")
+WINDOW_KEYS = ("commit_h", "overlap_h", "end", "foresight_h", "workers", "count", "lp_bound",
+               "lp_seconds", "stitched_objective", "gap", "ratio_to_bound", "resolved",
+               "max_violation", "worst", "seconds", "windows")
 WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>
 
 # summary section -> the table kind of its assets

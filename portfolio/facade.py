@@ -45,7 +45,7 @@ class LoadedPortfolio:
     def name(self) -> str:
         return self.model.name
 
-    def dispatch(self, options=None, progress=None, windows=None, **settings):
+    def dispatch(self, options=None, progress=None, windows=None, foresight=None, **settings):
         """Schedule the portfolio; see :func:`portfolio.dispatch.dispatch`.
 
         ``settings`` build the options when none are given:
@@ -53,11 +53,23 @@ class LoadedPortfolio:
 
         ``windows``: dispatch window by window (docs/windows.md): a
         :class:`portfolio.windows.Windows`, its text (``"1d"``, ``"24h/12h"``)
-        or True for the defaults (commit a day, see a day more).  Then
-        ``progress`` is called as ``progress(done, total, seconds, objective)``
-        after each window, ``time_limit`` applies to each window, and a bad
-        setting raises :class:`portfolio.windows.WindowsError` (a coded message).
+        or True for the defaults (commit a day, see a day more);
+        ``Windows(end="pin", workers=2)`` solves two windows at once.
+        ``foresight``: limited foresight, a :class:`portfolio.windows.Foresight`
+        or its duration text (``"48h"``: see 48 h, commit a day, hold what is
+        in store).  Then ``progress`` is called as ``progress(done, total,
+        seconds, objective)`` after each window, ``time_limit`` applies to
+        each window, and a bad setting raises
+        :class:`portfolio.windows.WindowsError` (a coded message).
         """
+        if foresight is not None and foresight is not False:
+            from .windows import Foresight, dispatch_windows
+            from .windows import foresight as read
+            if windows not in (None, False):
+                raise ValueError("windows and foresight are two ways of cutting the horizon: "
+                                 "give one")
+            spec = foresight if isinstance(foresight, Foresight) else read(str(foresight))
+            return dispatch_windows(self.model, spec, _options(options, settings), progress=progress)
         if windows is not None and windows is not False:
             from .windows import Windows, dispatch_windows, parse
             spec = windows if isinstance(windows, Windows) else (

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from types import MappingProxyType
 from typing import Optional
 
 import numpy as np
@@ -35,10 +34,12 @@ class SeriesSpec:
     factor: float = 1.0                 # multiply raw numbers by this to get MW or money per MWh
 
 
-def _spans_of(spec: SeriesSpec) -> MappingProxyType:
+def _spans_of(spec: SeriesSpec) -> dict:
+    """A plain dict, as every declaration's ``spans`` (a model must pickle: windows and
+    studies send it to other processes)."""
     fields = {"path": spec.path_span, "column": spec.column_span,
               "time_column": spec.time_column_span, "values": spec.values_span}
-    return MappingProxyType({k: v for k, v in fields.items() if v is not None})
+    return {k: v for k, v in fields.items() if v is not None}
 
 
 def make_series(spec: SeriesSpec, values: np.ndarray, origin: str,

@@ -1,7 +1,8 @@
 """Year-long dispatch by windows, with a proven bound (docs/windows.md).
 
-* :class:`Windows` (:mod:`.spec`): commit and overlap lengths, the end rule;
-  :func:`parse` reads ``COMMIT[/OVERLAP]``; mistakes are :class:`WindowsError`
+* :class:`Windows` (:mod:`.spec`): commit and overlap lengths, the end rule,
+  workers; :func:`parse` reads ``COMMIT[/OVERLAP]``; :class:`Foresight` and
+  :func:`foresight`: limited foresight; mistakes are :class:`WindowsError`
   with a code;
 * :func:`~.bound.relax`: the whole horizon's LP relaxation (the bound, and
   the state of charge and value of stored energy windows end on);
@@ -12,8 +13,10 @@
 """
 
 from .run import dispatch_windows
-from .spec import CODES, END_TARGET, END_VALUE, Windows, WindowsError, parse, plan
+from .spec import (CODES, END_PIN, END_TARGET, END_VALUE, FREE, HOLD, Foresight, Windows,
+                   WindowsError, foresight, parse, plan)
 from .task import WindowOutcome, WindowTask, solve_window
 
-__all__ = ["dispatch_windows", "Windows", "WindowsError", "parse", "CODES", "END_VALUE",
-           "END_TARGET", "plan", "WindowTask", "WindowOutcome", "solve_window"]
+__all__ = ["dispatch_windows", "Windows", "Foresight", "WindowsError", "parse", "foresight",
+           "CODES", "END_VALUE", "END_TARGET", "END_PIN", "HOLD", "FREE", "plan", "WindowTask",
+           "WindowOutcome", "solve_window"]

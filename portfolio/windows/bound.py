@@ -48,6 +48,7 @@ class Relaxed:
     soc: Dict[str, np.ndarray] = field(default_factory=dict)
     value: Dict[str, np.ndarray] = field(default_factory=dict)
     start_value: Dict[str, float] = field(default_factory=dict)   # one more MWh at the start: a * y[0]
+    x: Optional[np.ndarray] = field(default=None, repr=False)     # the LP's schedule, every column
 
     @property
     def solved(self) -> bool:
@@ -81,7 +82,7 @@ def relax(built, options: Optional[SolveOptions] = None, seconds: Optional[float
     y = np.asarray(sol.row_dual, dtype=float)
     del h
     bound = dual_bound(mx, y)
-    out = Relaxed(status, bound, 0.0)
+    out = Relaxed(status, bound, 0.0, x=x)
     sense = 1.0 if mx.maximize else -1.0      # money per unit of rhs (the models maximise)
     T = built.steps
     p = built.portfolio

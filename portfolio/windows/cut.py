@@ -12,7 +12,17 @@ per storage, what the committed schedule did before the window:
   arrives inside it (the route's own ``in_transit`` is then zero);
 * its end: the last window keeps the portfolio's end rule; any other ends
   free, with what is left valued at the whole-horizon LP's marginal value
-  (``stored_value``) or, in target mode, at least the LP's state of charge.
+  (``stored_value``), or, in target mode, at least the LP's state of charge,
+  or, pinned, exactly the LP's state of charge; with limited foresight it
+  ends with at least the level the portfolio's own end asks for, or, when
+  that is free, what the portfolio started with (``hold``), free
+  (``free``) or valued at a declared price per MWh, and never reads the
+  whole-horizon LP; in each of these it keeps at least enough to still
+  meet the portfolio's own end at full charge power (:func:`reach_floor`).
+
+The values may also be the whole-horizon LP's rather than a committed
+schedule: a parallel window's guess at its start (``run._parallel``), kept
+only when the committed schedule turns out to leave the very same state.
 
 Everything is read from the FULL compiled portfolio's columns (the committed
 vector), so the window's carried-in state is exactly what the full model's
@@ -28,22 +38,23 @@ import numpy as np
 import pandas as pd
 
 from ..compile import expressions as E
-from ..model import (END_AT_LEAST, END_FREE, PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE, Portfolio,
-                     Storage)
-from .spec import END_TARGET
+from ..model import (END_AT_LEAST, END_EQUAL, END_FREE, PRIOR_CHARGE, PRIOR_DISCHARGE, PRIOR_IDLE,
+                     Portfolio, Storage)
+from .spec import END_PIN, END_TARGET, END_VALUE, FREE, HOLD, OPEN
 
 TOL = 1e-6     # MW: a flow below this is no flow (as schedule.MODE_TOL)
 _CODE = {0: PRIOR_IDLE, 1: PRIOR_CHARGE, 2: PRIOR_DISCHARGE}
 
 
 def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, length: int,
-                 end: str, relaxed) -> Portfolio:
+                 end, relaxed) -> Portfolio:
     """The portfolio of the window ``start .. start + length - 1``.
 
     ``full``: the compiled whole portfolio; ``values``: its committed vector
     by variable family (steps before ``start`` are the committed schedule);
-    ``end``: ``spec.END_VALUE`` or ``spec.END_TARGET``; ``relaxed``: the
-    whole-horizon LP (:class:`~.bound.Relaxed`).
+    ``end``: ``spec.END_VALUE``, ``END_TARGET``, ``END_PIN``, or with limited
+    foresight ``HOLD``, ``FREE`` or a number; ``relaxed``: the whole-horizon LP
+    (:class:`~.bound.Relaxed`; None with limited foresight).
     """
     h = p.horizon
     T = h.steps
@@ -61,17 +72,77 @@ def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, 
             kw.update(_prior(full, acc, k, s, start))
             kw["arriving"] = tuple(arriving.get(k, ()))
         if stop < T:
-            kw["end_rule"], kw["end_value"] = END_FREE, 0.0
-            if end == END_TARGET:
-                target = float(relaxed.soc[k][stop - 1])
-                kw["end_rule"] = END_AT_LEAST
-                kw["end_value"] = min(max(target, s.soc_min), s.soc_max)
-            else:
-                kw["stored_value"] = float(relaxed.value[k][stop - 1])
+            kw.update(_end(end, s, k, stop, relaxed, h.step_hours, T - stop,
+                           kw.get("soc_start", s.soc_start), length))
         storages[k] = replace(s, **kw)
     routes = p.routes if start == 0 else tuple(replace(r, in_transit=0.0) for r in p.routes)
     return replace(p, horizon=replace(h, start=begin, steps=length), series=series,
                    storages=storages, routes=routes)
+
+
+def _end(end, s: Storage, k: str, stop: int, relaxed, dt: float, after: int, soc0: float,
+         steps: int) -> dict:
+    """The end of a window that is not the last (``stop``: the step after it; ``after``: steps
+    from there to the horizon's end; ``soc0``: the window's start; ``steps``: its length);
+    ``s`` is the portfolio's own storage."""
+    def within(v: float) -> float:
+        return min(max(float(v), s.soc_min), s.soc_max)
+
+    if end == END_VALUE:
+        return {"end_rule": END_FREE, "end_value": 0.0,
+                "stored_value": float(relaxed.value[k][stop - 1])}
+    if end == END_TARGET:
+        return {"end_rule": END_AT_LEAST, "end_value": within(relaxed.soc[k][stop - 1])}
+    if end == END_PIN:
+        return {"end_rule": END_EQUAL, "end_value": within(relaxed.soc[k][stop - 1])}
+    if end == OPEN:
+        return {"end_rule": END_FREE, "end_value": 0.0, "stored_value": 0.0}
+    # keep enough to still meet the portfolio's own end, but never ask more than charging at
+    # full power from the window's start can reach (a store fed only by its river keeps at
+    # least what it had, and waits for the water)
+    ceiling = reach_ceiling(s, dt, steps, soc0)
+    floor = min(reach_floor(s, dt, after), ceiling)
+    if end == HOLD:      # the level the portfolio's own end asks for, else what it started with
+        level = s.end_value if s.end_rule in (END_AT_LEAST, END_EQUAL) else s.soc_start
+        return {"end_rule": END_AT_LEAST, "end_value": within(max(min(level, ceiling), floor))}
+    price = 0.0 if end == FREE else float(end)
+    if floor > s.soc_min:
+        return {"end_rule": END_AT_LEAST, "end_value": within(floor), "stored_value": price}
+    return {"end_rule": END_FREE, "end_value": 0.0, "stored_value": price}
+
+
+def _charging(s: Storage, dt: float, n: int):
+    """(retention over n steps, MWh gained in n steps at full charge power from empty)."""
+    a = (1.0 - s.loss_per_h) ** dt
+    g = s.charge_max * s.eta_charge * dt
+    gained = g * n if a == 1.0 else g * (1.0 - a ** n) / (1.0 - a)
+    return a ** n, gained
+
+
+def reach_floor(s: Storage, dt: float, n: int) -> float:
+    """The least a store must hold ``n`` steps before the horizon's end to still meet the
+    portfolio's own end (``end at least`` / ``end exactly`` X) by charging at full power
+    from there (with its losses): ``(X - gained) / retention`` (soc_min when its end is
+    free).  Only declared limits enter it, never a price or an inflow to come, so a window of
+    limited foresight may use it; water or heat that will flow in is not counted, which errs
+    on the side of keeping too much."""
+    if s.end_rule not in (END_AT_LEAST, END_EQUAL):
+        return s.soc_min
+    keep, gained = _charging(s, dt, n)
+    return max(s.soc_min, (s.end_value - gained) / keep if keep > 0 else s.soc_max)
+
+
+def reach_ceiling(s: Storage, dt: float, n: int, soc0: float) -> float:
+    """The most a store can hold after ``n`` steps from ``soc0``, charging at full power."""
+    keep, gained = _charging(s, dt, n)
+    return min(s.soc_max, keep * soc0 + gained)
+
+
+def _net(full, acc, k: str, start: int) -> float:
+    """Net output (discharge +, charge -) in the step before ``start``, MW."""
+    d = acc(E.DISCHARGE, k)
+    c = acc.of(E.total_charge(full.topology, k))
+    return float(d[start - 1] - c[start - 1])
 
 
 def _arriving(p: Portfolio, full, acc, start: int, length: int) -> Dict[str, list]:
@@ -108,9 +179,7 @@ def _states(full, acc, k: str) -> Optional[np.ndarray]:
 
 def _prior(full, acc, k: str, s: Storage, start: int) -> dict:
     """``prior_mode``, ``prior_h``, ``prior_net_mw`` at ``start`` from the committed schedule."""
-    d = acc(E.DISCHARGE, k)
-    c = acc.of(E.total_charge(full.topology, k))
-    net = float(d[start - 1] - c[start - 1])
+    net = _net(full, acc, k, start)
     state = _states(full, acc, k)
     if state is None:
         if s.ramp_mw_per_h is None:

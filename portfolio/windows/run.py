@@ -12,8 +12,8 @@ window.
 from __future__ import annotations
 
 import time
-from dataclasses import replace
-from typing import Callable, List, Optional
+from dataclasses import dataclass, field, replace
+from typing import Callable, List, Optional, Union
 
 import numpy as np
 import pandas as pd
@@ -27,95 +27,254 @@ from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
 from ..solve.matrix import values_by_family
 from .bound import relax
 from .cut import window_model
-from .spec import END_TARGET, Windows, plan
+from .spec import END_MODES, END_VALUE, OPEN, Foresight, Windows, plan
 from .task import WindowOutcome, WindowTask, solve_window
+
+Spec = Union[Windows, Foresight]
 
 # progress(windows done, windows in all, seconds so far, stitched objective so far)
 WindowProgress = Callable[[int, int, float, Optional[float]], None]
 
 
-def dispatch_windows(p: Portfolio, spec: Optional[Windows] = None,
+def dispatch_windows(p: Portfolio, spec: Optional[Spec] = None,
                      options: Optional[SolveOptions] = None,
                      progress: Optional[WindowProgress] = None,
-                     runner: Callable[[WindowTask], WindowOutcome] = solve_window) -> DispatchResult:
+                     runner: Callable[[WindowTask], WindowOutcome] = solve_window,
+                     executor=None) -> DispatchResult:
     """Schedule ``p`` window by window (raises :class:`~.spec.WindowsError` for a bad ``spec``).
 
-    ``options.time_limit`` applies to each window on its own (the
+    ``spec``: :class:`~.spec.Windows` (perfect foresight; in parallel when
+    ``workers`` > 1) or :class:`~.spec.Foresight` (limited foresight, in
+    order).  ``options.time_limit`` applies to each window on its own (the
     whole-horizon LP runs to its end: the bound and the end values need
-    it); ``options.mip_gap`` to each window.  ``runner`` solves one
-    task (the default in this process; any callable taking the same plain
-    data will do).
+    it); ``options.mip_gap`` to each window.  ``runner`` solves one task
+    (the default in this process; any callable taking the same plain data
+    will do).  ``executor``: where parallel windows run, anything with
+    ``submit(fn, task)`` returning a future with ``result()`` (a
+    ``concurrent.futures`` executor, a Dask ``distributed.Client``); None: a
+    process pool of ``spec.workers`` processes, started and stopped here.
     """
     spec = spec or Windows()
     options = options or SolveOptions()
     T, dt = p.horizon.steps, p.horizon.step_hours
     pieces = plan(spec, T, dt)
+    sighted = isinstance(spec, Foresight)
     t0 = time.perf_counter()
     full = build(p, variant=options.variant)
     relaxed = relax(full, replace(options, time_limit=None))   # the bound and end values need it whole
-    head = {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": spec.end,
-            "count": len(pieces), "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
+    head = _head(spec, pieces, relaxed)
     if not relaxed.solved:
         infeasible = "nfeasible" in relaxed.status
         return _failed(p, full, options, INFEASIBLE if infeasible else ERROR,
                        f"the whole horizon's LP relaxation gave no bound ({relaxed.status})"
                        + ("; so no schedule exists: dispatch without windows to name the limits "
                           "that give" if infeasible else ""), head, [], t0)
-
     x = np.zeros(full.matrix.num_col)
-    values = values_by_family(full, x)     # views into x: the committed schedule so far
-    outcomes: List[WindowOutcome] = []
-    for i, (start, commit, length) in enumerate(pieces):
-        last = start + length == T
-        out = runner(_task(p, full, values, relaxed, spec, options, i + 1, start, commit, length, last))
-        if not out.solved and outcomes:
-            merged = _merged(p, full, values, relaxed, spec, options, pieces, i, runner)
+    run = _Run(p, full, values_by_family(full, x), x, relaxed, spec, options, pieces, runner,
+               progress, t0)
+    if not sighted and (spec.workers > 1 or executor is not None):
+        failure = _parallel(run, executor)
+    else:
+        failure = _in_order(run)
+    if failure is not None:
+        return failure
+    return _stitched(p, full, x, options, head, run.outcomes, t0, run.resolved)
+
+
+@dataclass
+class _Run:
+    """One dispatch by windows in progress: the whole portfolio, its committed vector ``x``
+    (``values`` are views into it by family), the LP, the plan and what came out so far."""
+
+    p: Portfolio
+    full: object
+    values: dict
+    x: np.ndarray
+    relaxed: object
+    spec: object
+    options: SolveOptions
+    pieces: list
+    runner: Callable
+    progress: Optional[WindowProgress]
+    t0: float
+    outcomes: List[WindowOutcome] = field(default_factory=list)
+    resolved: int = 0            # windows solved again from the committed schedule (parallel)
+
+    @property
+    def sighted(self) -> bool:
+        return isinstance(self.spec, Foresight)
+
+    def task(self, number, start, commit, length, guess=False) -> WindowTask:
+        """The task of a window from the committed schedule (or, ``guess``, from the LP)."""
+        last = start + length == self.p.horizon.steps
+        end = self.spec.end
+        values = _lp_values(self) if guess else self.values
+        relaxed = None if self.sighted else self.relaxed   # limited foresight never reads it
+        model = window_model(self.p, self.full, values, start, length, end, relaxed)
+        fallback, fallback_end = None, END_VALUE
+        if not last and end != END_VALUE:
+            fallback_end = OPEN if self.sighted else END_VALUE
+            fallback = window_model(self.p, self.full, values, start, length, fallback_end,
+                                    relaxed)
+        return WindowTask(number, start, commit, model, self.options,
+                          "horizon" if last else str(end), fallback, fallback_end)
+
+    def keep(self, i: int, out: WindowOutcome):
+        """Window ``i``'s outcome into the stitched schedule; a failure result or None."""
+        if not out.solved and self.outcomes and not self.sighted:
+            merged = _merged(self, i)
             if merged is not None:
-                outcomes[:] = [o for o in outcomes if o.start < merged.start]
-                if outcomes:      # an earlier merged window may reach past this one's start
-                    outcomes[-1].commit = min(outcomes[-1].commit, merged.start - outcomes[-1].start)
+                self.outcomes[:] = [o for o in self.outcomes if o.start < merged.start]
+                if self.outcomes:      # an earlier merged window may reach past this one's start
+                    last = self.outcomes[-1]
+                    last.commit = min(last.commit, merged.start - last.start)
                 out = merged
-        outcomes.append(out)
+        self.outcomes.append(out)
+        n = len(self.pieces)
         if not out.solved:
             status = out.status if out.status in (INFEASIBLE, ERROR) else ERROR
-            when = p.horizon.index[start].isoformat()
-            return _failed(p, full, options, status,
-                           f"window {i + 1} of {len(pieces)} (from {when}) gave {out.status}"
-                           + (f": {out.message}" if out.message else ""), head, outcomes, t0)
-        _place(full, x, out, out.start)
-        if progress is not None:
-            progress(i + 1, len(pieces), time.perf_counter() - t0,
-                     objective(full.matrix, x) if i + 1 == len(pieces) else None)
-    return _stitched(p, full, x, options, head, outcomes, t0)
+            when = self.p.horizon.index[self.pieces[i][0]].isoformat()
+            why = ""
+            if self.sighted and status == INFEASIBLE:
+                why = ("; with limited foresight the windows before it could not see what this "
+                       "one needs (the portfolio's own end, water still to come): a longer "
+                       "--foresight or the end rule 'hold' may reach it")
+            return _failed(self.p, self.full, self.options, status,
+                           f"window {i + 1} of {n} (from {when}) gave {out.status}"
+                           + (f": {out.message}" if out.message else "") + why,
+                           _head(self.spec, self.pieces, self.relaxed), self.outcomes, self.t0)
+        _place(self.full, self.x, out, out.start)
+        if self.progress is not None:
+            self.progress(i + 1, n, time.perf_counter() - self.t0,
+                          objective(self.full.matrix, self.x) if i + 1 == n else None)
+        return None
 
 
-def _task(p, full, values, relaxed, spec, options, number, start, commit, length, last) -> WindowTask:
-    end = "horizon" if last else spec.end
-    model = window_model(p, full, values, start, length, spec.end, relaxed)
-    fallback = None
-    if end == END_TARGET:
-        fallback = window_model(p, full, values, start, length, "value", relaxed)
-    return WindowTask(number, start, commit, model, options, end, fallback)
+def _head(spec, pieces, relaxed) -> dict:
+    sighted = isinstance(spec, Foresight)
+    return {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": str(spec.end),
+            "foresight_h": float(spec.foresight_h) if sighted else None,
+            "workers": 1 if sighted else spec.workers, "count": len(pieces),
+            "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
+
+
+def _lp_values(run: _Run) -> dict:
+    return values_by_family(run.full, run.relaxed.x)
+
+
+def _in_order(run: _Run):
+    """Each window from the schedule committed before it."""
+    for i, (start, commit, length) in enumerate(run.pieces):
+        failure = run.keep(i, run.runner(run.task(i + 1, start, commit, length)))
+        if failure is not None:
+            return failure
+    return None
+
+
+def _parallel(run: _Run, executor):
+    """Every window at once from the LP's state at its start, ends pinned to the LP's state
+    there; then, in order, each is kept when the committed schedule before it left exactly
+    the state it was solved from (:func:`_same`), else solved again from that state.  So
+    the schedule is the one :func:`_in_order` finds with the same settings."""
+    own = executor is None
+    if own:
+        executor = _pool(run.spec.workers)
+    futures = []
+    try:
+        tasks = [run.task(i + 1, start, commit, length, guess=i > 0)
+                 for i, (start, commit, length) in enumerate(run.pieces)]
+        futures = [executor.submit(run.runner, task) for task in tasks]
+        for i, (start, commit, length) in enumerate(run.pieces):
+            out = futures[i].result()
+            if i > 0 and not _same(run, tasks[i], out):
+                run.resolved += 1
+                again = run.runner(run.task(i + 1, start, commit, length))
+                again.message = ("solved again from the committed schedule before it"
+                                 + (f" ({out.message})" if out.message else ""))
+                out = again
+            failure = run.keep(i, out)
+            if failure is not None:
+                return failure
+        return None
+    except BaseException:
+        for f in futures:
+            f.cancel()
+        if own:
+            _stop(executor)
+        raise
+    finally:
+        if own:
+            executor.shutdown(wait=True, cancel_futures=True)
+
+
+def _same(run: _Run, guessed: WindowTask, out: WindowOutcome) -> bool:
+    """Is the problem a window was solved from (the LP's state at its start) the very problem
+    the committed schedule before it leaves?  Then its schedule is the one an in-order
+    dispatch finds there (same matrix, same solver, same settings)."""
+    if not out.solved:
+        return False
+    actual = run.task(out.number, out.start, out.commit, out.length)
+    model = actual.portfolio if out.end == guessed.end else actual.fallback
+    solved = guessed.portfolio if out.end == guessed.end else guessed.fallback
+    if model is None or solved is None:
+        return False
+    return same_matrix(build(model, variant=run.options.variant).matrix,
+                       build(solved, variant=run.options.variant).matrix)
+
+
+def same_matrix(a, b, rtol: float = 1e-12) -> bool:
+    """Two compiled matrices pose the same problem (equal within ``rtol``, infinities equal)."""
+    if a.A.shape != b.A.shape or a.maximize != b.maximize or a.var_ranges != b.var_ranges:
+        return False
+    if not np.array_equal(a.integer, b.integer):
+        return False
+    A, B = a.A.tocsc(), b.A.tocsc()
+    if not (np.array_equal(A.indptr, B.indptr) and np.array_equal(A.indices, B.indices)):
+        return False
+    pairs = [(A.data, B.data), (a.row_lower, b.row_lower), (a.row_upper, b.row_upper),
+             (a.col_lower, b.col_lower), (a.col_upper, b.col_upper), (a.cost, b.cost),
+             (np.array([a.offset]), np.array([b.offset]))]
+    return all(np.allclose(x, y, rtol=rtol, atol=rtol, equal_nan=False) or
+               np.array_equal(x, y) for x, y in pairs)
+
+
+def _quiet() -> None:
+    """A pool process leaves Ctrl-C to the dispatching process (which stops it)."""
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _pool(workers: int):
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+    return ProcessPoolExecutor(max_workers=workers, initializer=_quiet,
+                               mp_context=multiprocessing.get_context("spawn"))
+
+
+def _stop(pool) -> None:
+    """Stop a process pool now: nothing it is still solving is wanted."""
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in processes:
+        proc.terminate()
 
 
 MAX_BACK = 3      # windows a failed window may be merged back with
 
 
-def _merged(p, full, values, relaxed, spec, options, pieces, i, runner) -> Optional[WindowOutcome]:
+def _merged(run: _Run, i: int) -> Optional[WindowOutcome]:
     """Window ``i`` cannot follow what the windows before it left (an end rule out of reach,
     a carried-in run that cannot go on): solve it together with the one before it, then
     the two before, ... (at most :data:`MAX_BACK`), as one window from the earlier start
     state; None when none of these can be scheduled either."""
-    T = p.horizon.steps
+    T = run.p.horizon.steps
+    pieces = run.pieces
     start, commit, length = pieces[i]
     for back in range(1, min(MAX_BACK, i) + 1):
         j = i - back
         first = pieces[j][0]
         span = min(T - first, start - first + length)
-        last = first + span == T
-        task = _task(p, full, values, relaxed, spec, options, j + 1, first, start + commit - first,
-                     span, last)
-        out = runner(task)
+        out = run.runner(run.task(j + 1, first, start + commit - first, span))
         if out.solved:
             out.message = (f"windows {j + 1} to {i + 1} solved as one: window {i + 1} could not "
                            f"follow the schedule committed before it")
@@ -161,7 +320,8 @@ def _per_window(p: Portfolio, outcomes: List[WindowOutcome]) -> list:
 
 
 def _summary(p, head: dict, outcomes, t0, **figures) -> dict:
-    out = dict(head, stitched_objective=None, gap=None, max_violation=None, worst="",
+    out = dict(head, stitched_objective=None, gap=None, ratio_to_bound=None, resolved=0,
+               max_violation=None, worst="",
                seconds=time.perf_counter() - t0, windows=_per_window(p, outcomes))
     out.update(figures)
     assert tuple(out) == WINDOW_KEYS, tuple(out)
@@ -176,7 +336,7 @@ def _failed(p, full, options, status, message, head, outcomes, t0) -> DispatchRe
     return result
 
 
-def _stitched(p, full, x, options, head, outcomes, t0) -> DispatchResult:
+def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchResult:
     """Check the stitched schedule against the WHOLE portfolio's matrix, then tabulate it."""
     mx = full.matrix
     viol, where = check_vector(mx, x)
@@ -185,9 +345,18 @@ def _stitched(p, full, x, options, head, outcomes, t0) -> DispatchResult:
     if bound is not None and bound < obj - OBJ_TOL * max(1.0, abs(obj)):
         bound = None           # a bound below a checked schedule is no bound: never reported
     g = gap(obj, bound)
-    figures = {"stitched_objective": obj, "gap": g, "max_violation": viol, "worst": where}
-    notes = [f"dispatched in {len(outcomes)} windows of {head['commit_h']:g} h, each seeing "
-             f"{head['overlap_h']:g} h more; the bound is the whole horizon's LP relaxation"]
+    ratio = obj / bound if bound is not None and bound > 0 else None
+    figures = {"stitched_objective": obj, "gap": g, "ratio_to_bound": ratio, "resolved": resolved,
+               "max_violation": viol, "worst": where}
+    if head["foresight_h"] is not None:
+        notes = [f"limited foresight: each of {len(outcomes)} windows committed "
+                 f"{head['commit_h']:g} h seeing {head['foresight_h']:g} h, its end "
+                 f"'{head['end']}'; the bound is the whole horizon's LP relaxation (perfect "
+                 f"foresight), which no window read"]
+    else:
+        notes = [f"dispatched in {len(outcomes)} windows of {head['commit_h']:g} h, each seeing "
+                 f"{head['overlap_h']:g} h more ({head['workers']} at once); the bound is the "
+                 f"whole horizon's LP relaxation"]
     if viol > TOL:
         message = (f"the stitched schedule breaks the whole portfolio's model ({where}, by "
                    f"{viol:.3g}); this is a fault of the decomposition, please report it")

@@ -1,9 +1,11 @@
-"""How a horizon is cut into windows: :class:`Windows`, its checks and its plan.
+"""How a horizon is cut into windows: :class:`Windows`, :class:`Foresight`, their checks and plan.
 
 A window commits ``commit_h`` hours and sees ``overlap_h`` more (clipped at
-the horizon's end); windows start every ``commit_h`` hours.  Mistakes are
-:class:`WindowsError` with a stable code (docs/windows.md lists them); the
-CLI prints them as ``portfolio: error: W00n: ...`` and exits 2.
+the horizon's end); windows start every ``commit_h`` hours.  With limited
+foresight (:class:`Foresight`) a window sees ``foresight_h`` hours from its
+start and nothing of the whole horizon.  Mistakes are :class:`WindowsError`
+with a stable code (docs/windows.md lists them); the CLI prints them as
+``portfolio: error: W00n: ...`` and exits 2.
 """
 
 from __future__ import annotations
@@ -11,11 +13,19 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from typing import List, Optional, Tuple
+from typing import List, Optional, Tuple, Union
 
 END_VALUE = "value"      # non-last windows value what is left in store at the LP's marginal value
 END_TARGET = "target"    # non-last windows must end with at least the LP's state of charge
-END_MODES = (END_VALUE, END_TARGET)
+END_PIN = "pin"          # non-last windows end exactly at the LP's state of charge (no overlap):
+#                          windows then do not wait for each other, so they can run in parallel
+END_MODES = (END_VALUE, END_TARGET, END_PIN)
+
+# limited foresight: what is left in store at a window's end is worth ...
+HOLD = "hold"            # ... it must be at least the level the portfolio's end asks for (its
+#                          'end at least' / 'end exactly' value), else what the portfolio started with
+FREE = "free"            # ... nothing
+OPEN = "open"            # (a fallback only) nothing, and no floor either: cut.reach_floor
 
 DAY_H = 24.0
 
@@ -25,12 +35,17 @@ TOO_LONG = "W002"        # commit longer than the horizon
 NOT_POSITIVE = "W003"    # commit not above zero, or overlap negative
 UNREADABLE = "W004"      # a duration text cannot be read
 BAD_END = "W005"         # unknown end-of-window rule
+SHORT_SIGHT = "W006"     # foresight shorter than the commit length, or longer than the horizon
+PIN_OVERLAP = "W007"     # pinned ends with an overlap, or parallel windows without pinned ends
 CODES = {
     NOT_WHOLE: "a window length is not a whole number of steps",
     TOO_LONG: "the commit length is longer than the horizon",
     NOT_POSITIVE: "the commit length is not above zero, or the overlap is negative",
     UNREADABLE: "a window length cannot be read (write e.g. 24h, 1d, 90min, 1w)",
-    BAD_END: "the end-of-window rule is neither 'value' nor 'target'",
+    BAD_END: "the end-of-window rule is not one of 'value', 'target', 'pin' (or, with limited "
+             "foresight, 'hold', 'free' or a money value per MWh)",
+    SHORT_SIGHT: "the foresight is shorter than the commit length, or longer than the horizon",
+    PIN_OVERLAP: "windows in parallel need pinned ends, and pinned windows take no overlap",
 }
 
 
@@ -52,10 +67,31 @@ class Windows:
     commit_h: float = DAY_H
     overlap_h: Optional[float] = None
     end: str = END_VALUE
+    workers: int = 1          # windows solved at once (processes); above 1 needs ``end="pin"``
 
     @property
     def overlap(self) -> float:
-        return DAY_H if self.overlap_h is None else float(self.overlap_h)
+        if self.overlap_h is None:
+            return 0.0 if self.end == END_PIN else DAY_H
+        return float(self.overlap_h)
+
+
+@dataclass(frozen=True)
+class Foresight:
+    """Limited foresight: each window commits ``commit_h`` hours seeing ``foresight_h`` hours
+    from its start, and nothing else of the horizon; what is left in store at a window's end
+    is worth ``end``: :data:`HOLD` (keep at least the level the portfolio's own end asks
+    for, or, when that is free, what the portfolio started with: each day gives back what
+    the first began with — common practice for daily cycling), :data:`FREE` (nothing) or a
+    number (money per MWh, the same for every storage)."""
+
+    foresight_h: float = 2 * DAY_H
+    commit_h: float = DAY_H
+    end: Union[str, float] = HOLD
+
+    @property
+    def overlap(self) -> float:
+        return float(self.foresight_h) - float(self.commit_h)
 
 
 def _steps(hours: float, dt: float, what: str) -> int:
@@ -66,15 +102,21 @@ def _steps(hours: float, dt: float, what: str) -> int:
     return int(round(n))
 
 
-def plan(spec: Windows, steps: int, step_hours: float) -> List[Tuple[int, int, int]]:
-    """``(start, commit, length)`` of every window, in steps; raises :class:`WindowsError`."""
-    if spec.end not in END_MODES:
-        raise WindowsError(BAD_END, f"unknown end-of-window rule {spec.end!r} (use 'value' or 'target')")
+def plan(spec, steps: int, step_hours: float) -> List[Tuple[int, int, int]]:
+    """``(start, commit, length)`` of every window of ``spec`` (:class:`Windows` or
+    :class:`Foresight`), in steps; raises :class:`WindowsError`."""
+    if isinstance(spec, Foresight):
+        _check_foresight(spec, steps, step_hours)
+    else:
+        _check_windows(spec)
     if not (spec.commit_h > 0) or not (spec.overlap >= 0):
         raise WindowsError(NOT_POSITIVE, f"the commit length must be above zero and the overlap not "
                                          f"negative (got {spec.commit_h:g} h and {spec.overlap:g} h)")
     commit = _steps(float(spec.commit_h), step_hours, "commit length")
-    overlap = _steps(spec.overlap, step_hours, "overlap")
+    if isinstance(spec, Foresight):
+        overlap = _steps(float(spec.foresight_h), step_hours, "foresight") - commit
+    else:
+        overlap = _steps(spec.overlap, step_hours, "overlap")
     if commit > steps:
         raise WindowsError(TOO_LONG, f"the commit length ({spec.commit_h:g} h) is longer than the "
                                      f"horizon ({steps * step_hours:g} h)")
@@ -83,6 +125,38 @@ def plan(spec: Windows, steps: int, step_hours: float) -> List[Tuple[int, int, i
         keep = min(commit, steps - start)
         out.append((start, keep, min(steps - start, commit + overlap)))
     return out
+
+
+def _check_windows(spec: Windows) -> None:
+    if spec.end not in END_MODES:
+        raise WindowsError(BAD_END, f"unknown end-of-window rule {spec.end!r} (use 'value', 'target' "
+                                    f"or 'pin')")
+    if not isinstance(spec.workers, int) or spec.workers < 1:
+        raise WindowsError(NOT_POSITIVE, f"the number of workers must be a whole number above zero "
+                                         f"(got {spec.workers!r})")
+    if spec.workers > 1 and spec.end != END_PIN:
+        raise WindowsError(PIN_OVERLAP, f"windows in parallel ({spec.workers} workers) need pinned "
+                                        f"ends (end 'pin'), not {spec.end!r}: a window must know where "
+                                        f"the one before it ends without waiting for it")
+    if spec.end == END_PIN and spec.overlap != 0:
+        raise WindowsError(PIN_OVERLAP, f"pinned windows end exactly at the LP's state of charge, so "
+                                        f"they take no overlap (got {spec.overlap:g} h; write e.g. "
+                                        f"'1d' or '1d/0h')")
+
+
+def _check_foresight(spec: Foresight, steps: int, step_hours: float) -> None:
+    end = spec.end
+    if isinstance(end, bool) or not (end in (HOLD, FREE) or (
+            isinstance(end, (int, float)) and math.isfinite(end))):
+        raise WindowsError(BAD_END, f"unknown end-of-window rule {end!r} with limited foresight "
+                                    f"(use 'hold', 'free' or a money value per MWh)")
+    if spec.commit_h > 0 and spec.foresight_h < spec.commit_h:
+        raise WindowsError(SHORT_SIGHT, f"the foresight ({spec.foresight_h:g} h) is shorter than the "
+                                        f"commit length ({spec.commit_h:g} h): a window cannot commit "
+                                        f"hours it does not see")
+    if spec.foresight_h > steps * step_hours + 1e-9:
+        raise WindowsError(SHORT_SIGHT, f"the foresight ({spec.foresight_h:g} h) is longer than the "
+                                        f"horizon ({steps * step_hours:g} h): dispatch without windows")
 
 
 _UNITS = {"min": 1 / 60, "m": 1 / 60, "h": 1.0, "d": 24.0, "w": 168.0}
@@ -98,13 +172,26 @@ def hours(text: str) -> float:
     return float(m.group(1)) * _UNITS[m.group(2)]
 
 
-def parse(text: str, end: str = END_VALUE) -> Windows:
+def parse(text: str, end: str = END_VALUE, workers: int = 1) -> Windows:
     """``COMMIT[/OVERLAP]`` (``1d``, ``24h/12h``, ``1d/0h``; empty: the defaults)."""
     text = (text or "").strip()
     if not text:
-        return Windows(end=end)
+        return Windows(end=end, workers=workers)
     commit, _, overlap = text.partition("/")
     if text.startswith("-") or overlap.strip().startswith("-"):
         raise WindowsError(NOT_POSITIVE, f"'{text}': the commit length must be above zero and the "
                                          f"overlap not negative")
-    return Windows(hours(commit), hours(overlap) if overlap.strip() else None, end)
+    return Windows(hours(commit), hours(overlap) if overlap.strip() else None, end, workers)
+
+
+def foresight(sight: str, commit: Optional[str] = None, end: str = HOLD) -> Foresight:
+    """``--foresight 48h --commit 24h``: read both (``commit`` None: one day), and the end
+    rule: ``hold``, ``free`` or a number (money per MWh)."""
+    rule: Union[str, float] = end
+    if end not in (HOLD, FREE):
+        try:
+            rule = float(end)
+        except (TypeError, ValueError):
+            raise WindowsError(BAD_END, f"unknown end-of-window rule {end!r} with limited foresight "
+                                        f"(use 'hold', 'free' or a money value per MWh)") from None
+    return Foresight(hours(sight), DAY_H if commit is None else hours(commit), rule)

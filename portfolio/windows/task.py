@@ -5,7 +5,8 @@ the ordinary certified path (:func:`portfolio.solve.solve`) and returns the
 first ``commit`` steps of every variable family, so a process pool or a
 cluster can run it as well as this process.  In target mode a window whose
 end target cannot be met is solved again with its end valued instead
-(``fallback``), and says so.
+(``fallback``), and says so; as is a pinned window, and a window of
+limited foresight that cannot hold its start state (then its end is free).
 """
 
 from __future__ import annotations
@@ -28,8 +29,10 @@ class WindowTask:
     commit: int                      # steps kept
     portfolio: Portfolio             # the window's own model (horizon, series, carried-in state, end)
     options: SolveOptions
-    end: str                         # "value", "target" or "horizon" (the last window)
-    fallback: Optional[Portfolio] = None   # the same window with its end valued (target mode)
+    end: str                         # the end rule (spec.END_MODES, "hold", "free", a price) or
+    #                                  "horizon" (the last window keeps the portfolio's own)
+    fallback: Optional[Portfolio] = None   # the same window with an end that can always be met
+    fallback_end: str = "value"
 
 
 @dataclass
@@ -58,9 +61,9 @@ def solve_window(task: WindowTask) -> WindowOutcome:
     options = replace(task.options, explain_infeasible=False)
     out = _solve(task, task.portfolio, options, task.end)
     if not out.solved and task.fallback is not None:
-        again = _solve(task, task.fallback, options, "value")
-        again.message = (f"its end target could not be met ({out.status}); solved again with "
-                          f"its end valued")
+        again = _solve(task, task.fallback, options, task.fallback_end)
+        again.message = (f"its end rule '{task.end}' could not be met ({out.status}); solved again "
+                         f"with its end '{task.fallback_end}'")
         out = again
     out.seconds = time.perf_counter() - t0
     return out
@@ -69,7 +72,7 @@ def solve_window(task: WindowTask) -> WindowOutcome:
 def _solve(task: WindowTask, p: Portfolio, options: SolveOptions, end: str) -> WindowOutcome:
     built = build(p, variant=options.variant)
     sol = solve(built, options)
-    out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, end, sol.status,
+    out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, str(end), sol.status,
                         sol.objective, sol.best_bound, sol.mip_gap, message=sol.message)
     if out.solved:
         for name, blocks in built.var_blocks.items():

@@ -2,7 +2,7 @@
 
     python tests/bench/bench_year.py [--storages 10] [--hours 8760] [--windows 1d/1d]
                                      [--end value] [--gap 1e-4] [--window-limit S]
-                                     [--monolith-limit 0]
+                                     [--monolith-limit 0] [--workers 1] [--foresight 48h]
 
 The fleet of tests/bench/bench_time_limit.py: batteries on three sites over
 an hourly year, exclusive modes, minimum output when running and a 2 h
@@ -26,7 +26,7 @@ sys.path[:0] = [os.path.dirname(os.path.dirname(HERE)), os.path.dirname(HERE), H
 from bench_time_limit import portfolio  # noqa: E402
 from portfolio.dispatch import dispatch  # noqa: E402
 from portfolio.solve import SolveOptions  # noqa: E402
-from portfolio.windows import dispatch_windows, parse  # noqa: E402
+from portfolio.windows import dispatch_windows, foresight, parse  # noqa: E402
 
 
 def peak_gib() -> float:
@@ -38,13 +38,19 @@ def main():
     ap.add_argument("--storages", type=int, default=10)
     ap.add_argument("--hours", type=int, default=8760)
     ap.add_argument("--windows", default="1d/1d")
-    ap.add_argument("--end", default="value", choices=("value", "target"))
+    ap.add_argument("--end", default="value", help="value, target, pin; hold, free or a price "
+                                                   "with --foresight")
+    ap.add_argument("--workers", type=int, default=1, help="windows at once (needs --end pin)")
+    ap.add_argument("--foresight", default=None, help="limited foresight, e.g. 48h (commit: --windows)")
     ap.add_argument("--gap", type=float, default=1e-4, help="each window's MIP gap")
     ap.add_argument("--window-limit", type=float, default=None, help="seconds per window (and LP)")
     ap.add_argument("--monolith-limit", type=float, default=0.0, help="seconds; 0: no monolith")
     args = ap.parse_args()
     p = portfolio(args.storages, args.hours)
-    spec = parse(args.windows, args.end)
+    if args.foresight:
+        spec = foresight(args.foresight, args.windows.partition("/")[0], args.end)
+    else:
+        spec = parse(args.windows, args.end, args.workers)
 
     def progress(done, total, seconds, objective):
         if done % 30 == 0 or done == total:
@@ -54,12 +60,13 @@ def main():
     r = dispatch_windows(p, spec, SolveOptions(mip_gap=args.gap, time_limit=args.window_limit), progress=progress)
     wall = time.perf_counter() - t0
     w = r.summary["windows"]
-    print(f"{args.storages} storages x {args.hours} h, windows {args.windows} ({args.end})")
+    print(f"{args.storages} storages x {args.hours} h, windows {args.windows} ({args.end}), "
+          f"foresight {args.foresight}, {args.workers} workers")
     share = (r.objective / w["lp_bound"]) if r.objective is not None and w["lp_bound"] else None
     print(f"windows: wall {wall:.1f} s | LP {w['lp_seconds']:.1f} s | {w['count']} windows | "
           f"peak {peak_gib():.2f} GiB | status {r.status} | objective {r.objective} | "
           f"LP bound {w['lp_bound']} | share of bound {share} | gap {w['gap']} | "
-          f"violation {w['max_violation']}")
+          f"violation {w['max_violation']} | solved again {w['resolved']}")
     slow = sorted(w["windows"], key=lambda x: -x["seconds"])[:3]
     print("  slowest windows:", ", ".join(f"{x['window']}: {x['seconds']:.1f} s ({x['status']}, "
                                           f"gap {x['gap']})" for x in slow))
@@ -71,5 +78,5 @@ def main():
               f"objective {m.objective} | bound {m.best_bound} | gap {m.mip_gap}")
 
 
-if __name__ == "__main__":
+if __name__ == "__main__":      # the guard parallel windows need (spawned processes)
     main()

@@ -74,6 +74,11 @@ class Names:
         self._folded[name.casefold()] = name
         return True
 
+    def same_but_case(self, name: str) -> Optional[str]:
+        """The declared name that differs from ``name`` only in letter case, if any."""
+        other = self._folded.get(name.casefold())
+        return other if other is not None and other != name else None
+
     def ref(self, word: Word, want: Tuple[str, ...], what: str) -> Optional[str]:
         """The name ``word`` refers to, when it is declared as one of ``want``."""
         nm = word.text

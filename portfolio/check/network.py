@@ -12,7 +12,7 @@ from typing import Dict, List, Optional, Tuple
 
 from .. import model as M
 from .. import units as U
-from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced, Implausible,
+from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, NameCaseClash, ExportUnpriced, Implausible,
                            ImportUnpriced, OutOfRange, RouteDuplicate, RouteKindMismatch, RouteToSelf,
                            SpillNotAllowed, UnusedSetting)
 from .context import Context
@@ -319,5 +319,11 @@ def _output_name(ck: Context, r: M.Route, taken: set) -> Optional[str]:
         ck.sink.add(DuplicateName, r.span, f"this route's output name '{name}' is already declared "
                     f"(as {a(ck.names[name].kind)})",
                     f"note: '{name}' is declared at {ck.names[name].span}; rename one of them")
+        return None
+    other = ck.names.same_but_case(name)
+    if other is not None:
+        ck.sink.add(NameCaseClash, r.span, f"this route's output name '{name}' differs from '{other}' only "
+                    "in letter case; their output files would overwrite each other where file names ignore case",
+                    f"note: '{other}' is declared at {ck.names[other].span}; rename one of them")
         return None
     return name

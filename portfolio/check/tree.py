@@ -191,7 +191,8 @@ QUANTITY_SETTINGS = ("h_length", "h_step", "export_max", "import_max", "energy",
                      "min_run", "min_rest", "ramp", "soc_min", "soc_max", "soc_start", "delay", "route_max",
                      "route_efficiency", "in_transit")
 WORD_SETTINGS = {"h_start": "TIMESTAMP", "h_end": "TIMESTAMP", "h_zone": "STRING", "time_column": "STRING",
-                 "curtail": "ALLOWED", "kind": "NAME", "modes": "MODES", "factor": "NUMBER"}
+                 "curtail": "ALLOWED", "kind": "NAME", "modes": "MODES", "factor": "NUMBER",
+                 "gaps": "GAP_FILL"}
 
 
 @v_args(meta=True)

@@ -50,6 +50,7 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("mode", "-", "charge, discharge, idle, or both (tolerance 1e-6 MW)"),
         Column("routed_in_mw", "MW", "arriving from routes, target units (water in transit at the start included)"),
         Column("routed_out_mw", "MW", "leaving into routes of every kind, source's stored MWh per step / step hours"),
+        Column("supply_in_mw", "MW", "the store's own supply (a river's natural inflow), stored MWh per step / step hours; 0 without one"),
     ),
     "supply": (
         Column("available_mw", "MW", "the supply's profile: used + curtailed"),

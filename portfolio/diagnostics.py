@@ -210,3 +210,4 @@ UnusedConnection = _kind("P508", WARNING, "a connection has no site attached", "
 EmptySite = _kind("P509", WARNING, "a site has no storage, supply or demand", "EmptySite")
 RouteToSelf = _kind("P510", ERROR, "a route leads from a storage back to itself", "RouteToSelf")
 SupplyTargetElsewhere = _kind("P511", ERROR, "a supply is sent into a storage at another site", "SupplyTargetElsewhere")
+SourceChargeMismatch = _kind("P512", ERROR, "a store's charging sources and the supplies fed into it disagree ('charge off' with a supply into it, or 'charge only from' naming a supply that does not feed it)", "SourceChargeMismatch")

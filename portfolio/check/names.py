@@ -10,7 +10,7 @@ import difflib
 from dataclasses import dataclass
 from typing import Dict, Optional, Tuple
 
-from ..diagnostics import DuplicateName, NameCaseClash, NameTooLong, ReservedName, Sink, UnknownName, WrongNameKind
+from ..diagnostics import DuplicateName, DuplicateSetting, NameCaseClash, NameTooLong, ReservedName, Sink, UnknownName, WrongNameKind
 from ..contract import RESERVED_NAMES
 from ..spans import Span
 from .tree import Word
@@ -92,3 +92,18 @@ class Names:
                           f"note: '{nm}' is declared at {d.span}")
             return None
         return nm
+
+
+def listed_once(sink: Sink, named) -> list:
+    """The names of a written list, in order, each once: ``named`` holds (name, span)
+    pairs (name None where it did not resolve, already reported); a repeat is ``P203``."""
+    out, seen = [], set()
+    for nm, span in named:
+        if nm is None:
+            continue
+        if nm in seen:
+            sink.add(DuplicateSetting, span, f"'{nm}' is listed twice")
+            continue
+        seen.add(nm)
+        out.append(nm)
+    return out

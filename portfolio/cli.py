@@ -17,7 +17,8 @@ from typing import List, Optional
 
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
-from .cli_output import Progress, explain_failure, print_assets, print_result, status_line
+from .cli_output import (Progress, explain_failure, print_assets, print_marginal, print_result,
+                         status_line)
 from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
@@ -84,6 +85,10 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--window-end", choices=("value", "target"), default="value",
                    help="how a window that is not the last treats its end: value what is left at the "
                         "LP's marginal value (default) or reach the LP's state of charge")
+    d.add_argument("--marginal-values", action="store_true",
+                   help="also value one more MW of every power limit and one more MWh of every "
+                        "storage's upper state of charge, per step, with the on/off decisions held "
+                        "(marginal_values.csv; see docs/marginal-values.md)")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
     d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
@@ -206,6 +211,11 @@ def cmd_dispatch(args, out, err) -> int:
     if code is not None:
         return code
     spec = None
+    if args.marginal_values and args.windows is not None:
+        from .marginal import windows_refusal
+        print(printable(f"portfolio: error: {windows_refusal()}; nothing was dispatched or written"),
+              file=err)
+        return EXIT_USAGE
     if args.windows is not None:
         from .windows import WindowsError, parse, plan
         try:
@@ -247,6 +257,9 @@ def cmd_dispatch(args, out, err) -> int:
         else:
             from .windows import dispatch_windows
             result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows)
+        if args.marginal_values:
+            from .marginal import attach
+            attach(result, options)      # never raises for a dispatch without a schedule
     finally:
         progress.close()
     status = result.status
@@ -264,6 +277,7 @@ def cmd_dispatch(args, out, err) -> int:
         if spec is not None:
             _print_windows(result, out)
         if not args.quiet:
+            print_marginal(result, out)
             from .contract import CAUTION   # one wording for the terminal and summary.json
             print_assets(result, out)
             print(printable(f"schedule written to {out_dir}/"), file=out)
@@ -276,6 +290,9 @@ def cmd_dispatch(args, out, err) -> int:
             written = f"portfolio: could not write the summary to '{out_dir}': {e}"
         print_result(result, out)
         explain_failure(result, err)
+        mv = result.summary.get("marginal_values")
+        if mv:
+            print(printable(f"portfolio: {mv['message']}"), file=err)
         print(printable(written), file=err)
     return exit_code(status)
 

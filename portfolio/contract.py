@@ -8,6 +8,9 @@
   one asset's entry.
 * :data:`RESERVED_NAMES`: names an asset may not take (they are output files).
 * :data:`CAUTION`: the one wording of the caution, for summary.json and the terminal.
+* :data:`MARGINAL_LIMITS`, :data:`MARGINAL_KEYS`, :data:`MARGINAL_LIMIT_KEYS`,
+  :func:`marginal_column`: the marginal values (``marginal_values.csv`` and
+  the ``marginal_values`` key of summary.json).
 * Output folder: :data:`MARKER`, :data:`FORMATS`, :data:`WIDE`, :data:`SUMMARY_FILE`,
   :func:`table_file`.
 
@@ -101,10 +104,39 @@ SUMMARY_KEYS = (
     "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
 )
 OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
-                         "windows")          # dispatch by windows only (docs/windows.md)
+                         "windows",          # dispatch by windows only (docs/windows.md)
+                         "marginal_values")  # when asked for (docs/marginal-values.md)
 WINDOW_KEYS = ("commit_h", "overlap_h", "end", "count", "lp_bound", "lp_seconds", "stitched_objective",
                "gap", "max_violation", "worst", "seconds", "windows")
 WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>
+
+# -- marginal values (dispatch --marginal-values; docs/marginal-values.md) --------------------
+
+MARGINAL_TABLE = "marginal_values"     # its file: marginal_values.<format>
+# per summary section, the limits valued: the model's field names, each a column
+# <asset>.<limit> of marginal_values.csv (as schedule.csv's <name>.<column>)
+def _power_limits(owner: str, *limits: str) -> Tuple[Column, ...]:
+    return tuple(Column(f"{lim}_max", "money/MW", f"one more MW of the {owner}'s {lim} limit in this "
+                                                  f"step alone") for lim in limits)
+
+
+MARGINAL_LIMITS: Mapping[str, Tuple[Column, ...]] = {
+    "connections": _power_limits("connection", "export", "import"),
+    "sites": _power_limits("site", "export", "import"),
+    "storages": _power_limits("storage", "charge", "discharge") + (
+        Column("soc_max", "money/MWh", "one more MWh of the upper state-of-charge limit at the end of this step alone"),
+    ),
+}
+MARGINAL_KEYS = ("status", "message", "objective", "lp_objective", "fixed_binaries", "degenerate",
+                 "seconds", "energy_capacity", "limits", "notes")
+MARGINAL_LIMIT_KEYS = ("group", "asset", "limit", "unit", "declared", "horizon", "largest",
+                       "largest_at", "binding_steps", "families", "path", "line", "column")
+
+
+def marginal_column(asset: str, limit: str) -> str:
+    """A column of marginal_values.csv."""
+    return f"{asset}.{limit}"
+
 
 # summary section -> the table kind of its assets
 ASSET_GROUPS: Mapping[str, str] = {

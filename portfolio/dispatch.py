@@ -82,6 +82,7 @@ class DispatchResult:
     portfolio: Optional[Portfolio] = field(default=None, repr=False)
     built: Optional[Built] = field(default=None, repr=False)
     windows: Optional[pd.DataFrame] = None     # dispatch by windows: the per-window table
+    marginal_values: Optional[pd.DataFrame] = None   # when asked for: portfolio.marginal.attach
 
     @property
     def has_schedule(self) -> bool:

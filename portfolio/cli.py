@@ -92,6 +92,11 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
     d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
+    d.add_argument("--report", action="store_true",
+                   help="also write report.html into the output folder (see 'portfolio report')")
+
+    rp = sub.add_parser("report", help="write DIR/report.html: one self-contained page of a dispatch's output folder")
+    rp.add_argument("folder", metavar="DIR", help="the output folder of a dispatch (its --out)")
 
     gr = sub.add_parser("graph", help="draw the portfolio's network (SVG, PNG or DOT)")
     gr.add_argument("file", metavar="FILE")
@@ -107,6 +112,7 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
         args = build_parser().parse_args(argv)
     except SystemExit as e:
         return int(e.code) if isinstance(e.code, int) else EXIT_USAGE
+    args.argv = ["portfolio", *(sys.argv[1:] if argv is None else argv)]   # provenance
     try:
         if args.command == "lint":
             return cmd_lint(args, out, err)
@@ -116,6 +122,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_dispatch(args, out, err)
         if args.command == "graph":
             return cmd_graph(args, out, err)
+        if args.command == "report":
+            return cmd_report(args, out, err)
     except KeyboardInterrupt:
         print("portfolio: interrupted", file=err)
         return 130
@@ -263,7 +271,9 @@ def cmd_dispatch(args, out, err) -> int:
     finally:
         progress.close()
     status = result.status
+    from .provenance import with_command
     from .writers import OutputFolderError
+    with_command(result.summary, args.argv)
     if status in ("optimal", "feasible"):
         # written first: a closed or full terminal must not cost the schedule
         formats = ("csv", "parquet") if args.parquet else ("csv",)
@@ -282,6 +292,8 @@ def cmd_dispatch(args, out, err) -> int:
             print_assets(result, out)
             print(printable(f"schedule written to {out_dir}/"), file=out)
             print(f"caution: {CAUTION}", file=out)
+        if args.report:
+            return _report_after(out_dir, out, err, args.quiet) or exit_code(status)
     else:
         try:   # no schedule, but the summary (status, limits that gave) for tools to read
             result.write(out_dir)
@@ -294,7 +306,35 @@ def cmd_dispatch(args, out, err) -> int:
         if mv:
             print(printable(f"portfolio: {mv['message']}"), file=err)
         print(printable(written), file=err)
+        if args.report and written.startswith("summary"):
+            return _report_after(out_dir, out, err, args.quiet) or exit_code(status)
     return exit_code(status)
+
+
+def _report_after(out_dir: Path, out, err, quiet: bool) -> int:
+    """``dispatch --report``: the report straight after the output folder; 0, or EXIT_USAGE."""
+    from .report import ReportError, write_report
+    try:
+        rep = write_report(out_dir)
+    except ReportError as e:
+        print(printable(f"portfolio: error: no report: {e}"), file=err)
+        return EXIT_USAGE
+    if not quiet:
+        print(printable(f"report written to {rep.path}"), file=out)
+    return 0
+
+
+def cmd_report(args, out, err) -> int:
+    from .report import ReportError, write_report
+    try:
+        rep = write_report(Path(args.folder))
+    except ReportError as e:
+        print(printable(f"portfolio: error: {e}; no report written"), file=err)
+        return EXIT_USAGE
+    what = ("" if rep.status in ("optimal", "feasible")
+            else f" (status {rep.status}: no schedule; the page says why)")
+    print(printable(f"report written to {rep.path}{what}"), file=out)
+    return EXIT_OK
 
 
 def _print_windows(result, out) -> None:

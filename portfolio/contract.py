@@ -102,7 +102,13 @@ SUMMARY_KEYS = (
     "polish_seconds", "time_limit", "certificate", "polish", "tie_break", "steps", "step_hours",
     "start", "zone", "portfolio", "variant", "warm_start", "solver_status", "model", "caution",
     "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
+    "provenance", "network",
 )
+# summary["provenance"]: where the result came from (portfolio/provenance.py); a summary
+# without it was written by an older version (the report refuses it)
+PROVENANCE_KEYS = ("tool_version", "highs_version", "inputs", "command", "started_utc")
+# summary["network"]: who is where, and the limits a report draws against
+NETWORK_KEYS = ("sites", "connections", "storages")
 OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
                          "windows",          # dispatch by windows only (docs/windows.md)
                          "marginal_values")  # when asked for (docs/marginal-values.md)
@@ -161,6 +167,7 @@ MARKER = ".portfolio-output"       # lists the files this tool wrote; its presen
 FORMATS = ("csv", "parquet")
 WIDE = "schedule"                  # every table in one: schedule.<format>
 SUMMARY_FILE = "summary.json"
+REPORT_FILE = "report.html"        # `portfolio report DIR` (portfolio/report/), listed in the marker
 RESERVED_NAMES = (WIDE, "summary")  # an asset so named would clash with an output file
 
 

@@ -247,6 +247,9 @@ def _turn(parent: Path, name: str):
         os.close(fd)          # releases the lock
 
 
+folder_turn = _turn     # for portfolio.report: a report and a dispatch of one folder take turns
+
+
 def check_output_folder(out_dir, portfolio) -> None:
     """Before a (possibly long) solve: would :func:`write` accept ``out_dir``?
 

@@ -17,7 +17,8 @@ from typing import List, Optional
 
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
-from .cli_output import Progress, explain_failure, print_assets, print_result, status_line
+from .cli_output import (Progress, explain_failure, print_assets, print_marginal, print_result,
+                         status_line)
 from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
@@ -93,9 +94,18 @@ def build_parser() -> argparse.ArgumentParser:
                         "commits --commit of it; see docs/windows.md")
     d.add_argument("--commit", metavar="DURATION", default=None,
                    help="with --foresight: the hours each window keeps (default 1d)")
+    d.add_argument("--marginal-values", action="store_true",
+                   help="also value one more MW of every power limit and one more MWh of every "
+                        "storage's upper state of charge, per step, with the on/off decisions held "
+                        "(marginal_values.csv; see docs/marginal-values.md)")
     d.add_argument("--parquet", action="store_true", help="also write Parquet files beside the CSVs")
     d.add_argument("--quiet", "-q", action="store_true", help="print only the status line")
     d.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
+    d.add_argument("--report", action="store_true",
+                   help="also write report.html into the output folder (see 'portfolio report')")
+
+    rp = sub.add_parser("report", help="write DIR/report.html: one self-contained page of a dispatch's output folder")
+    rp.add_argument("folder", metavar="DIR", help="the output folder of a dispatch (its --out)")
 
     gr = sub.add_parser("graph", help="draw the portfolio's network (SVG, PNG or DOT)")
     gr.add_argument("file", metavar="FILE")
@@ -111,6 +121,7 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
         args = build_parser().parse_args(argv)
     except SystemExit as e:
         return int(e.code) if isinstance(e.code, int) else EXIT_USAGE
+    args.argv = ["portfolio", *(sys.argv[1:] if argv is None else argv)]   # provenance
     try:
         if args.command == "lint":
             return cmd_lint(args, out, err)
@@ -120,6 +131,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_dispatch(args, out, err)
         if args.command == "graph":
             return cmd_graph(args, out, err)
+        if args.command == "report":
+            return cmd_report(args, out, err)
     except KeyboardInterrupt:
         print("portfolio: interrupted", file=err)
         return 130
@@ -214,6 +227,11 @@ def cmd_dispatch(args, out, err) -> int:
     r, code = _lint_first(args.file, err, "nothing was dispatched or written", args.confine)
     if code is not None:
         return code
+    if args.marginal_values and (args.windows is not None or args.foresight is not None):
+        from .marginal import windows_refusal
+        print(printable(f"portfolio: error: {windows_refusal()}; nothing was dispatched or written"),
+              file=err)
+        return EXIT_USAGE
     spec, problem = _windows_spec(args, r.portfolio.horizon)
     if problem:
         print(printable(f"portfolio: error: {problem}; nothing was dispatched or written"), file=err)
@@ -250,10 +268,15 @@ def cmd_dispatch(args, out, err) -> int:
         else:
             from .windows import dispatch_windows
             result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows)
+        if args.marginal_values:
+            from .marginal import attach
+            attach(result, options)      # never raises for a dispatch without a schedule
     finally:
         progress.close()
     status = result.status
+    from .provenance import with_command
     from .writers import OutputFolderError
+    with_command(result.summary, args.argv)
     if status in ("optimal", "feasible"):
         # written first: a closed or full terminal must not cost the schedule
         formats = ("csv", "parquet") if args.parquet else ("csv",)
@@ -267,10 +290,13 @@ def cmd_dispatch(args, out, err) -> int:
         if spec is not None:
             _print_windows(result, out)
         if not args.quiet:
+            print_marginal(result, out)
             from .contract import CAUTION   # one wording for the terminal and summary.json
             print_assets(result, out)
             print(printable(f"schedule written to {out_dir}/"), file=out)
             print(f"caution: {CAUTION}", file=out)
+        if args.report:
+            return _report_after(out_dir, out, err, args.quiet) or exit_code(status)
     else:
         try:   # no schedule, but the summary (status, limits that gave) for tools to read
             result.write(out_dir)
@@ -279,7 +305,12 @@ def cmd_dispatch(args, out, err) -> int:
             written = f"portfolio: could not write the summary to '{out_dir}': {e}"
         print_result(result, out)
         explain_failure(result, err)
+        mv = result.summary.get("marginal_values")
+        if mv:
+            print(printable(f"portfolio: {mv['message']}"), file=err)
         print(printable(written), file=err)
+        if args.report and written.startswith("summary"):
+            return _report_after(out_dir, out, err, args.quiet) or exit_code(status)
     return exit_code(status)
 
 
@@ -312,6 +343,32 @@ def _windows_spec(args, horizon):
     except WindowsError as e:
         return None, str(e)
     return spec, None
+
+
+def _report_after(out_dir: Path, out, err, quiet: bool) -> int:
+    """``dispatch --report``: the report straight after the output folder; 0, or EXIT_USAGE."""
+    from .report import ReportError, write_report
+    try:
+        rep = write_report(out_dir)
+    except ReportError as e:
+        print(printable(f"portfolio: error: no report: {e}"), file=err)
+        return EXIT_USAGE
+    if not quiet:
+        print(printable(f"report written to {rep.path}"), file=out)
+    return 0
+
+
+def cmd_report(args, out, err) -> int:
+    from .report import ReportError, write_report
+    try:
+        rep = write_report(Path(args.folder))
+    except ReportError as e:
+        print(printable(f"portfolio: error: {e}; no report written"), file=err)
+        return EXIT_USAGE
+    what = ("" if rep.status in ("optimal", "feasible")
+            else f" (status {rep.status}: no schedule; the page says why)")
+    print(printable(f"report written to {rep.path}{what}"), file=out)
+    return EXIT_OK
 
 
 def _print_windows(result, out) -> None:

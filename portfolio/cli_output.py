@@ -88,6 +88,51 @@ def print_assets(result, out) -> None:
         console.print(table)
 
 
+MARGINAL_SHOWN = 10      # rows of the largest marginal values the terminal shows
+
+
+def print_marginal(result, out) -> None:
+    """The largest marginal values (per limit and step) and what they mean, or why there are none."""
+    mv = result.summary.get("marginal_values")
+    if not mv:
+        return
+    if mv["status"] != "computed":
+        print(printable(f"note: {mv['message']}"), file=out)
+        return
+    for note in mv.get("notes", ()):
+        print(printable(f"note: marginal values: {note}"), file=out)
+    table = getattr(result, "marginal_values", None)
+    cells = []
+    if table is not None:
+        for col in table.columns:
+            for when, v in table[col].items():
+                if v:
+                    cells.append((abs(v), col, when, v))
+    cells.sort(key=lambda c: (-c[0], c[1], c[2]))
+    cap = mv.get("energy_capacity") or {}
+    if not cells:
+        print("marginal values: no limit binds (every value is 0); per step: marginal_values.csv", file=out)
+    else:
+        from rich.console import Console
+        from rich.table import Table
+
+        from .contract import marginal_column
+
+        units = {marginal_column(lim["asset"], lim["limit"]): lim["unit"] for lim in mv["limits"]}
+        print(printable(f"marginal values: one more unit of a limit in one step, on/off decisions "
+                        f"held; largest {min(len(cells), MARGINAL_SHOWN)} of {len(cells)}, all in "
+                        f"marginal_values.csv"), file=out)
+        t = Table(show_edge=False)
+        for name, just in (("limit", "left"), ("step", "left"), ("value", "right"), ("unit", "left")):
+            t.add_column(name, justify=just)
+        for _, col, when, v in cells[:MARGINAL_SHOWN]:
+            t.add_row(printable(col), when.isoformat(), f"{v:,.3f}", units.get(col, ""))
+        Console(file=out, width=120, highlight=False).print(t)
+    for name, v in cap.items():
+        print(printable(f"one more MWh of storage {name}'s upper state of charge, every step: {v:,.3f}"),
+              file=out)
+
+
 def _num(x) -> str:
     if x is None:
         return ""

@@ -8,6 +8,9 @@
   one asset's entry.
 * :data:`RESERVED_NAMES`: names an asset may not take (they are output files).
 * :data:`CAUTION`: the one wording of the caution, for summary.json and the terminal.
+* :data:`MARGINAL_LIMITS`, :data:`MARGINAL_KEYS`, :data:`MARGINAL_LIMIT_KEYS`,
+  :func:`marginal_column`: the marginal values (``marginal_values.csv`` and
+  the ``marginal_values`` key of summary.json).
 * Output folder: :data:`MARKER`, :data:`FORMATS`, :data:`WIDE`, :data:`SUMMARY_FILE`,
   :func:`table_file`.
 
@@ -50,6 +53,7 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("mode", "-", "charge, discharge, idle, or both (tolerance 1e-6 MW)"),
         Column("routed_in_mw", "MW", "arriving from routes, target units (water in transit at the start included)"),
         Column("routed_out_mw", "MW", "leaving into routes of every kind, source's stored MWh per step / step hours"),
+        Column("supply_in_mw", "MW", "the store's own supply (a river's natural inflow), stored MWh per step / step hours; 0 without one"),
     ),
     "supply": (
         Column("available_mw", "MW", "the supply's profile: used + curtailed"),
@@ -98,13 +102,48 @@ SUMMARY_KEYS = (
     "polish_seconds", "time_limit", "certificate", "polish", "tie_break", "steps", "step_hours",
     "start", "zone", "portfolio", "variant", "warm_start", "solver_status", "model", "caution",
     "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
+    "provenance", "network",
 )
+# summary["provenance"]: where the result came from (portfolio/provenance.py); a summary
+# without it was written by an older version (the report refuses it)
+PROVENANCE_KEYS = ("tool_version", "highs_version", "inputs", "command", "started_utc")
+# summary["network"]: who is where, and the limits a report draws against
+NETWORK_KEYS = ("sites", "connections", "storages")
 OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
-                         "windows")          # dispatch by windows only (docs/windows.md)
+                         "windows",          # dispatch by windows only (docs/windows.md)
+                         "marginal_values")  # when asked for (docs/marginal-values.md)
 WINDOW_KEYS = ("commit_h", "overlap_h", "end", "foresight_h", "workers", "count", "lp_bound",
                "lp_seconds", "stitched_objective", "gap", "ratio_to_bound", "resolved",
                "max_violation", "worst", "seconds", "windows")
 WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>
+
+# -- marginal values (dispatch --marginal-values; docs/marginal-values.md) --------------------
+
+MARGINAL_TABLE = "marginal_values"     # its file: marginal_values.<format>
+# per summary section, the limits valued: the model's field names, each a column
+# <asset>.<limit> of marginal_values.csv (as schedule.csv's <name>.<column>)
+def _power_limits(owner: str, *limits: str) -> Tuple[Column, ...]:
+    return tuple(Column(f"{lim}_max", "money/MW", f"one more MW of the {owner}'s {lim} limit in this "
+                                                  f"step alone") for lim in limits)
+
+
+MARGINAL_LIMITS: Mapping[str, Tuple[Column, ...]] = {
+    "connections": _power_limits("connection", "export", "import"),
+    "sites": _power_limits("site", "export", "import"),
+    "storages": _power_limits("storage", "charge", "discharge") + (
+        Column("soc_max", "money/MWh", "one more MWh of the upper state-of-charge limit at the end of this step alone"),
+    ),
+}
+MARGINAL_KEYS = ("status", "message", "objective", "lp_objective", "fixed_binaries", "degenerate",
+                 "seconds", "energy_capacity", "limits", "notes")
+MARGINAL_LIMIT_KEYS = ("group", "asset", "limit", "unit", "declared", "horizon", "largest",
+                       "largest_at", "binding_steps", "families", "path", "line", "column")
+
+
+def marginal_column(asset: str, limit: str) -> str:
+    """A column of marginal_values.csv."""
+    return f"{asset}.{limit}"
+
 
 # summary section -> the table kind of its assets
 ASSET_GROUPS: Mapping[str, str] = {
@@ -129,6 +168,7 @@ MARKER = ".portfolio-output"       # lists the files this tool wrote; its presen
 FORMATS = ("csv", "parquet")
 WIDE = "schedule"                  # every table in one: schedule.<format>
 SUMMARY_FILE = "summary.json"
+REPORT_FILE = "report.html"        # `portfolio report DIR` (portfolio/report/), listed in the marker
 RESERVED_NAMES = (WIDE, "summary")  # an asset so named would clash with an output file
 
 

@@ -193,6 +193,10 @@ SeriesEmpty = _kind("P409", ERROR, "a series file has no data rows", "SeriesEmpt
 SeriesNegative = _kind("P410", ERROR, "a power profile has negative values", "SeriesNegative")
 SeriesImplausible = _kind("P411", ERROR, "a series has values beyond any plausible plant or market", "SeriesImplausible")
 SeriesOutsideFolder = _kind("P412", ERROR, "confined mode: a series file lies outside the portfolio's folder", "SeriesOutsideFolder")
+SeriesRowTooLong = _kind("P413", ERROR, "a CSV data row has more fields than the header (a decimal comma is named as such)", "SeriesRowTooLong")
+SeriesRowTooShort = _kind("P414", ERROR, "a CSV data row has fewer fields than the header, though the cells a series reads are there", "SeriesRowTooShort")
+SeriesGap = _kind("P415", ERROR, "a regular series misses rows inside the horizon (say 'gaps hold' or 'gaps interpolate' to fill them)", "SeriesGap")
+SeriesGapFilled = _kind("P416", WARNING, "missing rows of a regular series were filled as its 'gaps' option says", "SeriesGapFilled")
 
 # --- P5xx: topology -----------------------------------------------------------
 NoPathToGrid = _kind("P501", ERROR, "a storage or supply has no path to any connection or demand", "NoPathToGrid")
@@ -206,3 +210,4 @@ UnusedConnection = _kind("P508", WARNING, "a connection has no site attached", "
 EmptySite = _kind("P509", WARNING, "a site has no storage, supply or demand", "EmptySite")
 RouteToSelf = _kind("P510", ERROR, "a route leads from a storage back to itself", "RouteToSelf")
 SupplyTargetElsewhere = _kind("P511", ERROR, "a supply is sent into a storage at another site", "SupplyTargetElsewhere")
+SourceChargeMismatch = _kind("P512", ERROR, "a store's charging sources and the supplies fed into it disagree ('charge off' with a supply into it, or 'charge only from' naming a supply that does not feed it)", "SourceChargeMismatch")

@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from . import diagnostics as dg
+from . import provenance as prov
 from .compile import Built, build
 from .model import Portfolio
 from .contract import CAUTION
@@ -82,6 +83,7 @@ class DispatchResult:
     portfolio: Optional[Portfolio] = field(default=None, repr=False)
     built: Optional[Built] = field(default=None, repr=False)
     windows: Optional[pd.DataFrame] = None     # dispatch by windows: the per-window table
+    marginal_values: Optional[pd.DataFrame] = None   # when asked for: portfolio.marginal.attach
 
     @property
     def has_schedule(self) -> bool:
@@ -148,6 +150,7 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
              progress: Optional[Progress] = None) -> DispatchResult:
     """Schedule ``p``; see the module docstring."""
     options = options or SolveOptions()
+    source = prov.collect(p)                   # the start time and the inputs as they are now
     deadline = Deadline(options.time_limit)    # every phase below counts against it
     built = build(p, variant=options.variant)
     sol = solve(built, options, progress, deadline=deadline)
@@ -182,7 +185,8 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     if status == INFEASIBLE_OR_UNBOUNDED:
         status = INFEASIBLE
 
-    return make_result(p, built, sol, status, options, relaxed, message, notes, explain_s)
+    return make_result(p, built, sol, status, options, relaxed, message, notes, explain_s,
+                       source=source)
 
 
 def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
@@ -199,6 +203,7 @@ def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
     cannot.  See docs/extending.md.
     """
     options = options or SolveOptions()
+    source = prov.collect(built.portfolio)
     deadline = Deadline(options.time_limit)
     sol = solve(built, options, progress, deadline=deadline)
     notes = list(sol.notes)
@@ -216,13 +221,16 @@ def dispatch_model(built: Built, options: Optional[SolveOptions] = None,
         notes.append("infeasible is HiGHS's claim for the changed model: a model changed in Pyomo "
                      "is not re-solved with slacks to name the limits that gave")
     return make_result(built.portfolio, built, sol, status, options, [], message, notes, 0.0,
-                   changed=True)
+                       changed=True, source=source)
 
 
 def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOptions,
             relaxed: List[Relaxation], message: str, notes: List[str], explain_s: float,
-            changed: bool = False) -> DispatchResult:
-    """The tables, the summary and the :class:`DispatchResult` of a solve."""
+            changed: bool = False, source: Optional[dict] = None) -> DispatchResult:
+    """The tables, the summary and the :class:`DispatchResult` of a solve.
+
+    ``source``: the provenance taken when the dispatch started
+    (:func:`portfolio.provenance.collect`; taken now when not given)."""
     index = p.horizon.index
     tables: Dict[str, pd.DataFrame] = {}
     schedule = None
@@ -262,6 +270,8 @@ def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOpti
     summary.update(parts)
     summary["relaxed"] = [r.to_dict() for r in relaxed]
     summary["notes"] = notes
+    summary["provenance"] = source if source is not None else prov.collect(p)
+    summary["network"] = prov.network(p, built.topology)
     if message:
         summary["message"] = message
     return DispatchResult(

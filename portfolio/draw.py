@@ -8,14 +8,13 @@ Writing is atomic (temporary file, then rename).
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 from typing import Dict, Tuple
 
 import networkx as nx
 
 from . import model as M
+from .files import replace_atomically
 from .topology import Topology
 
 # kind -> (matplotlib marker, fill colour, words for the legend)
@@ -190,16 +189,4 @@ def write_picture(g: nx.MultiDiGraph, path: Path) -> None:
         raise ValueError(f"cannot draw to '{path.name}': use a .svg, .png or .dot file name")
 
 
-def _atomic(path: Path, write) -> None:
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=path.parent or ".")
-    os.close(fd)
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+_atomic = replace_atomically     # portfolio.files: temporary file, flushed, renamed

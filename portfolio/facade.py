@@ -45,7 +45,8 @@ class LoadedPortfolio:
     def name(self) -> str:
         return self.model.name
 
-    def dispatch(self, options=None, progress=None, windows=None, foresight=None, **settings):
+    def dispatch(self, options=None, progress=None, windows=None, foresight=None,
+                 marginal_values=False, **settings):
         """Schedule the portfolio; see :func:`portfolio.dispatch.dispatch`.
 
         ``settings`` build the options when none are given:
@@ -61,7 +62,23 @@ class LoadedPortfolio:
         seconds, objective)`` after each window, ``time_limit`` applies to
         each window, and a bad setting raises
         :class:`portfolio.windows.WindowsError` (a coded message).
+
+        ``marginal_values=True``: also value one more MW (MWh) of every
+        limit (:meth:`marginal_values`, docs/marginal-values.md): the result's
+        ``marginal_values`` table and its summary's ``marginal_values`` key,
+        both written by ``result.write``.  With ``windows`` or ``foresight`` it
+        raises :class:`portfolio.marginal.MarginalValuesError` before anything
+        is solved.
         """
+        if marginal_values:
+            if windows not in (None, False) or foresight not in (None, False):
+                from .marginal import MarginalValuesError, windows_refusal
+                raise MarginalValuesError(windows_refusal())
+            from .dispatch import dispatch
+            options = _options(options, settings)
+            result = dispatch(self.model, options, progress=progress)
+            self.marginal_values(result, options)
+            return result
         if foresight is not None and foresight is not False:
             from .windows import Foresight, dispatch_windows
             from .windows import foresight as read
@@ -77,6 +94,25 @@ class LoadedPortfolio:
             return dispatch_windows(self.model, spec, _options(options, settings), progress=progress)
         from .dispatch import dispatch
         return dispatch(self.model, _options(options, settings), progress=progress)
+
+    def marginal_values(self, result, options=None):
+        """What one more MW of each connection's and site's export and import
+        limit and of each storage's charge and discharge limit is worth, per
+        step, and one more MWh of its upper state of charge: the duals of the
+        LP left when the on/off decisions of ``result`` (a dispatch of this
+        portfolio) are held (:mod:`portfolio.marginal`, docs/marginal-values.md).
+
+        Returns a :class:`portfolio.marginal.MarginalValues` (``computed``
+        False, with a message, for a dispatch without a schedule) and adds it
+        to ``result`` (``result.marginal_values``, the table;
+        ``result.summary["marginal_values"]``), so ``result.write`` writes it.
+        Raises :class:`portfolio.marginal.MarginalValuesError` for a dispatch
+        by windows or a model changed in Pyomo.
+        """
+        from .marginal import attach
+        if result.portfolio is not self.model:
+            raise ValueError("marginal_values() takes a dispatch result of this portfolio")
+        return attach(result, options)
 
     def graph(self):
         """The network graph (:func:`portfolio.graph.build_graph`)."""

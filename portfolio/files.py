@@ -6,12 +6,16 @@ forever, a FIFO would block forever, ``/dev/urandom`` would fill the memory.
 So a file is opened without blocking, must be a regular file, and may hold
 at most :func:`limit_bytes` (256 MiB unless the environment variable
 ``PORTFOLIO_MAX_INPUT_MB`` says otherwise; docs/series.md).
+
+It also holds the one way to replace a single file atomically
+(:func:`replace_atomically`: a picture, a report page, a marker).
 """
 
 from __future__ import annotations
 
 import os
 import stat
+import tempfile
 from pathlib import Path
 from typing import Union
 
@@ -93,3 +97,29 @@ def outside(base_dir: Union[str, Path], written: str) -> Union[str, None]:
     if real != base and base not in real.parents:
         return "a symbolic link on the way leads out of the portfolio's folder"
     return None
+
+
+def replace_atomically(path: Union[str, Path], write) -> None:
+    """Make ``path`` by ``write(tmp)`` into a temporary file beside it, flushed to disk
+    and renamed over it: a reader sees the old file or the new one, never half of one.
+    The temporary file is removed when ``write`` fails."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
+    os.close(fd)
+    try:
+        write(tmp)
+        fd = os.open(tmp, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)          # as a plain new file would be, not mkstemp's 0600
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise

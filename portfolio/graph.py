@@ -101,7 +101,7 @@ def network(p: M.Portfolio) -> Network:
         g.add_node(k.name, kind="storage", span=k.span, decl=k, storage_kind=k.kind, site=k.site)
         if k.discharge_max > 0:
             g.add_edge(k.name, k.site, key="discharge", span=k.where("discharge_max"), limit=k.discharge_max)
-        if k.charge_max > 0:
+        if k.charge_max > 0 and k.charge_sources is None:   # charging only from sources: no draw from the site
             g.add_edge(k.site, k.name, key="charge", span=k.where("charge_max"), limit=k.charge_max)
         if k.supply:
             g.add_node(k.supply, kind="supply", span=k.where("supply"), decl=None, natural=True)

@@ -165,6 +165,13 @@ class Storage(Decl):
     supply: Optional[str] = None         # power Series of natural supply (MW)
     spill_allowed: bool = False
     spill_max: Optional[float] = None    # MW equivalent, None = unlimited
+    # 'charge only from A, B': the supplies fed straight in that may charge the store; never
+    # the site (so never the grid).  None: any (the site and every supply fed into it).
+    charge_sources: Optional[tuple] = None
+    # 'cycles max N per day' / 'cycles max N': equivalent full cycles (discharged energy at the
+    # store side / usable capacity, soc_max - soc_min; :attr:`usable_mwh`).  None = no limit.
+    cycles_per_day: Optional[float] = None   # per calendar day of the horizon's zone (pro rata on part days)
+    cycles_horizon: Optional[float] = None   # over the whole horizon
     # The state carried in from before the horizon ('was ...'); None: not declared, so idle
     # and rested, and no ramp limit on the first step.
     prior_mode: Optional[str] = None     # PRIOR_IDLE, PRIOR_CHARGE or PRIOR_DISCHARGE
@@ -174,12 +181,28 @@ class Storage(Decl):
     arriving: tuple = ()                 # ((route name, (MWh arriving in step 0, 1, ...)), ...): water
     #                                      already on its way, fixed; replaces that route's in_transit
     stored_value: float = 0.0            # money per MWh left in store at the end (an objective term)
+    cycles_days: tuple = ()              # ((date, share, MWh), ...): per calendar day the window
+    #                                      touches, the share of it the WHOLE horizon covers and the
+    #                                      MWh drawn for discharge in it before the window's start
+    cycles_drawn_mwh: float = 0.0        # MWh drawn for discharge before the window's start
 
     def __post_init__(self) -> None:
         if not self.exclusive and rules_make_exclusive(self.charge_min, self.discharge_min,
                                                         self.min_run_h, self.min_rest_h):
             raise ValueError(f"storage {self.name!r}: a minimum output, run or rest makes the modes "
                              "exclusive; build it with exclusive=True (the checker does)")
+
+    @property
+    def usable_mwh(self) -> float:
+        """The energy one full cycle moves: the state-of-charge span, soc_max - soc_min (MWh)."""
+        return max(self.soc_max - self.soc_min, 0.0)
+
+    @property
+    def cycles(self) -> bool:
+        """Whether it makes sense to count its equivalent full cycles: the store can charge
+        (from its site or from supplies fed into it).  A store filled only by nature or
+        by routes (a reservoir with 'charge off') does not cycle; it has none."""
+        return self.charge_max > 0 and self.usable_mwh > 0
 
     @property
     def needs_modes(self) -> bool:

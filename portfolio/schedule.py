@@ -133,6 +133,7 @@ def _storage_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
             "mode": mode,
             "routed_in_mw": clean(flows.received[k] / dt),
             "routed_out_mw": clean(flows.sent[k] / dt),
+            "supply_in_mw": clean(p.profile(p.storages[k].supply)),
         }, index)
     for r in p.routes:
         tables[r.name] = frame("route", {"flow_mw": clean(flows.route_flow[r.name]),
@@ -183,8 +184,12 @@ def _summary_parts(acc: E.Values, p, topo, flows: _Flows, tables) -> dict:
         d, cs = clean(flows.discharge[k]), clean(flows.charge_site[k])
         rev = float(np.sum(dt * pr * (d - cs))) - s.wear * float(d.sum()) * dt
         e_out = float(d.sum()) * dt
-        storages[k] = _asset(rev, float(clean(flows.charge[k]).sum()) * dt, e_out,
-                             e_out / s.energy if s.energy > 0 else None,
+        # Equivalent full cycles (docs/model.md): MWh drawn from the store to discharge over
+        # its usable capacity, the definition the cycle limits use; none for a store that
+        # cannot charge (a reservoir filled by nature and routes does not cycle).
+        efc = (float(clean(acc.of(E.drawn_for_discharge(p, k))).sum()) * dt / s.usable_mwh
+               if s.cycles else None)
+        storages[k] = _asset(rev, float(clean(flows.charge[k]).sum()) * dt, e_out, efc,
                              0.0, float(clean(acc(E.SPILL, k)).sum()) * dt)
         storages[k][STORAGE_KEYS[-1]] = float(clean(acc(E.SOC, k))[-1]) if T else s.soc_start
         if s.site in site_rev:

@@ -217,6 +217,7 @@ EXPECTED_WORDS = {
     "RUNNING_MODE": "'charging' or 'discharging'",
     "SIGN": "'plus' or 'minus'",
     "ROUTE_KIND": "'release', 'spill' or 'transfer'",
+    "GAP_FILL": "'hold' or 'interpolate'",
     "$END": "the end of the file",
 }
 

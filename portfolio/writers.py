@@ -19,7 +19,7 @@ on release) is held from the temporary folder's creation to the rename, and
 whoever holds it removes temporary folders that a killed run left behind.
 
 Files (docs/outputs.md): ``<name>.csv`` per asset, ``schedule.csv`` (wide),
-``summary.json``, and with ``formats=("csv", "parquet")`` the same tables as
+``windows.csv`` and ``marginal_values.csv`` when there are such tables, ``summary.json``, and with ``formats=("csv", "parquet")`` the same tables as
 ``.parquet`` too.  File names, the marker, the formats and the reserved
 names are the results contract's (:mod:`portfolio.contract`).
 """
@@ -40,7 +40,8 @@ from typing import Iterable, List
 import numpy as np
 import pandas as pd
 
-from .contract import FORMATS, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE, WINDOWS_TABLE, table_file
+from .contract import (FORMATS, MARGINAL_TABLE, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE,
+                       WINDOWS_TABLE, table_file)
 
 
 class OutputFolderError(Exception):
@@ -91,15 +92,18 @@ def planned_files(result, formats: Iterable[str]) -> List[str]:
 
 
 def _extra(result) -> list:
-    """Tables beside the assets' (dispatch by windows: the per-window table)."""
-    windows = getattr(result, "windows", None)
-    return [(WINDOWS_TABLE, windows)] if windows is not None else []
+    """Tables beside the assets' (dispatch by windows: the per-window table; when asked
+    for: the marginal values)."""
+    extra = [(WINDOWS_TABLE, getattr(result, "windows", None)),
+             (MARGINAL_TABLE, getattr(result, "marginal_values", None))]
+    return [(name, df) for name, df in extra if df is not None]
 
 
 def _check_names(result) -> None:
     for name in (result.tables or {}):
         if name in dict(_extra(result)):
-            raise OutputFolderError(f'an asset is named "{name}", which clashes with the per-window '
+            what = "per-window" if name == WINDOWS_TABLE else "marginal values"
+            raise OutputFolderError(f'an asset is named "{name}", which clashes with the {what} '
                                     f"table {name}.csv; rename the asset")
         if name in RESERVED_NAMES:
             raise OutputFolderError(
@@ -241,6 +245,9 @@ def _turn(parent: Path, name: str):
         with contextlib.suppress(OSError):
             os.unlink(lock_path)
         os.close(fd)          # releases the lock
+
+
+folder_turn = _turn     # for portfolio.report: a report and a dispatch of one folder take turns
 
 
 def check_output_folder(out_dir, portfolio) -> None:

@@ -44,7 +44,7 @@ MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 # portfolio.schedule: if the writer's columns drift from the documented contract, the audit fails.
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "routed_in_mw", "routed_out_mw"],
+                "routed_in_mw", "routed_out_mw", "supply_in_mw"],
     "supply": ["available_mw", "used_mw", "curtailed_mw"],
     "demand": ["demand_mw"],
     "site": ["import_mw", "export_mw"],
@@ -240,6 +240,9 @@ class _Audit:
             self.at_most(n, "spill where spill is not allowed", q, 0.0)
         elif s.spill_max is not None:
             self.at_most(n, "spill above spill max", q, s.spill_max)
+        self.close(n, "supply_in_mw vs the store's own supply profile", self.col(n, "supply_in_mw"),
+                   self.p.profile(s.supply) if s.supply else np.zeros(self.T))
+        self.check_cycles(s, d)
         self.at_least(n, "soc below soc min", soc, s.soc_min)
         self.at_most(n, "soc above soc max", soc, s.soc_max)
         if self.T:
@@ -259,6 +262,27 @@ class _Audit:
             self.at_most(n, "ramp from the output before the horizon to the first step above the ramp limit",
                          abs(first - s.prior_net_mw), s.ramp_mw_per_h * self.dt,
                          scale=max(abs(first), abs(s.prior_net_mw)))
+
+    def check_cycles(self, s, d) -> None:
+        """docs/model.md: per local calendar day (a part day pro rata) and over the horizon."""
+        if s.cycles_per_day is None and s.cycles_horizon is None:
+            return
+        usable = s.soc_max - s.soc_min
+        drawn = d * self.dt / s.eta_discharge
+        if s.cycles_horizon is not None:
+            self.at_most(s.name, "equivalent full cycles over the horizon above the limit",
+                         float(drawn.sum()), s.cycles_horizon * usable, scale=float(drawn.sum()))
+        if s.cycles_per_day is not None:
+            local = pd.to_datetime(pd.Series(self.times), utc=True).dt.tz_convert(self.p.horizon.zone)
+            dates = local.dt.date.to_numpy()
+            for day in dict.fromkeys(dates):
+                members = dates == day
+                midnight = pd.Timestamp(day).tz_localize(self.p.horizon.zone)
+                after = (pd.Timestamp(day) + pd.Timedelta(days=1)).tz_localize(self.p.horizon.zone)
+                share = min(1.0, int(members.sum()) * self.dt / ((after - midnight) / pd.Timedelta(hours=1)))
+                got = float(drawn[members].sum())
+                self.at_most(s.name, f"equivalent full cycles on {day} above the daily limit",
+                             got, s.cycles_per_day * usable * share, scale=got)
 
     def check_modes(self, s) -> None:
         n = s.name
@@ -388,11 +412,17 @@ class _Audit:
 
         Per step, a flow problem: each supply's used power goes to its target
         stores (at most their total charge) or, if "site" is a target, to the site.
+        A store that charges only from its sources (``charge only from``) must get
+        ALL of its charge that way (none from the site, so none from the grid): its
+        edge to the sink has a lower bound equal to its charge.  Solved as a
+        circulation with lower bounds (each forced edge's amount moved to a super
+        source and sink): feasible iff the maximum flow saturates them.
         """
         import networkx as nx
         p = self.p
         infl = [i for i in p.supplies.values() if i.site == site.name and any(t != "site" for t in i.targets)]
-        if not infl:
+        only = [k for k in p.storages.values() if k.site == site.name and k.charge_sources is not None]
+        if not infl and not only:
             return
         for t in range(self.T):
             g = nx.DiGraph()
@@ -400,18 +430,31 @@ class _Audit:
             for i in infl:
                 u = max(float(self.col(i.name, "used_mw")[t]), 0.0)
                 need += u
-                g.add_edge("src", ("i", i.name), capacity=u)
+                g.add_edge("S", ("i", i.name), capacity=u)      # src -> supply, forced to u
                 for tg in i.targets:
                     if tg == "site":
                         g.add_edge(("i", i.name), "sink")     # unbounded: the site takes the rest
                     else:
                         g.add_edge(("i", i.name), ("k", tg))
-                        g.add_edge(("k", tg), "sink", capacity=max(float(self.col(tg, "charge_mw")[t]), 0.0))
-            got = nx.maximum_flow_value(g, "src", "sink")
-            if need - got > self.tol * max(1.0, need):
-                self.bad(f"{site.name}: at {self.times[t]} supplies fed straight into stores "
-                         f"({need:.9g} MW used) cannot be split among their targets "
-                         f"(at most {got:.9g} MW fits)")
+                        if p.storages[tg].charge_sources is None:
+                            g.add_edge(("k", tg), "sink",
+                                       capacity=max(float(self.col(tg, "charge_mw")[t]), 0.0))
+            g.add_edge("src", "T", capacity=need)
+            forced = 0.0
+            for k in only:
+                c = max(float(self.col(k.name, "charge_mw")[t]), 0.0)
+                forced += c
+                g.add_edge(("k", k.name), "T", capacity=c)     # store -> sink, forced to c
+            g.add_edge("S", "sink", capacity=forced)
+            g.add_edge("sink", "src")                           # the circulation closes
+            got = nx.maximum_flow_value(g, "S", "T")
+            if need + forced - got > self.tol * max(1.0, need + forced):
+                what = (f"supplies fed straight into stores ({need:.9g} MW used) cannot be split among their "
+                        f"targets" if not only else
+                        f"supplies fed straight into stores ({need:.9g} MW used) cannot be split among their "
+                        f"targets while the stores that charge only from them ({forced:.9g} MW) get all "
+                        f"their charge from them (some came from the grid)")
+                self.bad(f"{site.name}: at {self.times[t]} {what}")
                 return
 
     def check_connections(self) -> None:
@@ -490,8 +533,17 @@ class _Audit:
             self.money(s.name, "summary energy_in_mwh", e["energy_in_mwh"], float(c.sum()) * dt, c * dt)
             self.money(s.name, "summary energy_out_mwh", e["energy_out_mwh"], float(d.sum()) * dt, d * dt)
             self.money(s.name, "summary spilled_mwh", e["spilled_mwh"], float(q.sum()) * dt, q * dt)
-            self.money(s.name, "summary equivalent_full_cycles", e["equivalent_full_cycles"],
-                       float(d.sum()) * dt / s.energy, d * dt / s.energy)
+            # docs/model.md: equivalent full cycles = MWh drawn from the store to discharge
+            # (d / eta_discharge) over the usable capacity soc_max - soc_min; none for a store
+            # that cannot charge (or has no usable capacity)
+            usable = s.soc_max - s.soc_min
+            if s.charge_max > 0 and usable > 0:
+                drawn = d * dt / s.eta_discharge
+                self.money(s.name, "summary equivalent_full_cycles", e["equivalent_full_cycles"],
+                           float(drawn.sum()) / usable, drawn / usable)
+            elif e["equivalent_full_cycles"] is not None:
+                self.bad(f"{s.name}: summary equivalent_full_cycles is {e['equivalent_full_cycles']!r} "
+                         "for a store that does not cycle (it cannot charge)")
             if "soc_end_mwh" in e and T:
                 self.money(s.name, "summary soc_end_mwh", e["soc_end_mwh"],
                            float(self.col(s.name, "soc_mwh")[-1]), [self.col(s.name, "soc_mwh")[-1]])

@@ -76,6 +76,27 @@ def _safe_bound(p: Portfolio, conn_name: str) -> float:
     return total + 1.0
 
 
+def _local_days(p: Portfolio) -> Dict[object, list]:
+    """Steps by the local calendar date their start falls on (the horizon's zone)."""
+    import pandas as pd
+
+    starts = pd.date_range(pd.Timestamp(p.horizon.start).tz_convert("UTC"), periods=p.horizon.steps,
+                           freq=pd.Timedelta(hours=p.horizon.step_hours)).tz_convert(p.horizon.zone)
+    out: Dict[object, list] = {}
+    for t, ts in enumerate(starts):
+        out.setdefault(ts.date(), []).append(t)
+    return out
+
+
+def _day_share(zone: str, day, members, dt) -> float:
+    """Hours of the local day the horizon covers over the day's length (23, 24 or 25 h), at most 1."""
+    import pandas as pd
+
+    midnight = pd.Timestamp(day).tz_localize(zone)
+    next_midnight = (pd.Timestamp(day) + pd.Timedelta(days=1)).tz_localize(zone)
+    return min(1.0, len(members) * dt / ((next_midnight - midnight) / pd.Timedelta(hours=1)))
+
+
 def build_oracle(p: Portfolio):
     """The PuLP problem and its variables: ``(prob, var)``."""
     T, dt = p.horizon.steps, p.horizon.step_hours
@@ -115,7 +136,8 @@ def build_oracle(p: Portfolio):
     # -- storages: flows -----------------------------------------------------
     cs, d, q, c_total, soc = {}, {}, {}, {}, {}
     for k in p.storages.values():
-        cs[k.name] = cont("charge_site", k.name, hi=k.charge_max)
+        # 'charge only from ...': never from the site, so never from the grid
+        cs[k.name] = cont("charge_site", k.name, hi=0.0 if k.charge_sources is not None else k.charge_max)
         d[k.name] = cont("discharge", k.name, hi=k.discharge_max)
         q[k.name] = cont("spill", k.name, hi=(k.spill_max if k.spill_allowed else 0.0))
         soc[k.name] = cont("soc", k.name, lo=k.soc_min, hi=k.soc_max)
@@ -240,6 +262,21 @@ def build_oracle(p: Portfolio):
                 change = (dd[t] - c[t]) - (dd[t - 1] - c[t - 1])
                 add(change <= lim, f"ramp_up_{k.name}")
                 add(change >= -lim, f"ramp_down_{k.name}")
+
+    # -- cycle limits (docs/model.md): MWh drawn from the store to discharge, d / eta_discharge,
+    #    over the usable capacity soc_max - soc_min; per calendar day of the horizon's zone,
+    #    a part day pro rata (hours it covers / the day's length), and over the horizon.
+    for k in p.storages.values():
+        if k.cycles_per_day is None and k.cycles_horizon is None:
+            continue
+        usable = k.soc_max - k.soc_min
+        drawn = [d[k.name][t] * (dt / k.eta_discharge) for t in steps]
+        if k.cycles_horizon is not None:
+            add(pulp.lpSum(drawn) <= k.cycles_horizon * usable, f"cycles_all_{k.name}")
+        if k.cycles_per_day is not None:
+            for day, members in _local_days(p).items():
+                add(pulp.lpSum(drawn[t] for t in members) <= k.cycles_per_day * usable * _day_share(p.horizon.zone, day, members, dt),
+                    f"cycles_day_{k.name}")
 
     # -- sites, connections, cap ------------------------------------------------------
     se, si = {}, {}

@@ -5,21 +5,14 @@ from __future__ import annotations
 import io
 import json
 import shutil
+import sys
 from pathlib import Path
 
 import pandas as pd
 import pytest
 
-from portfolio.cli import main
-
-ROOT = Path(__file__).resolve().parent.parent
-DEMO = ROOT / "examples" / "kestrel_bay" / "kestrel_bay.folio"
-
-
-def run(*argv):
-    out, err = io.StringIO(), io.StringIO()
-    code = main(list(map(str, argv)), out=out, err=err)
-    return code, out.getvalue(), err.getvalue()
+sys.path.insert(0, str(Path(__file__).parent))
+from cli_support import DEMO, run  # noqa: E402
 
 
 @pytest.fixture(scope="module")

@@ -121,3 +121,16 @@ def test_a_table_off_the_contract_is_refused():
         C.frame("route", {"flow_mw": zeros}, index)
     with pytest.raises(KeyError):
         C.frame("route", {"flow_mw": zeros, "arriving_mw": zeros, "extra_mw": zeros}, index)
+
+
+def test_marginal_values_are_documented_limit_by_limit():
+    text = _section("### Marginal values (`marginal_values.csv`)")
+    rows = _rows(text)
+    want = [(g, c.name, c.unit, c.meaning) for g, cols in C.MARGINAL_LIMITS.items() for c in cols]
+    assert [(_ticked(r[0])[0], _ticked(r[1])[0], r[2], r[3]) for r in rows] == want
+    assert set(C.MARGINAL_LIMITS) <= set(C.ASSET_GROUPS)
+    prose = text.replace("\n", " ")
+    for key in C.MARGINAL_KEYS + C.MARGINAL_LIMIT_KEYS:
+        assert f"`{key}`" in prose, key
+    files = [k for r in _rows(_section("## Files")) for k in _ticked(r[0])]
+    assert C.table_file(C.MARGINAL_TABLE, "csv") in files

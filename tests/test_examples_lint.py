@@ -23,6 +23,19 @@ ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = sorted((ROOT / "examples").glob("*/*.folio"))
 
 EXPECTED = {
+    "plover_marsh": {
+        # park_cells charges only from reed_pv: no charge edge from the site
+        "nodes": {
+            "marsh_line": "connection", "marsh_park": "site", "park_cells": "storage",
+            "warranty_cells": "storage", "reed_pv": "supply",
+        },
+        "edges": [
+            ("marsh_park", "marsh_line", "export"), ("marsh_line", "marsh_park", "import"),
+            ("park_cells", "marsh_park", "discharge"),
+            ("marsh_park", "warranty_cells", "charge"), ("warranty_cells", "marsh_park", "discharge"),
+            ("reed_pv", "park_cells", "feed"), ("reed_pv", "marsh_park", "feed"),
+        ],
+    },
     "kestrel_bay": {
         "nodes": {
             "bay_feeder": "connection", "dune_works": "site", "cells": "storage",

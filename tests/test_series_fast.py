@@ -165,14 +165,18 @@ def csv_file(draw):
         lines.append(f"{stamp},{value}")
     if draw(st.integers(0, 6)) == 0:
         lines[draw(st.integers(1, rows))] = f"{draw(st.sampled_from(ODD_TIMES))},1"
+    if rows > 3 and draw(st.integers(0, 3)) == 0:     # a gap: rows left out (P415, or filled)
+        for _ in range(draw(st.integers(1, 2))):
+            del lines[draw(st.integers(2, len(lines) - 2))]
     return "\n".join(lines) + "\n", tail
 
 
-def _load(path: Path, zone: str, quantity: str):
+def _load(path: Path, zone: str, quantity: str, gaps=None):
     hz = Horizon(start=pd.Timestamp("2027-03-01T00:00", tz="UTC"), steps=4, step_hours=1.0,
                  zone=zone)
     sink = Sink()
-    spec = SeriesSpec(name="s", quantity=quantity, span=DECL, path=path.name, column="v")
+    spec = SeriesSpec(name="s", quantity=quantity, span=DECL, path=path.name, column="v",
+                      gaps=gaps, gaps_span=DECL if gaps else None)
     out = load_series([spec], hz, path.parent, sink)
     return ({k: (s.values.tolist(), s.origin) for k, s in out.items()},
             [d.to_dict() for d in sink.items])
@@ -180,16 +184,18 @@ def _load(path: Path, zone: str, quantity: str):
 
 @settings(max_examples=120, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(csv_file(), st.sampled_from(["UTC", "Europe/Berlin"]), st.sampled_from(["price", "power"]))
-def test_files_load_the_same_with_and_without_the_quick_way(tmp_path, monkeypatch, case, zone, quantity):
+@given(csv_file(), st.sampled_from(["UTC", "Europe/Berlin"]), st.sampled_from(["price", "power"]),
+       st.sampled_from([None, "hold", "interpolate"]))
+def test_files_load_the_same_with_and_without_the_quick_way(tmp_path, monkeypatch, case, zone, quantity,
+                                                            gaps):
     text, _ = case
     path = tmp_path / "data.csv"
     path.write_text(text)
-    quick = _load(path, zone, quantity)
+    quick = _load(path, zone, quantity, gaps)
     with monkeypatch.context() as m:
         m.setattr(fast, "times", lambda cells, zone: None)
         m.setattr(fast, "numbers", lambda cells: None)
-        careful = _load(path, zone, quantity)
+        careful = _load(path, zone, quantity, gaps)
     assert quick == careful
 
 

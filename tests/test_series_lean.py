@@ -68,6 +68,10 @@ def plain_csv(draw):
             cells.append(" " * draw(st.integers(0, 1)) + cell)
         if draw(st.integers(0, 40)) == 0:
             cells = cells[:draw(st.integers(1, len(cells)))]          # a short row
+        if draw(st.integers(0, 40)) == 0:
+            cells.append(draw(st.sampled_from(["5", "", " x"])))      # a long row (P413)
+        if k and draw(st.integers(0, 25)) == 0:
+            continue                                                  # a missing row (P415)
         lines.append(delim.join(cells))
         if draw(st.integers(0, 20)) == 0:
             lines.append(draw(st.sampled_from(["", "  ", "\t"])))      # a blank line
@@ -76,14 +80,15 @@ def plain_csv(draw):
 
 
 @settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(plain_csv(), st.sampled_from(["UTC", "Europe/Berlin"]))
-def test_lean_and_careful_readings_agree(tmp_path, monkeypatch, case, zone):
+@given(plain_csv(), st.sampled_from(["UTC", "Europe/Berlin"]), st.sampled_from([None, "hold", "interpolate"]))
+def test_lean_and_careful_readings_agree(tmp_path, monkeypatch, case, zone, gaps):
     text, ncols = case
     path = tmp_path / "data.csv"
     path.write_bytes(text.encode("ascii"))
     hz = Horizon(start=pd.Timestamp("2027-03-01T00:00", tz=zone), steps=2, step_hours=0.25, zone=zone)
     specs = [SeriesSpec(name=f"s{j}", quantity="power" if j % 2 else "price", span=DECL,
-                        path="data.csv", column=f"v{j}") for j in range(ncols)]
+                        path="data.csv", column=f"v{j}", gaps=gaps if j % 2 else None,
+                        gaps_span=DECL if gaps and j % 2 else None) for j in range(ncols)]
     specs.append(SeriesSpec(name="missing", quantity="price", span=DECL, path="data.csv",
                             column="nope"))
     lean = run(path, specs, hz, False, monkeypatch)

@@ -27,6 +27,7 @@ class Checker(Context):
             self.collect(st)
         found = self.build(stmts)
         routes = network.check_routes(self, found.pop("routes"), found["storages"])
+        network.check_charging_sources(self, found["storages"], found["supplies"])
         series = {}
         if self.horizon is not None:
             series = load_series(self.specs, self.horizon, self.base_dir, self.sink, confine=self.confine)

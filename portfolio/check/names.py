@@ -10,7 +10,7 @@ import difflib
 from dataclasses import dataclass
 from typing import Dict, Optional, Tuple
 
-from ..diagnostics import DuplicateName, NameCaseClash, NameTooLong, ReservedName, Sink, UnknownName, WrongNameKind
+from ..diagnostics import DuplicateName, DuplicateSetting, NameCaseClash, NameTooLong, ReservedName, Sink, UnknownName, WrongNameKind
 from ..contract import RESERVED_NAMES
 from ..spans import Span
 from .tree import Word
@@ -74,6 +74,11 @@ class Names:
         self._folded[name.casefold()] = name
         return True
 
+    def same_but_case(self, name: str) -> Optional[str]:
+        """The declared name that differs from ``name`` only in letter case, if any."""
+        other = self._folded.get(name.casefold())
+        return other if other is not None and other != name else None
+
     def ref(self, word: Word, want: Tuple[str, ...], what: str) -> Optional[str]:
         """The name ``word`` refers to, when it is declared as one of ``want``."""
         nm = word.text
@@ -87,3 +92,18 @@ class Names:
                           f"note: '{nm}' is declared at {d.span}")
             return None
         return nm
+
+
+def listed_once(sink: Sink, named) -> list:
+    """The names of a written list, in order, each once: ``named`` holds (name, span)
+    pairs (name None where it did not resolve, already reported); a repeat is ``P203``."""
+    out, seen = [], set()
+    for nm, span in named:
+        if nm is None:
+            continue
+        if nm in seen:
+            sink.add(DuplicateSetting, span, f"'{nm}' is listed twice")
+            continue
+        seen.add(nm)
+        out.append(nm)
+    return out

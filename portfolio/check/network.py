@@ -12,12 +12,12 @@ from typing import Dict, List, Optional, Tuple
 
 from .. import model as M
 from .. import units as U
-from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, ExportUnpriced, Implausible,
+from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, NameCaseClash, ExportUnpriced, Implausible,
                            ImportUnpriced, OutOfRange, RouteDuplicate, RouteKindMismatch, RouteToSelf,
-                           SpillNotAllowed, UnusedSetting)
+                           SourceChargeMismatch, SpillNotAllowed, UnusedSetting)
 from .context import Context
 from .horizon import MAX_STEPS
-from .names import a
+from .names import a, listed_once
 from .quantities import fmt
 from .sources import series_spec
 from .storage import check_storage
@@ -144,19 +144,8 @@ def check_supply(ck: Context, node: Block, site: str) -> M.Supply:
     spans = {}
     if "into" in s:
         spans["targets"] = s["into"].span
-        seen = set()
-        for t in s["into"].value:
-            if t.name is None:
-                tn = "site"
-            else:
-                tn = ck.names.ref(t.name, ("storage",), "storage")
-                if tn is None:
-                    continue
-            if tn in seen:
-                ck.sink.add(DuplicateSetting, t.span, f"'{tn}' is listed twice")
-                continue
-            seen.add(tn)
-            targets.append(tn)
+        targets = listed_once(ck.sink, (("site" if t.name is None else ck.names.ref(t.name, ("storage",), "storage"),
+                                         t.span) for t in s["into"].value))
     else:
         targets = ["site"]
     curtail = False
@@ -165,6 +154,50 @@ def check_supply(ck: Context, node: Block, site: str) -> M.Supply:
         spans["curtail_allowed"] = s["curtail"].span
     return M.Supply(name=nm, site=site, profile=nm, targets=tuple(targets), curtail_allowed=curtail,
                     span=node.span, spans=spans)
+
+
+# -- charging sources ------------------------------------------------------------------------
+
+def check_charging_sources(ck: Context, storages: Dict[str, M.Storage], supplies: Dict[str, M.Supply]) -> None:
+    """A store's charging sources agree with the supplies fed into it (``P512``).
+
+    * ``charge off`` (or no ``charge max``) with a supply ``into`` the store: that supply
+      could never charge it; a store that is to charge from its own sources alone says
+      ``charge max P  charge only from SUPPLY``.
+    * ``charge only from A``: A is a supply whose ``into`` names the store (its power goes
+      straight in; what a supply gives its site pools with the grid and cannot be told
+      apart), and every supply fed into the store is named.
+    """
+    feeding: Dict[str, List[M.Supply]] = {}
+    for i in supplies.values():
+        for t in i.targets:
+            if t != "site":
+                feeding.setdefault(t, []).append(i)
+    for k, s in storages.items():
+        into = feeding.get(k, [])
+        if s.charge_sources is None:
+            if s.charge_max <= 0:
+                for i in into:
+                    ck.sink.add(SourceChargeMismatch, i.where("targets"),
+                                f"supply '{i.name}' is fed into '{k}', which cannot charge: it would never take any of it",
+                                f"note: '{k}' has no charge power ('charge off', the default)",
+                                f"fix: to charge '{k}' from '{i.name}' and never from the grid, write "
+                                f"'charge max P  charge only from {i.name}' in '{k}'")
+            continue
+        named = set(s.charge_sources)
+        for n in s.charge_sources:
+            i = supplies.get(n)
+            if i is not None and k not in i.targets:
+                ck.sink.add(SourceChargeMismatch, s.where("charge_sources"),
+                            f"'{k}' charges only from '{n}', but '{n}' is not fed into it",
+                            f"note: '{n}' goes into {', '.join(i.targets)} (declared at {i.span})",
+                            f"fix: add '{k}' to the 'into' of supply '{n}'")
+        for i in into:
+            if i.name not in named:
+                ck.sink.add(SourceChargeMismatch, i.where("targets"),
+                            f"supply '{i.name}' is fed into '{k}', which charges only from "
+                            f"{', '.join(repr(n) for n in s.charge_sources)}",
+                            f"fix: add '{i.name}' to the 'charge only from' of '{k}', or take '{k}' out of its 'into'")
 
 
 # -- routes ---------------------------------------------------------------------------------
@@ -319,5 +352,11 @@ def _output_name(ck: Context, r: M.Route, taken: set) -> Optional[str]:
         ck.sink.add(DuplicateName, r.span, f"this route's output name '{name}' is already declared "
                     f"(as {a(ck.names[name].kind)})",
                     f"note: '{name}' is declared at {ck.names[name].span}; rename one of them")
+        return None
+    other = ck.names.same_but_case(name)
+    if other is not None:
+        ck.sink.add(NameCaseClash, r.span, f"this route's output name '{name}' differs from '{other}' only "
+                    "in letter case; their output files would overwrite each other where file names ignore case",
+                    f"note: '{other}' is declared at {ck.names[other].span}; rename one of them")
         return None
     return name

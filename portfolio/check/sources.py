@@ -37,7 +37,7 @@ def series_spec(units: Quantities, specs: List[SeriesSpec], name: Word, src, qua
 
 
 def _csv(units: Quantities, nm: str, src: CsvSource, quantity: str, span: Span, dims) -> Optional[SeriesSpec]:
-    time_col = time_span = None
+    time_col = time_span = gaps = gaps_span = None
     fac = 1.0
     seen = set()
     for opt in src.options:
@@ -47,13 +47,15 @@ def _csv(units: Quantities, nm: str, src: CsvSource, quantity: str, span: Span, 
         seen.add(opt.key)
         if opt.key == "time_column":
             time_col, time_span = _unquote(opt.value), opt.value.span
+        elif opt.key == "gaps":
+            gaps, gaps_span = opt.value.text, opt.span
         else:
             fac = units.unit_factor(opt.value, dims, f"the unit of series '{nm}'")
             if fac is None:
                 return None
     return SeriesSpec(name=nm, quantity=quantity, span=span, path=_unquote(src.path), path_span=src.path.span,
                       column=_unquote(src.column), column_span=src.column.span, time_column=time_col,
-                      time_column_span=time_span, factor=fac)
+                      time_column_span=time_span, factor=fac, gaps=gaps, gaps_span=gaps_span)
 
 
 def _values(units: Quantities, nm: str, src: ListSource, quantity: str, span: Span, dims) -> Optional[SeriesSpec]:

@@ -15,10 +15,10 @@ from typing import Dict, Optional, Tuple
 from .. import model as M
 from .. import units as U
 from ..diagnostics import (DuplicateSetting, LimitInconsistent, MissingSetting, OutOfRange, RuleTooLong,
-                           SocInconsistent, UnusedSetting)
+                           SocInconsistent, UnusedSetting, WrongDimension)
 from ..spans import Span
 from .context import Context
-from .names import suggest
+from .names import listed_once, suggest
 from .quantities import fmt
 from .sources import series_spec
 from .state import check_carried_state, steps_rounded_up
@@ -135,6 +135,8 @@ class StorageBuilder:
         check_carried_state(self)
         self.spill()
         self.own_supply()
+        self.charge_sources()
+        self.cycle_limits()
         v = self.vals
         needs = (v.get("exclusive") or v.get("charge_min", 0.0) > 0 or v.get("discharge_min", 0.0) > 0
                  or v.get("min_run_h", 0) > 0 or v.get("min_rest_h", 0) > 0)
@@ -340,6 +342,78 @@ class StorageBuilder:
                           "a supply inside a storage always flows into that storage; 'into' and 'curtail' do not apply here "
                           "(use 'spill allowed' to let the storage shed what it cannot hold)")
         self.vals["supply"] = node.name.text
+
+    def charge_sources(self) -> None:
+        """'charge only from A, B': the store charges from those supplies alone, never from its
+        site (so never from the grid).  Whether each feeds the store is checked once the
+        supplies are known (:func:`portfolio.check.network.check_charging_sources`)."""
+        if "charge_from" not in self.s:
+            return
+        node = self.s["charge_from"]
+        self.spans["charge_sources"] = node.span
+        names = listed_once(self.sink, ((self.ck.names.ref(w, ("supply",), "supply"), w.span) for w in node.value))
+        if self.vals.get("charge_max", 0.0) <= 0:
+            self.sink.add(LimitInconsistent, node.span,
+                          f"'{self.name}' charges only from {', '.join(repr(n) for n in names) or 'its sources'}, "
+                          "but it has no charge power",
+                          "fix: give it 'charge max P' (the most it may take from those sources)")
+        self.vals["charge_sources"] = tuple(names)
+
+    def cycle_limits(self) -> None:
+        """'cycles max N per day' and/or 'cycles max N' (over the horizon): plain numbers above zero."""
+        if "cycles" not in self.s:
+            return
+        node = self.s["cycles"]
+        seen: Dict[str, Span] = {}
+        for lim in node.value:
+            text = lim.number.text
+            value = float(text)
+            unit = lim.unit
+            if unit is None:
+                fld = "cycles_horizon"
+            else:
+                fld = "cycles_per_day" if self._per_day(unit) else None
+                if fld is None:
+                    self.sink.add(WrongDimension, lim.span,
+                                  f"a cycle limit is a plain number (over the horizon) or a number 'per day'; "
+                                  f"found '{text} {U.written(unit.unit, unit.per)}'",
+                                  "note: e.g. 'cycles max 1 per day' or 'cycles max 300'")
+                    continue
+            if fld in seen:
+                self.sink.add(DuplicateSetting, lim.span,
+                              f"the {'daily' if fld == 'cycles_per_day' else 'horizon'} cycle limit of "
+                              f"'{self.name}' is given twice", f"note: first given at {seen[fld]}")
+                continue
+            seen[fld] = lim.span
+            self.spans[fld] = lim.span
+            if not math.isfinite(value) or value <= 0:
+                self.sink.add(OutOfRange, lim.span,
+                              f"a cycle limit must be a finite number above zero, found {text}")
+                continue
+            self.vals[fld] = value
+        if not seen:
+            return
+        v = self.vals
+        if v.get("charge_max", 0.0) <= 0:
+            self.sink.add(LimitInconsistent, node.span,
+                          f"'{self.name}' cannot charge, so it has no cycles to limit",
+                          "note: equivalent full cycles are counted for stores that charge (docs/model.md); "
+                          "limit a reservoir's release with 'discharge max' or a route's 'max'")
+        elif v.get("soc_max", 0.0) - v.get("soc_min", 0.0) <= 0:
+            self.sink.add(LimitInconsistent, node.span,
+                          f"'{self.name}' has no usable capacity (its soc min equals its soc max), "
+                          "so a cycle limit cannot be measured",
+                          "note: one equivalent full cycle is the energy between soc min and soc max")
+
+    @staticmethod
+    def _per_day(unit) -> bool:
+        if unit.unit is not None or unit.per is None:
+            return False
+        try:
+            dim, f = U.factor(None, unit.per, (U.RATE,))
+        except U.UnitProblem:
+            return False
+        return abs(f * 24.0 - 1.0) < 1e-9
 
     # -- helpers --------------------------------------------------------------------------
     def loss_per_hour(self) -> Optional[float]:

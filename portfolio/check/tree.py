@@ -120,6 +120,12 @@ class Pair(Node):
 
 
 @dataclass(frozen=True)
+class CycleLimit(Node):
+    number: Word
+    unit: Optional[Unit]        # None: over the horizon; 'per day': each calendar day
+
+
+@dataclass(frozen=True)
 class EndRule(Node):
     value: Optional[Quantity]   # None for 'free' and for 'start'
 
@@ -191,7 +197,8 @@ QUANTITY_SETTINGS = ("h_length", "h_step", "export_max", "import_max", "energy",
                      "min_run", "min_rest", "ramp", "soc_min", "soc_max", "soc_start", "delay", "route_max",
                      "route_efficiency", "in_transit")
 WORD_SETTINGS = {"h_start": "TIMESTAMP", "h_end": "TIMESTAMP", "h_zone": "STRING", "time_column": "STRING",
-                 "curtail": "ALLOWED", "kind": "NAME", "modes": "MODES", "factor": "NUMBER"}
+                 "curtail": "ALLOWED", "kind": "NAME", "modes": "MODES", "factor": "NUMBER",
+                 "gaps": "GAP_FILL"}
 
 
 @v_args(meta=True)
@@ -325,6 +332,17 @@ class Reader(Transformer):
     def discharge(self, meta, children):
         return Setting("discharge", self._span(meta), *fit("discharge", children, "PowerLimit"))
 
+    def charge_from(self, meta, children):
+        (names,) = fit("charge_from", children, "NAME*")
+        return Setting("charge_from", self._span(meta), names)
+
+    def cycles(self, meta, children):
+        (limits,) = fit("cycles", children, "CycleLimit*")
+        return Setting("cycles", self._span(meta), limits)
+
+    def cycle_limit(self, meta, children):
+        return CycleLimit("cycle_limit", self._span(meta), *fit("cycle_limit", children, "NUMBER", "Unit?"))
+
     def power_limit(self, meta, children):
         return PowerLimit("power_limit", self._span(meta), *fit("power_limit", children, "Quantity", "Quantity?"))
 
@@ -399,7 +417,8 @@ _WORDS = {"h_start": "start", "h_end": "end", "h_length": "length", "h_step": "s
           "export_max": "export max", "import_max": "import max", "min_run": "run at least",
           "min_rest": "rest at least", "soc_min": "soc min", "soc_max": "soc max", "soc_start": "soc start",
           "soc_end": "soc end", "time_column": "time column", "csv_unit": "unit", "route_max": "max",
-          "route_efficiency": "efficiency", "in_transit": "in transit", "direction_exclusive": "direction exclusive"}
+          "route_efficiency": "efficiency", "in_transit": "in transit", "direction_exclusive": "direction exclusive",
+          "charge_from": "charge only from", "cycles": "cycles max"}
 
 
 def said(key: str) -> str:

@@ -102,6 +102,11 @@ class Built:
             load_values(self._columns, self._values)
 
     @property
+    def solution(self) -> Optional[np.ndarray]:
+        """The last solution kept by :meth:`load_solution` (one value per column), or None."""
+        return self._values
+
+    @property
     def model_columns(self) -> list:
         """The Pyomo VarData of every matrix column, in column order."""
         if self._columns is None:

@@ -51,6 +51,40 @@ def total_charge(topo: Topology, k: str) -> List[Part]:
     return [(1.0, CHARGE_SITE, k)] + [(1.0, SUPPLY_TO, (i, k)) for i in topo.supplies_into(k)]
 
 
+def drawn_for_discharge(p: Portfolio, k: str) -> List[Part]:
+    """MW drawn from store ``k``'s content to discharge (store side: discharge / eta_discharge).
+
+    Equivalent full cycles count this (docs/model.md): MWh drawn for discharge over the
+    usable capacity (``Storage.usable_mwh``), so emptying a store once from soc max to soc
+    min is one cycle whatever its discharge efficiency.  Spill and routes other than
+    release (transfers) are not discharge and are not counted.
+    """
+    return [(1.0 / p.storages[k].eta_discharge, DISCHARGE, k)]
+
+
+def calendar_days(horizon) -> List[Tuple[str, Tuple[int, ...], float]]:
+    """The calendar days of the horizon's zone it touches: (date, its steps, share).
+
+    A step belongs to the day its start falls in; ``share`` is the hours of that day the
+    horizon covers over the day's length (24 h; 23 or 25 on a daylight-saving change),
+    at most 1: a first or last day cut by the horizon gets its limit pro rata.
+    """
+    import pandas as pd
+
+    idx = horizon.index
+    if len(idx) == 0:
+        return []
+    days = idx.normalize()
+    out = []
+    codes, uniques = pd.factorize(days)
+    for j, day in enumerate(uniques):
+        steps = tuple(int(t) for t in np.flatnonzero(codes == j))
+        length_h = ((day + pd.DateOffset(days=1)) - day) / pd.Timedelta(hours=1)
+        share = min(1.0, len(steps) * horizon.step_hours / length_h)
+        out.append((day.strftime("%Y-%m-%d"), steps, share))
+    return out
+
+
 def supply_used(topo: Topology, i: str) -> List[Part]:
     """What supply ``i`` delivers: to its site and straight into its stores."""
     return [(1.0, SUPPLY_SITE, i)] + [(1.0, SUPPLY_TO, (i, k)) for k in topo.supply_targets(i)]

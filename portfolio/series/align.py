@@ -127,7 +127,9 @@ def step_average(ns: np.ndarray, values: np.ndarray, hold: int, grid: Grid) -> n
     """Time-weighted mean of the step function over every horizon step.
 
     Row ``k`` holds ``values[k]`` on ``[ns[k], ns[k+1])`` and the last row for
-    ``hold``.  The data must cover the grid.  Works on the cumulative
+    ``hold``.  The data must cover the grid, and have been through
+    :mod:`.gaps` (so a long spacing held here is one the file or its spec
+    meant, never a hole filled silently).  Works on the cumulative
     integral: ``F(x)`` is piecewise linear through the row edges, so
     ``np.interp`` evaluates it exactly at the step edges.
     """

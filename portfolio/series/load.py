@@ -13,7 +13,9 @@ from ..diagnostics import (SeriesBadValue, SeriesColumnMissing, SeriesEmpty, Ser
 from ..model import Horizon, Series
 from ..spans import Span
 from .align import Grid, covers, step_average
+from .gaps import Gaps, fill, find_gaps, report as report_gaps, report_filled
 from .report import declared
+from .rows import check_widths
 from .spec import QUANTITIES, SeriesSpec, make_series
 from .table import Table, Unreadable, column_notes, find_column, read_table
 from .times import Times, parse_times
@@ -93,6 +95,8 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
     wanted = _pick_columns(table, group, sink)
     if not wanted:
         return {}
+    misshapen = check_widths(table, [c for _, _, t, v in wanted for c in (t, v)],
+                             [s for _, s, _, _ in wanted], sink)
     times: Dict[int, Optional[Times]] = {}
     for t_idx in dict.fromkeys(t for _, _, t, _ in wanted):
         users = [s for _, s, t, _ in wanted if t == t_idx]
@@ -104,14 +108,27 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
     refused = _screen(table, wanted, numbers, sink)
 
     out: Dict[int, Series] = {}
+    gaps: Dict[int, Optional[Gaps]] = {}
+    unfilled: Dict[int, List[SeriesSpec]] = {}
     for i, spec, t_idx, v_idx in wanted:
         t, raw = times[t_idx], numbers[v_idx]
-        if t is None or raw is None or i in refused:
+        if t is None or raw is None or i in refused or misshapen:
             continue
         if not covers(spec, table, t, t_idx, grid, sink):
             continue
+        if t_idx not in gaps:
+            gaps[t_idx] = find_gaps(t, grid)
+        ns, rows = t.ns, raw
+        found = gaps[t_idx]
+        if found is not None:           # never filled without the series saying how (P415)
+            if spec.gaps is None:
+                unfilled.setdefault(t_idx, []).append(spec)
+                continue
+            with np.errstate(all="ignore"):
+                ns, rows = fill(found, spec.gaps, ns, rows)
+            report_filled(found, spec, table, grid, sink)
         with np.errstate(all="ignore"):
-            values = step_average(t.ns, raw * spec.factor, t.hold, grid)
+            values = step_average(ns, rows * spec.factor, t.hold, grid)
         if not np.isfinite(values).all():
             sink.add(SeriesBadValue, spec.column_span or spec.span,
                      f"series '{spec.name}': the values in column '{table.header[v_idx]}' "
@@ -119,6 +136,8 @@ def _load_file(resolved: Path, shown: str, group: List[Tuple[int, SeriesSpec]],
             continue
         origin = f'{shown} column "{table.header[v_idx]}"'
         out[i] = make_series(spec, values, origin, source=resolved)
+    for t_idx, users in unfilled.items():
+        report_gaps(gaps[t_idx], times[t_idx], table, t_idx, grid, users, sink)
     return out
 
 

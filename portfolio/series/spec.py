@@ -32,13 +32,16 @@ class SeriesSpec:
     values_span: Optional[Span] = None
     constant: Optional[float] = None    # one value for every step
     factor: float = 1.0                 # multiply raw numbers by this to get MW or money per MWh
+    gaps: Optional[str] = None          # missing rows of a regular file: None (an error), "hold", "interpolate"
+    gaps_span: Optional[Span] = None
 
 
 def _spans_of(spec: SeriesSpec) -> dict:
     """A plain dict, as every declaration's ``spans`` (a model must pickle: windows and
     studies send it to other processes)."""
     fields = {"path": spec.path_span, "column": spec.column_span,
-              "time_column": spec.time_column_span, "values": spec.values_span}
+              "time_column": spec.time_column_span, "values": spec.values_span,
+              "gaps": spec.gaps_span}
     return {k: v for k, v in fields.items() if v is not None}
 
 

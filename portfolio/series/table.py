@@ -46,6 +46,7 @@ class Table:
     _records: Optional[List[List[str]]] = None
     _raw: Optional[List[str]] = None
     _columns: Optional[Dict[int, Tuple[np.ndarray, np.ndarray]]] = None
+    _widths: Optional[np.ndarray] = None      # lean: fields on each data row, set by keep
 
     @property
     def text(self) -> str:
@@ -93,7 +94,15 @@ class Table:
         if self.lean and (self._columns is None or not set(cols) <= set(self._columns)):
             found = _lean_columns(self.data, self.delimiter, self.header_line, sorted(set(cols)))
             self.lines = found.pop("lines")
+            self._widths = found.pop("widths")
             self._columns = found
+
+    def widths(self) -> np.ndarray:
+        """The number of fields on each data row (the header's count on a well-formed file)."""
+        if self.lean:
+            self.keep([])
+            return self._widths
+        return np.fromiter((len(r) for r in self.rows), dtype=np.int64, count=len(self.rows))
 
     def column(self, col: int) -> Tuple[np.ndarray, np.ndarray]:
         """Stripped cells of one column as a bytes or str array ('' where a row
@@ -234,7 +243,7 @@ def _lean_columns(data: bytes, delimiter: str, header_line: int, cols: List[int]
     """Cells of columns ``cols`` of the data rows after the header, block by block."""
     b = np.frombuffer(data, dtype=np.uint8)
     d = ord(delimiter)
-    out_lines, parts = [], {c: ([], []) for c in cols}
+    out_lines, out_widths, parts = [], [], {c: ([], []) for c in cols}
     line_no, pos, n = 0, 0, len(b)
     while pos < n:
         cut = data.rfind(b"\n", pos, pos + _BLOCK) + 1
@@ -259,6 +268,7 @@ def _lean_columns(data: bytes, delimiter: str, header_line: int, cols: List[int]
         keep = np.flatnonzero(after)
         out_lines.append(numbers[keep])
         starts, ends, first, count = starts[keep], ends[keep], first[keep], count[keep]
+        out_widths.append(count + 1)
         for c in cols:
             has = count >= c
             lo = starts.copy() if c == 0 else np.where(has, dpos[np.minimum(first + c - 1, len(dpos) - 1)] + 1 if len(dpos) else starts, starts)
@@ -267,7 +277,9 @@ def _lean_columns(data: bytes, delimiter: str, header_line: int, cols: List[int]
             parts[c][0].append(_cut_cells(block, lo, hi))
             parts[c][1].append(~has)
         pos = cut
-    result: dict = {"lines": np.concatenate(out_lines) if out_lines else np.zeros(0, dtype=np.int64)}
+    result: dict = {"lines": np.concatenate(out_lines) if out_lines else np.zeros(0, dtype=np.int64),
+                    "widths": (np.concatenate(out_widths).astype(np.int64) if out_widths
+                               else np.zeros(0, dtype=np.int64))}
     for c in cols:
         texts = [t for t in parts[c][0]]
         width = max((t.dtype.itemsize for t in texts), default=1)

@@ -10,6 +10,8 @@ per storage, what the committed schedule did before the window:
   horizon) and its net output, for minimum run and rest and for the ramp;
 * ``arriving``: water released before the window on a delayed route that
   arrives inside it (the route's own ``in_transit`` is then zero);
+* ``cycles_days`` / ``cycles_drawn_mwh``: for cycle limits, what was drawn
+  for discharge before the window, per calendar day and in all;
 * its end: the last window keeps the portfolio's end rule; any other ends
   free, with what is left valued at the whole-horizon LP's marginal value
   (``stored_value``), or, in target mode, at least the LP's state of charge,
@@ -71,6 +73,7 @@ def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, 
             kw["soc_start"] = float(acc(E.SOC, k)[start - 1])
             kw.update(_prior(full, acc, k, s, start))
             kw["arriving"] = tuple(arriving.get(k, ()))
+            kw.update(_cycles(p, acc, k, s, start, stop))
         if stop < T:
             kw.update(_end(end, s, k, stop, relaxed, h.step_hours, T - stop,
                            kw.get("soc_start", s.soc_start), length))
@@ -136,6 +139,21 @@ def reach_ceiling(s: Storage, dt: float, n: int, soc0: float) -> float:
     """The most a store can hold after ``n`` steps from ``soc0``, charging at full power."""
     keep, gained = _charging(s, dt, n)
     return min(s.soc_max, keep * soc0 + gained)
+
+
+def _cycles(p: Portfolio, acc, k: str, s: Storage, start: int, stop: int) -> dict:
+    """What a store with cycle limits drew for discharge before ``start``: per calendar day
+    the window touches (with the whole horizon's share of it), and in all."""
+    if s.cycles_per_day is None and s.cycles_horizon is None:
+        return {}
+    drawn = acc.of(E.drawn_for_discharge(p, k)) * p.horizon.step_hours
+    days = []
+    if s.cycles_per_day is not None:
+        for day, steps, share in E.calendar_days(p.horizon):
+            if steps[0] < stop and steps[-1] >= start:
+                before = float(sum(drawn[t] for t in steps if t < start))
+                days.append((day, share, before))
+    return {"cycles_days": tuple(days), "cycles_drawn_mwh": float(drawn[:start].sum())}
 
 
 def _net(full, acc, k: str, start: int) -> float:

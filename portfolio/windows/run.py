@@ -21,6 +21,7 @@ import pandas as pd
 from ..compile import build
 from ..contract import WINDOW_KEYS, frame
 from ..dispatch import DispatchResult, make_result
+from ..provenance import collect
 from ..model import Portfolio
 from ..solve import ERROR, FEASIBLE, INFEASIBLE, OPTIMAL, Solution, SolveOptions
 from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
@@ -54,6 +55,13 @@ def dispatch_windows(p: Portfolio, spec: Optional[Spec] = None,
     ``concurrent.futures`` executor, a Dask ``distributed.Client``); None: a
     process pool of ``spec.workers`` processes, started and stopped here.
     """
+    source = collect(p)                    # the start time and the inputs as they are now
+    result = _dispatch_windows(p, spec, options, progress, runner, executor)
+    result.summary["provenance"] = source
+    return result
+
+
+def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchResult:
     spec = spec or Windows()
     options = options or SolveOptions()
     T, dt = p.horizon.steps, p.horizon.step_hours

@@ -8,7 +8,7 @@ something in ``ctx.expr`` for a later one (``modes`` publishes its binaries
 for ``run_rest``).
 """
 
-from . import (direction, grid_limits, modes, objective, power_limits, ramp, routes, run_rest,
+from . import (cycles, direction, grid_limits, modes, objective, power_limits, ramp, routes, run_rest,
                site_balance, storage_balance, supplies)
 
 FAMILIES = (
@@ -22,5 +22,6 @@ FAMILIES = (
     modes,
     run_rest,
     ramp,
+    cycles,
     objective,
 )

@@ -1,0 +1,282 @@
+"""The report's charts: matplotlib (Agg) figures, returned as SVG text to inline.
+
+Text stays text (``svg.fonttype: none``, a generic sans-serif family): the
+browser draws it with a font it has, and nothing is fetched.  Every chart
+has labelled axes with units (the units are the contract's), and the
+colours are a colour-blind-safe set of our own choosing (:data:`PALETTE`),
+told apart by line style and hatching too where series overlap.
+
+Long horizons are drawn averaged over blocks of steps, so a chart stays at
+most :data:`MAX_POINTS` points wide (a year of hours: daily means); the
+figures in the report's tables are never averaged.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+from typing import Optional, Sequence, Tuple
+
+import numpy as np
+
+from ..contract import TABLES
+
+MAX_POINTS = 720
+HEATMAP_AFTER_H = 72.0           # connection use as a day x hour map beyond three days
+
+# colour-blind-safe: distinct in hue and in lightness (after Okabe and Ito's advice on
+# such sets; the values are ours)
+PALETTE = ("#0a6fb5", "#e08a00", "#2aa37a", "#c4527f", "#5fb6e6", "#cf4f13", "#f0d43a", "#333333")
+GRID = "#d9d9d9"
+PRICE = "#222222"
+
+
+def unit(kind: str, column: str) -> str:
+    """A column's unit, as the contract states it."""
+    return next(c.unit for c in TABLES[kind] if c.name == column)
+
+
+def _plt():
+    import matplotlib
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+    return plt
+
+
+_STYLE = {
+    "svg.fonttype": "none", "font.family": "sans-serif", "font.size": 9,
+    "axes.grid": True, "grid.color": GRID, "grid.linewidth": 0.6, "axes.axisbelow": True,
+    "axes.spines.top": False, "axes.spines.right": False, "axes.titlesize": 10,
+    "axes.titleweight": "bold", "legend.fontsize": 8, "legend.frameon": False,
+}
+
+
+def to_svg(fig, salt: str) -> str:
+    """The figure as an <svg> element (no XML prologue); ids made unique by ``salt``."""
+    import matplotlib
+    plt = _plt()
+    buf = io.StringIO()
+    with matplotlib.rc_context({"svg.hashsalt": salt, "svg.fonttype": "none"}):
+        fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None})
+    plt.close(fig)
+    text = buf.getvalue()
+    start = text.find("<svg")
+    svg = text[start:]
+    # ids unique across the page: several charts in one document share its id space
+    return re.sub(r'(id="|url\(#|href="#)([A-Za-z_][\w.-]*)', lambda m: f"{m.group(1)}{salt}-{m.group(2)}", svg)
+
+
+def blocks(n: int) -> int:
+    """Steps per drawn point: 1, or enough to keep a chart at most :data:`MAX_POINTS` wide."""
+    return max(1, math.ceil(n / MAX_POINTS))
+
+
+def _reduce(index, values: np.ndarray, k: int):
+    if k == 1:
+        return index, values
+    n = len(values) // k * k
+    rest = len(values) - n
+    parts = [values[:n].reshape(-1, k).mean(axis=1)]
+    idx = list(index[:n:k])
+    if rest:
+        parts.append(np.array([values[n:].mean()]))
+        idx.append(index[n])
+    return idx, np.concatenate(parts)
+
+
+def _step_x(index, step_hours: float, k: int):
+    """Edges for a step plot: each point's start, and the end of the last."""
+    import pandas as pd
+    xs = list(index)
+    end = xs[-1] + pd.Timedelta(hours=step_hours * k) if xs else None
+    return xs + ([end] if end is not None else [])
+
+
+def _stairs(values: np.ndarray) -> np.ndarray:
+    return np.append(values, values[-1]) if len(values) else values
+
+
+def _time_axis(ax, zone: str) -> None:
+    import matplotlib.dates as mdates
+    loc = mdates.AutoDateLocator(tz=zone, maxticks=8)
+    ax.xaxis.set_major_locator(loc)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(loc, tz=zone))
+    ax.set_xlabel(f"time ({zone})")
+
+
+def _figure(height: float = 3.2, width: float = 9.0):
+    import matplotlib
+    plt = _plt()
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = plt.subplots(figsize=(width, height), layout="constrained")
+    return fig, ax
+
+
+def site_power(title: str, index, zone: str, step_hours: float,
+               sources: Sequence[Tuple[str, np.ndarray]], uses: Sequence[Tuple[str, np.ndarray]],
+               prices: Sequence[Tuple[str, np.ndarray]], power_unit: str, price_unit: str, salt: str) -> str:
+    """Stacked power at a site: sources of power above zero, its uses below, prices on a second axis."""
+    import matplotlib
+    k = blocks(len(index))
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure()
+        colours = iter(PALETTE * 4)
+        hatches = iter(["", "", "", "", "///", "\\\\\\", "...", "xx"] * 4)
+        xs = None
+        for sign, group in ((1.0, sources), (-1.0, uses)):
+            base = None
+            for label, vals in group:
+                idx, v = _reduce(index, np.asarray(vals, float), k)
+                xs = _step_x(idx, step_hours, k)
+                lo = np.zeros(len(v)) if base is None else base
+                hi = lo + sign * v
+                ax.fill_between(xs, _stairs(lo), _stairs(hi), step="post", color=next(colours),
+                                hatch=next(hatches), edgecolor="white", linewidth=0.0,
+                                label=label, alpha=0.9)
+                base = hi
+        ax.axhline(0.0, color="#000000", linewidth=0.8)
+        ax.set_ylabel(f"power ({power_unit}); into the site above 0, out of it below")
+        ax.set_title(title)
+        if prices:
+            ax2 = ax.twinx()
+            styles = iter(["-", "--", ":", "-."] * 4)
+            for label, vals in prices:
+                idx, v = _reduce(index, np.asarray(vals, float), k)
+                ax2.step(_step_x(idx, step_hours, k), _stairs(v), where="post", color=PRICE,
+                         linestyle=next(styles), linewidth=1.1, label=label)
+            ax2.set_ylabel(f"price ({price_unit})")
+            ax2.grid(False)
+            ax2.spines["right"].set_visible(True)
+            h2, l2 = ax2.get_legend_handles_labels()
+        else:
+            h2, l2 = [], []
+        h1, l1 = ax.get_legend_handles_labels()
+        ax.legend(h1 + h2, l1 + l2, loc="upper left", bbox_to_anchor=(1.08, 1.0))
+        _time_axis(ax, zone)
+        return to_svg(fig, salt)
+
+
+def state_of_charge(title: str, index, zone: str, step_hours: float, soc: np.ndarray,
+                    soc_min: float, soc_max: float, energy_unit: str, salt: str) -> str:
+    """A storage's content at the end of each step, with its lower and upper bounds."""
+    import matplotlib
+    k = blocks(len(index))
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(2.6)
+        idx, v = _reduce(index, np.asarray(soc, float), k)
+        xs = _step_x(idx, step_hours, k)
+        ax.step(xs, _stairs(v), where="post", color=PALETTE[0], linewidth=1.4, label="content at step end")
+        ax.axhline(soc_max, color=PALETTE[5], linestyle="--", linewidth=1.0, label=f"upper bound {soc_max:g}")
+        ax.axhline(soc_min, color=PALETTE[1], linestyle=":", linewidth=1.2, label=f"lower bound {soc_min:g}")
+        top = max(soc_max, float(np.max(v)) if len(v) else 0.0)
+        ax.set_ylim(min(0.0, soc_min) - 0.02 * (top or 1.0), top * 1.05 + 1e-9)
+        ax.set_ylabel(f"content ({energy_unit})")
+        ax.set_title(title)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        _time_axis(ax, zone)
+        return to_svg(fig, salt)
+
+
+def lost(title: str, index, zone: str, step_hours: float, series: Sequence[Tuple[str, np.ndarray]],
+         power_unit: str, salt: str) -> str:
+    """Curtailment and spill over time, one line each."""
+    import matplotlib
+    k = blocks(len(index))
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(2.6)
+        styles = iter(["-", "--", ":", "-."] * 8)
+        colours = iter(PALETTE * 4)
+        for label, vals in series:
+            idx, v = _reduce(index, np.asarray(vals, float), k)
+            ax.step(_step_x(idx, step_hours, k), _stairs(v), where="post", color=next(colours),
+                    linestyle=next(styles), linewidth=1.3, label=label)
+        if not series:
+            ax.text(0.5, 0.5, "nothing here can be curtailed or spilled", transform=ax.transAxes,
+                    ha="center")
+        ax.set_ylabel(f"power ({power_unit})")
+        ax.set_title(title)
+        if series:
+            ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        _time_axis(ax, zone)
+        return to_svg(fig, salt)
+
+
+def connection_use(title: str, index, zone: str, step_hours: float, net_export: np.ndarray,
+                   export_max: Optional[float], import_max: Optional[float], power_unit: str,
+                   salt: str) -> str:
+    """Net flow through a connection (export above 0) against its limits."""
+    import matplotlib
+    k = blocks(len(index))
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(2.6)
+        idx, v = _reduce(index, np.asarray(net_export, float), k)
+        xs = _step_x(idx, step_hours, k)
+        ax.fill_between(xs, 0, _stairs(v), step="post", color=PALETTE[4], alpha=0.8, label="net export")
+        if export_max is not None:
+            ax.axhline(export_max, color=PALETTE[5], linestyle="--", label=f"export limit {export_max:g}")
+        if import_max is not None:
+            ax.axhline(-import_max, color=PALETTE[1], linestyle=":", linewidth=1.3,
+                       label=f"import limit {import_max:g}")
+        ax.axhline(0.0, color="#000000", linewidth=0.8)
+        ax.set_ylabel(f"net export ({power_unit}); import below 0")
+        ax.set_title(title)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        _time_axis(ax, zone)
+        return to_svg(fig, salt)
+
+
+def connection_heatmap(title: str, index, zone: str, net_export: np.ndarray,
+                       export_max: Optional[float], import_max: Optional[float], power_unit: str,
+                       salt: str) -> str:
+    """Connection use as a day x hour map: the hour's mean net export as a share of its limit
+    (or in power units when the connection has no limit)."""
+    import matplotlib
+    import pandas as pd
+    s = pd.Series(np.asarray(net_export, float), index=index)
+    hourly = s.groupby([s.index.date, s.index.hour]).mean()
+    days = sorted({d for d, _ in hourly.index})
+    grid = np.full((24, len(days)), np.nan)
+    col = {d: i for i, d in enumerate(days)}
+    limited = export_max is not None and import_max is not None and export_max > 0 and import_max > 0
+    for (d, h), val in hourly.items():
+        if limited:
+            val = val / export_max if val >= 0 else val / import_max
+        grid[h, col[d]] = val
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(3.2)
+        span = 1.0 if limited else max(1e-9, float(np.nanmax(np.abs(grid))) if np.isfinite(grid).any() else 1.0)
+        im = ax.imshow(grid, aspect="auto", origin="lower", cmap="PuOr_r", vmin=-span, vmax=span,
+                       interpolation="nearest",
+                       extent=(-0.5, len(days) - 0.5, -0.5, 23.5))
+        ax.grid(False)
+        ticks = list(range(0, len(days), max(1, len(days) // 8)))
+        ax.set_xticks(ticks, [days[i].isoformat() for i in ticks])
+        ax.set_yticks([0, 6, 12, 18, 23])
+        ax.set_xlabel(f"day ({zone})")
+        ax.set_ylabel("hour of day")
+        bar = fig.colorbar(im, ax=ax)
+        bar.set_label("share of the limit: export +1, import -1" if limited
+                      else f"net export ({power_unit}); import below 0")
+        ax.set_title(title)
+        return to_svg(fig, salt)
+
+
+def money(title: str, rows: Sequence[Tuple[str, float]], money_unit: str, salt: str) -> str:
+    """Money by asset, one bar each (gains right of zero, costs left)."""
+    import matplotlib
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(0.6 + 0.32 * max(1, len(rows)))
+        labels = [r[0] for r in rows]
+        vals = np.array([r[1] for r in rows], float)
+        colours = [PALETTE[0] if v >= 0 else PALETTE[5] for v in vals]
+        hatches = ["" if v >= 0 else "///" for v in vals]
+        bars = ax.barh(range(len(rows)), vals, color=colours, edgecolor="white")
+        for b, h in zip(bars, hatches):
+            b.set_hatch(h)
+        ax.set_yticks(range(len(rows)), labels)
+        ax.invert_yaxis()
+        ax.axvline(0.0, color="#000000", linewidth=0.8)
+        ax.set_xlabel(f"net value over the horizon ({money_unit})")
+        ax.set_title(title)
+        return to_svg(fig, salt)

@@ -1,0 +1,332 @@
+"""`portfolio report DIR` and `dispatch --report`: the page opens in a real browser with
+nothing fetched, its figures are the CSVs', and bad folders are refused with nothing written."""
+
+from __future__ import annotations
+
+import hashlib
+import html
+import io
+import json
+import math
+import os
+import shutil
+import sys
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+sys.path.insert(0, str(Path(__file__).parent))
+import browser  # noqa: E402
+
+from cli_support import DEMO, run  # noqa: E402
+
+from portfolio import contract as C  # noqa: E402
+
+
+def _long_text(days: int = 5) -> str:
+    """A battery and a solar farm behind a limited connection, hourly over ``days`` days."""
+    hours = 24 * days
+    price = [round(60 + 35 * math.sin(2 * math.pi * (h % 24 - 9) / 24) + 3 * (h // 24), 2) for h in range(hours)]
+    sun = [round(max(0.0, 9 * math.sin(math.pi * (h % 24 - 6) / 12)), 3) if 6 <= h % 24 <= 18 else 0.0
+           for h in range(hours)]
+    return (f'horizon start 2027-06-01T00:00 length {hours} h step 1 h zone "Europe/Berlin"\n'
+            f"price spot values [{', '.join(map(str, price))}]\n"
+            "connection line { export max 6 MW import max 5 MW sell at spot buy at spot plus 5 per MWh }\n"
+            "site farm at line {\n"
+            f"  supply pv values [{', '.join(map(str, sun))}] MW {{ into site, cells curtail allowed }}\n"
+            "  storage cells { kind battery energy 12 MWh charge max 4 MW discharge max 4 MW\n"
+            "    efficiency charge 95% discharge 95% soc min 10% max 90% start 50% }\n"
+            "}\n")
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "kb"
+    code, text, err = run("dispatch", DEMO, "--out", out, "--report")
+    assert code == 0, err
+    assert f"report written to {out / C.REPORT_FILE}" in text
+    return out
+
+
+@pytest.fixture(scope="module")
+def long_windows(tmp_path_factory):
+    base = tmp_path_factory.mktemp("long")
+    f = base / "long.folio"
+    f.write_text(_long_text(), encoding="utf-8")
+    out = base / "out"
+    code, text, err = run("dispatch", f, "--out", out, "--windows", "1d/1d", "--report", "-q")
+    assert code == 0, err
+    assert (out / "windows.csv").is_file() and (out / C.REPORT_FILE).is_file()
+    return out
+
+
+@pytest.fixture(scope="module")
+def infeasible(tmp_path_factory):
+    base = tmp_path_factory.mktemp("tight")
+    f = base / "tight.folio"
+    f.write_text('horizon start 2027-01-01T00:00 length 3 h step 1 h\n'
+                 'connection c { import max 1 MW buy at 50 per MWh }\n'
+                 'site s at c {\n'
+                 '  demand load values [3, 3, 3] MW\n'
+                 '}\n', encoding="utf-8")
+    out = base / "o"
+    code, text, err = run("dispatch", f, "--out", out, "--report")
+    assert code == 3, err             # the dispatch's own exit code: infeasible
+    assert (out / C.REPORT_FILE).is_file()
+    return out
+
+
+class _Figures(HTMLParser):
+    """The page's figures (data-key -> data-value), its charts and their <svg> elements."""
+
+    def __init__(self):
+        super().__init__()
+        self.values, self.charts, self.svgs_in_charts, self.tags = {}, [], 0, []
+        self._in_chart = 0
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        self.tags.append((tag, a))
+        if "data-key" in a and "data-value" in a:
+            self.values[a["data-key"]] = None if a["data-value"] in ("", "None") else float(a["data-value"])
+        if tag == "figure" and "chart" in (a.get("class") or ""):
+            self.charts.append(a.get("data-chart"))
+            self._in_chart += 1
+        if tag == "svg" and self._in_chart and self.tags[-2][0] == "figure":
+            self.svgs_in_charts += 1
+
+    def handle_endtag(self, tag):
+        if tag == "figure" and self._in_chart:
+            self._in_chart -= 1
+
+
+def _page(folder: Path):
+    text = (folder / C.REPORT_FILE).read_text(encoding="utf-8")
+    p = _Figures()
+    p.feed(text)
+    return text, p
+
+
+def _listing(folder: Path):
+    return sorted((n, (folder / n).read_bytes()) for n in os.listdir(folder))
+
+
+# -- the page in a real browser --------------------------------------------------------------
+
+@pytest.mark.parametrize("which", ["demo", "long_windows", "infeasible"])
+def test_the_report_opens_in_a_real_browser_with_nothing_fetched(which, request, tmp_path):
+    exe = browser.find()
+    if exe is None:
+        pytest.skip("no Chromium found (Debian package 'chromium'); .ci/run installs it")
+    folder = request.getfixturevalue(which)
+    _text, parsed = _page(folder)
+    v = browser.visit(exe, folder / C.REPORT_FILE, tmp_path / "profile", width=1200, height=900)
+    # the page alone (a data: URI is the page's own bytes, an imshow map's picture: no fetch)
+    fetched = [u for u in v.requests if not u.startswith("data:")]
+    assert fetched == [(folder / C.REPORT_FILE).absolute().as_uri()], fetched
+    assert v.blocked == []
+    assert v.errors == []
+    assert (v.width, v.height) == (1200, 900)
+    import matplotlib.image as mpimg
+    pixels = mpimg.imread(io.BytesIO(v.png), format="png")[..., :3]
+    assert pixels.shape[:2] == (900, 1200)
+    assert float(pixels.std()) > 0.05                              # not one flat colour
+    assert float((pixels.min(axis=2) < 0.5).mean()) > 0.005        # some dark ink: text, lines
+    assert v.svgs == v.charts_declared == len(parsed.charts) == parsed.svgs_in_charts
+    if which != "infeasible":
+        assert v.svgs >= 4
+
+
+def test_the_browser_check_sees_a_fetch_and_a_console_error(tmp_path):
+    """The harness itself can fail: a planted image from the network and a logged error are seen."""
+    exe = browser.find()
+    if exe is None:
+        pytest.skip("no Chromium found (Debian package 'chromium'); .ci/run installs it")
+    page = tmp_path / "planted.html"
+    page.write_text('<!DOCTYPE html><html><body><p>x</p><img src="http://example.invalid/a.png">'
+                    '<script>console.error("planted")</script></body></html>', encoding="utf-8")
+    v = browser.visit(exe, page, tmp_path / "profile")
+    assert "http://example.invalid/a.png" in v.requests and "http://example.invalid/a.png" in v.blocked
+    assert any("planted" in e for e in v.errors)
+
+
+# -- the figures are the CSVs' ------------------------------------------------------------
+
+def _csv(folder: Path, name: str) -> pd.DataFrame:
+    return pd.read_csv(folder / C.table_file(name, "csv"), index_col="time")
+
+
+@pytest.mark.parametrize("which", ["demo", "long_windows"])
+def test_report_figures_equal_the_csvs(which, request):
+    folder = request.getfixturevalue(which)
+    summary = json.loads((folder / C.SUMMARY_FILE).read_text())
+    dt = summary["step_hours"]
+    _text, page = _page(folder)
+    vals = page.values
+    assert vals["objective"] == pytest.approx(summary["objective"], abs=1e-9)
+    assert vals["best_bound"] == pytest.approx(summary["best_bound"], abs=1e-9)
+    checked = 0
+    for name in summary["storages"]:
+        t = _csv(folder, name)
+        assert vals[f"storages/{name}/energy_in_mwh"] == pytest.approx(t["charge_mw"].sum() * dt, abs=1e-6)
+        assert vals[f"storages/{name}/energy_out_mwh"] == pytest.approx(t["discharge_mw"].sum() * dt, abs=1e-6)
+        assert vals[f"storages/{name}/spilled_mwh"] == pytest.approx(t["spill_mw"].sum() * dt, abs=1e-6)
+        assert vals[f"storages/{name}/soc_end_mwh"] == pytest.approx(t["soc_mwh"].iloc[-1], abs=1e-9)
+        checked += 1
+    for name in summary["supplies"]:
+        t = _csv(folder, name)
+        assert vals[f"supplies/{name}/energy_out_mwh"] == pytest.approx(t["used_mw"].sum() * dt, abs=1e-6)
+        assert vals[f"supplies/{name}/curtailed_mwh"] == pytest.approx(t["curtailed_mw"].sum() * dt, abs=1e-6)
+        checked += 1
+    for name in summary["connections"]:
+        t = _csv(folder, name)
+        assert vals[f"connections/{name}/energy_in_mwh"] == pytest.approx(t["import_mw"].sum() * dt, abs=1e-6)
+        assert vals[f"connections/{name}/energy_out_mwh"] == pytest.approx(t["export_mw"].sum() * dt, abs=1e-6)
+        # a connection's money is its cashflow column, recomputed from prices and flows
+        cash = (dt * (t["sell_price"] * t["export_mw"] - t["buy_price"] * t["import_mw"])).sum()
+        assert vals[f"connections/{name}/revenue"] == pytest.approx(cash, rel=1e-9, abs=1e-6)
+        checked += 1
+    # the storages', supplies' and demands' values add up to the objective (docs/outputs.md)
+    parts = sum(vals[f"{g}/{n}/revenue"] for g in ("storages", "supplies", "demands") for n in summary[g])
+    assert parts == pytest.approx(summary["objective"], rel=1e-6, abs=1e-6)
+    assert checked >= 3
+
+
+def test_the_report_shows_provenance_and_the_caution(demo):
+    text, _parsed = _page(demo)
+    summary = json.loads((demo / C.SUMMARY_FILE).read_text())
+    prov = summary["provenance"]
+    assert tuple(prov) == C.PROVENANCE_KEYS
+    import portfolio
+    import highspy
+    assert prov["tool_version"] == portfolio.__version__
+    assert prov["highs_version"] == highspy.Highs().version()
+    assert prov["command"][:2] == ["portfolio", "dispatch"] and "--report" in prov["command"]
+    started = pd.Timestamp(prov["started_utc"])
+    assert started.utcoffset() == pd.Timedelta(0)
+    inputs = {Path(i["path"]).resolve(): i["sha256"] for i in prov["inputs"]}
+    assert DEMO.resolve() in inputs and len(inputs) >= 2          # the portfolio and its series files
+    for path, digest in inputs.items():
+        assert digest == hashlib.sha256(path.read_bytes()).hexdigest(), path
+        assert digest in text
+    assert html.escape(C.CAUTION) in text
+    assert f'data-key="tool_version">{portfolio.__version__}<' in text
+
+
+def test_a_long_horizon_draws_connection_use_as_a_day_by_hour_map(long_windows):
+    text, page = _page(long_windows)
+    summary = json.loads((long_windows / C.SUMMARY_FILE).read_text())
+    assert summary["steps"] * summary["step_hours"] > 72
+    assert set(page.charts) >= {"site/farm", "soc/cells", "lost", "connection/line", "money"}
+    figure = text.split('data-chart="connection/line"', 1)[1].split("</figure>", 1)[0]
+    assert "<image" in figure and "hour of day" in figure       # a raster map, labelled
+    assert "windows of 24.0 h" in text
+
+
+# -- bad input: clear messages, exit codes, nothing written -----------------------------------
+
+def test_a_folder_that_is_not_an_output_folder_is_refused(tmp_path):
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    code, out, err = run("report", empty)
+    assert code == 2 and "is not a dispatch output folder" in err and "no report written" in err
+    assert os.listdir(empty) == []
+    code, _, err = run("report", tmp_path / "missing")
+    assert code == 2 and "does not exist" in err
+    f = tmp_path / "file.txt"
+    f.write_text("x")
+    code, _, err = run("report", f)
+    assert code == 2 and "is not a folder" in err
+    assert sorted(os.listdir(tmp_path)) == ["empty", "file.txt"]
+
+
+def test_an_output_folder_from_an_older_version_is_refused(demo, tmp_path):
+    old = tmp_path / "old"
+    shutil.copytree(demo, old)
+    (old / C.REPORT_FILE).unlink()
+    marker = json.loads((old / C.MARKER).read_text())
+    marker["files"].remove(C.REPORT_FILE)
+    (old / C.MARKER).write_text(json.dumps(marker))
+    summary = json.loads((old / C.SUMMARY_FILE).read_text())
+    del summary["provenance"]
+    (old / C.SUMMARY_FILE).write_text(json.dumps(summary))
+    before = _listing(old)
+    code, out, err = run("report", old)
+    assert code == 2 and "older version" in err and out == ""
+    assert _listing(old) == before                          # nothing written, marker untouched
+
+
+def test_an_infeasible_result_reports_the_limits_that_gave(infeasible):
+    text, page = _page(infeasible)
+    summary = json.loads((infeasible / C.SUMMARY_FILE).read_text())
+    assert summary["status"] == "infeasible" and summary["relaxed"]
+    assert page.charts == []
+    for i, r in enumerate(summary["relaxed"]):
+        assert f'{Path(r["path"]).name}:{r["line"]}:{r["column"]}' in text.replace(str(Path(r["path"]).parent) + "/", "")
+        assert page.values[f"relaxed/{i}/amount"] == pytest.approx(r["amount"])
+        assert html.escape(r["description"]) in text
+    code, out, err = run("report", infeasible)                      # again, on its own
+    assert code == 0 and "status infeasible" in out and err == ""
+
+
+def test_foreign_files_are_never_overwritten(demo, tmp_path):
+    folder = tmp_path / "f"
+    shutil.copytree(demo, folder)
+    (folder / "notes.txt").write_text("mine")
+    before = _listing(folder)
+    code, _, err = run("report", folder)
+    assert code == 2 and "notes.txt" in err
+    assert _listing(folder) == before
+    # a report.html the marker does not list is someone else's: kept as it is
+    (folder / "notes.txt").unlink()
+    marker = json.loads((folder / C.MARKER).read_text())
+    marker["files"].remove(C.REPORT_FILE)
+    (folder / C.MARKER).write_text(json.dumps(marker))
+    (folder / C.REPORT_FILE).write_text("somebody's page")
+    before = _listing(folder)
+    code, _, err = run("report", folder)
+    assert code == 2 and C.REPORT_FILE in err
+    assert _listing(folder) == before
+
+
+def test_a_failure_while_drawing_leaves_nothing_half_written(demo, tmp_path, monkeypatch):
+    import portfolio.report as R
+    folder = tmp_path / "f"
+    shutil.copytree(demo, folder)
+    before = _listing(folder)
+
+    def broken(_folder):
+        raise RuntimeError("drawing failed")
+
+    monkeypatch.setattr(R, "render", broken)
+    with pytest.raises(RuntimeError):
+        R.write_report(folder)
+    assert _listing(folder) == before              # no page, no temporary file, the marker as it was
+
+
+def test_a_folder_with_its_report_is_still_one_a_dispatch_may_replace(demo, tmp_path):
+    folder = tmp_path / "again"
+    shutil.copytree(demo, folder)
+    code, _, err = run("dispatch", DEMO, "--out", folder, "-q")
+    assert code == 0, err
+    assert not (folder / C.REPORT_FILE).exists()               # replaced as a whole, report and all
+    code, out, _ = run("report", folder)
+    assert code == 0 and (folder / C.REPORT_FILE).is_file()
+    assert C.REPORT_FILE in json.loads((folder / C.MARKER).read_text())["files"]
+
+
+def test_a_dispatch_from_python_has_provenance_without_a_command():
+    import factory as F
+    from portfolio.dispatch import dispatch
+    r = dispatch(F.market([10.0, 50.0], [F.storage("cell", energy=1.0, power=1.0)]))
+    prov = r.summary["provenance"]
+    assert tuple(prov) == C.PROVENANCE_KEYS and prov["command"] is None
+    # built in memory: its path names no file, so there is nothing to hash (null, not a guess)
+    assert [Path(i["path"]).name for i in prov["inputs"]] == ["factory.folio"]
+    assert [i["sha256"] for i in prov["inputs"]] == [None]
+    assert tuple(r.summary["network"]) == C.NETWORK_KEYS
+    assert r.summary["network"]["storages"]["cell"]["energy_mwh"] == 1.0
+    assert np.isfinite(pd.Timestamp(prov["started_utc"]).timestamp())

@@ -67,6 +67,13 @@ def build_parser() -> argparse.ArgumentParser:
     lint.add_argument("--quiet", "-q", action="store_true", help="print only the problems, no summary")
     lint.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
 
+    fm = sub.add_parser("fmt", help="rewrite portfolio files in the canonical layout (docs/fmt.md)")
+    fm.add_argument("files", nargs="+", metavar="FILE", help="files to lay out; '-' reads standard input "
+                    "and writes the result to standard output")
+    fm.add_argument("--check", action="store_true",
+                    help="write nothing; exit 1 when a file is not in the canonical layout (for CI)")
+    fm.add_argument("--diff", action="store_true", help="write nothing; print what would change as a unified diff")
+
     codes = sub.add_parser("codes", help="list every diagnostic code")
     codes.add_argument("--format", choices=("text", "markdown"), default="text")
 
@@ -127,6 +134,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_lint(args, out, err)
         if args.command == "codes":
             return cmd_codes(args, out)
+        if args.command == "fmt":
+            return cmd_fmt(args, out, err)
         if args.command == "dispatch":
             return cmd_dispatch(args, out, err)
         if args.command == "graph":
@@ -160,6 +169,58 @@ def cmd_lint(args, out, err) -> int:
         if not args.quiet:
             print(report.summary(), file=err)
     return report.exit_code
+
+
+def cmd_fmt(args, out, err) -> int:
+    """Exit 2 when a file was not read or has a syntax error (it is left as it is),
+    else 1 with --check when a file would change, else 0."""
+    from .files import replace_atomically
+    from .fmt import format_file, format_source
+
+    unread = changed = same = 0
+    for f in args.files:
+        if f == "-":
+            r = format_source(sys.stdin.read(), "<stdin>")
+        else:
+            r = format_file(f)
+        for d in r.diagnostics:
+            print(format_text(d, texts={r.path: r.original} if r.original is not None else None), file=err)
+        if not r.ok:
+            unread += 1
+            print(printable(f"portfolio: {r.path} was not formatted"), file=err)
+            continue
+        if not r.changed:
+            same += 1
+            if f == "-" and not (args.check or args.diff):
+                print(r.text, file=out, end="")
+            continue
+        changed += 1
+        if args.diff:
+            for line in r.diff().splitlines():    # tabs kept, any other control character shown escaped
+                print("\t".join(printable(part) for part in line.split("\t")), file=out)
+        if args.check or args.diff:
+            if args.check:
+                print(printable(f"would reformat {r.path}"), file=err)
+            continue
+        if f == "-":
+            print(r.text, file=out, end="")
+            continue
+        real = Path(f).resolve()          # a link keeps pointing at the rewritten file
+        try:
+            mode = real.stat().st_mode & 0o7777
+            replace_atomically(real, lambda tmp, text=r.text: Path(tmp).write_text(text, "utf-8"), mode)
+        except OSError as e:
+            print(printable(f"portfolio: error: cannot write '{f}': {e.strerror or e}"), file=err)
+            unread += 1
+            continue
+        print(printable(f"reformatted {r.path}"), file=err)
+    verb = "would reformat" if args.check or args.diff else "reformatted"
+    if any(f != "-" for f in args.files):
+        print(f"fmt: {changed} {verb}, {same} unchanged" + (f", {unread} not formatted" if unread else ""),
+              file=err)
+    if unread:
+        return EXIT_USAGE
+    return EXIT_ERRORS if args.check and changed else EXIT_OK
 
 
 def cmd_codes(args, out) -> int:

@@ -17,7 +17,7 @@ import os
 import stat
 import tempfile
 from pathlib import Path
-from typing import Union
+from typing import Optional, Union
 
 DEFAULT_MB = 256
 ENV = "PORTFOLIO_MAX_INPUT_MB"
@@ -99,10 +99,11 @@ def outside(base_dir: Union[str, Path], written: str) -> Union[str, None]:
     return None
 
 
-def replace_atomically(path: Union[str, Path], write) -> None:
+def replace_atomically(path: Union[str, Path], write, mode: Optional[int] = None) -> None:
     """Make ``path`` by ``write(tmp)`` into a temporary file beside it, flushed to disk
     and renamed over it: a reader sees the old file or the new one, never half of one.
-    The temporary file is removed when ``write`` fails."""
+    The temporary file is removed when ``write`` fails.  ``mode``: its permission
+    bits (a file rewritten in place keeps its own); by default a new file's."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
     os.close(fd)
@@ -113,9 +114,11 @@ def replace_atomically(path: Union[str, Path], write) -> None:
             os.fsync(fd)
         finally:
             os.close(fd)
-        mask = os.umask(0)
-        os.umask(mask)
-        os.chmod(tmp, 0o666 & ~mask)          # as a plain new file would be, not mkstemp's 0600
+        if mode is None:
+            mask = os.umask(0)
+            os.umask(mask)
+            mode = 0o666 & ~mask              # as a plain new file would be, not mkstemp's 0600
+        os.chmod(tmp, mode)
         os.replace(tmp, path)
     except BaseException:
         try:

@@ -101,6 +101,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "commits --commit of it; see docs/windows.md")
     d.add_argument("--commit", metavar="DURATION", default=None,
                    help="with --foresight: the hours each window keeps (default 1d)")
+    d.add_argument("--whole", action="store_true",
+                   help="one MILP over the whole horizon, even where windows are the default "
+                        "(above 31 days with binary rules; docs/windows.md)")
     d.add_argument("--marginal-values", action="store_true",
                    help="also value one more MW of every power limit and one more MWh of every "
                         "storage's upper state of charge, per step, with the on/off decisions held "
@@ -297,6 +300,16 @@ def cmd_dispatch(args, out, err) -> int:
     if problem:
         print(printable(f"portfolio: error: {problem}; nothing was dispatched or written"), file=err)
         return EXIT_USAGE
+    default = None
+    if spec is None and not args.whole and not args.marginal_values:
+        from .windows import AUTO_DAYS, binary_rules, by_default
+        spec = by_default(r.portfolio)
+        if spec is not None:
+            rules = binary_rules(r.portfolio)
+            default = (f"dispatched by windows, the default for a horizon longer than "
+                       f"{AUTO_DAYS:g} days with binary rules ({rules[0]}"
+                       f"{f' and {len(rules) - 1} more' if len(rules) > 1 else ''}); "
+                       f"--whole for one MILP")
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
     if problem is None and args.parquet:
@@ -328,7 +341,11 @@ def cmd_dispatch(args, out, err) -> int:
             result = dispatch(r.portfolio, options, progress=progress)
         else:
             from .windows import dispatch_windows
+            if default and not args.quiet:
+                print(printable(f"portfolio: {default}"), file=err)
             result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows)
+            if default:
+                result.summary["notes"].append(default)
         if args.marginal_values:
             from .marginal import attach
             attach(result, options)      # never raises for a dispatch without a schedule
@@ -382,6 +399,8 @@ def _windows_spec(args, horizon):
     sighted = args.foresight is not None
     if windows and sighted:
         return None, "--windows and --foresight are two ways of cutting the horizon: choose one"
+    if args.whole and (windows or sighted):
+        return None, "--whole is one MILP over the whole horizon: leave out --windows/--foresight"
     if not (windows or sighted):
         for flag, value in (("--window-end", args.window_end), ("--workers", args.workers),
                             ("--commit", args.commit)):

@@ -54,7 +54,10 @@ class LoadedPortfolio:
 
         ``windows``: dispatch window by window (docs/windows.md): a
         :class:`portfolio.windows.Windows`, its text (``"1d"``, ``"24h/12h"``)
-        or True for the defaults (commit a day, see a day more);
+        or True for the defaults (commit a day, see a day more); None (the
+        default): windows when :func:`portfolio.windows.by_default` says so
+        (a horizon above 31 days with binary rules), else one MILP; False:
+        one MILP whatever the horizon;
         ``Windows(end="pin", workers=2)`` solves two windows at once.
         ``foresight``: limited foresight, a :class:`portfolio.windows.Foresight`
         or its duration text (``"48h"``: see 48 h, commit a day, hold what is
@@ -87,7 +90,10 @@ class LoadedPortfolio:
                                  "give one")
             spec = foresight if isinstance(foresight, Foresight) else read(str(foresight))
             return dispatch_windows(self.model, spec, _options(options, settings), progress=progress)
-        if windows is not None and windows is not False:
+        if windows is None:
+            from .windows import by_default
+            windows = by_default(self.model) or False
+        if windows is not False:
             from .windows import Windows, dispatch_windows, parse
             spec = windows if isinstance(windows, Windows) else (
                 Windows() if windows is True else parse(str(windows)))

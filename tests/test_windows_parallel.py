@@ -338,3 +338,51 @@ def test_cycle_limits_hold_across_windows(spec, tmp_path):
     else:
         assert r.objective == pytest.approx(180.0, abs=1e-6)
     _audited(p, r, tmp_path)
+
+
+# -- windows by default ---------------------------------------------------------------
+
+def _days(n_days, **kw):
+    prices = 50 + 30 * np.sin(np.arange(24 * n_days) * 2 * np.pi / 24)
+    return F.market(np.round(prices, 2), [F.storage("b", energy=2, power=1, **kw)])
+
+
+def test_windows_are_the_default_above_31_days_with_binary_rules():
+    from portfolio.windows import AUTO_DAYS, binary_rules, by_default
+    assert AUTO_DAYS == 31
+    assert by_default(_days(32, exclusive=True)) == Windows()
+    assert by_default(_days(32, min_run_h=2.0, discharge_min=0.5)) == Windows()
+    assert by_default(_days(31, exclusive=True)) is None           # not above 31 days
+    assert by_default(_days(32)) is None                            # no binary rule: one LP
+    assert binary_rules(_days(32, exclusive=True)) == ['storage "b"']
+    lp = LoadedPortfolio(_days(32, exclusive=True), "x.folio")
+    r = lp.dispatch(mip_gap=1e-6)
+    assert r.windows is not None and r.summary["windows"]["count"] == 32
+    whole = lp.dispatch(windows=False, mip_gap=1e-6)
+    assert whole.windows is None and "windows" not in whole.summary
+    assert r.objective <= whole.objective + 1e-6 * abs(whole.objective)
+
+
+def test_the_cli_says_when_windows_are_the_default_and_whole_turns_them_off(tmp_path, capsys):
+    sys.path.insert(0, str(Path(__file__).parent / "bench"))
+    import re
+
+    from bench_scaling import make_text
+    text = make_text(1)
+    steps = 24 * 32
+    values = "[" + ", ".join(f"{50 + 30 * np.sin(t * 2 * np.pi / 24):.2f}" for t in range(steps)) + "]"
+    text = text.replace("length 24 h", f"length {steps} h").replace("step 15 min", "step 1 h")
+    text = re.sub(r"(price \w+ values )\[[^\]]*\]", lambda m: m.group(1) + values, text)
+    src = tmp_path / "long.folio"
+    src.write_text(text)
+    out = tmp_path / "out"
+    assert main(["dispatch", str(src), "--out", str(out), "--gap", "1e-3"]) == 0
+    cap = capsys.readouterr()
+    assert "the default for a horizon longer than 31 days" in cap.err
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["windows"]["count"] == 32 and (out / "windows.csv").exists()
+    assert any("--whole for one MILP" in n for n in summary["notes"])
+    rc = main(["dispatch", str(src), "--out", str(tmp_path / "whole"), "--whole", "--gap", "1e-3",
+               "--time-limit", "60"])
+    assert rc == 0 and not (tmp_path / "whole" / "windows.csv").exists()
+    assert main(["dispatch", str(src), "--out", str(tmp_path / "x"), "--whole", "--windows"]) == 2

@@ -13,10 +13,11 @@
 """
 
 from .run import dispatch_windows
-from .spec import (CODES, END_PIN, END_TARGET, END_VALUE, FREE, HOLD, Foresight, Windows,
-                   WindowsError, foresight, parse, plan)
+from .spec import (AUTO_DAYS, CODES, END_PIN, END_TARGET, END_VALUE, FREE, HOLD, Foresight,
+                   Windows, WindowsError, binary_rules, by_default, foresight, parse, plan)
 from .task import WindowOutcome, WindowTask, solve_window
 
 __all__ = ["dispatch_windows", "Windows", "Foresight", "WindowsError", "parse", "foresight",
+           "AUTO_DAYS", "binary_rules", "by_default",
            "CODES", "END_VALUE", "END_TARGET", "END_PIN", "HOLD", "FREE", "plan", "WindowTask",
            "WindowOutcome", "solve_window"]

@@ -15,6 +15,8 @@ import re
 from dataclasses import dataclass
 from typing import List, Optional, Tuple, Union
 
+import numpy as np
+
 END_VALUE = "value"      # non-last windows value what is left in store at the LP's marginal value
 END_TARGET = "target"    # non-last windows must end with at least the LP's state of charge
 END_PIN = "pin"          # non-last windows end exactly at the LP's state of charge (no overlap):
@@ -195,3 +197,32 @@ def foresight(sight: str, commit: Optional[str] = None, end: str = HOLD) -> Fore
             raise WindowsError(BAD_END, f"unknown end-of-window rule {end!r} with limited foresight "
                                         f"(use 'hold', 'free' or a money value per MWh)") from None
     return Foresight(hours(sight), DAY_H if commit is None else hours(commit), rule)
+
+
+AUTO_DAYS = 31.0         # above this, with binary rules, a dispatch goes by windows by default
+
+
+def binary_rules(p) -> List[str]:
+    """What in ``p`` makes binary variables (read off the checked model, nothing compiled):
+    storages with exclusive modes (minimum output, run or rest make them so), connections
+    that may not import and export at once or whose buy price falls below the sell price."""
+    out = [f'storage "{k}"' for k, s in p.storages.items()
+           if s.exclusive or (s.min_run_h or 0) > 0 or (s.min_rest_h or 0) > 0]
+    for name, c in p.connections.items():
+        if c.exclusive:
+            out.append(f'connection "{name}"')
+            continue
+        if np.any(p.price(c.buy) < p.price(c.sell)):
+            out.append(f'connection "{name}"')
+    return out
+
+
+def by_default(p) -> Optional[Windows]:
+    """The windows a dispatch of ``p`` takes when none are asked for: a day seeing a day
+    more, ends valued (:class:`Windows`), when the horizon is longer than
+    :data:`AUTO_DAYS` days and something makes binaries (:func:`binary_rules`); else None
+    (one MILP).  docs/windows.md, "By default"."""
+    h = p.horizon
+    if h.steps * h.step_hours <= AUTO_DAYS * DAY_H or not binary_rules(p):
+        return None
+    return Windows()

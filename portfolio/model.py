@@ -234,6 +234,8 @@ class Route(Decl):
     efficiency: float = 1.0
     max_mw: Optional[float] = None
     in_transit: float = 0.0              # MWh in transit at start, spread over the delay
+    # Hook for one window of a longer horizon (portfolio.windows); never set from a file.
+    transit_value: float = 0.0           # money per MWh (target units) still on its way at the end
 
 
 @dataclass(frozen=True)

@@ -386,3 +386,25 @@ def test_the_cli_says_when_windows_are_the_default_and_whole_turns_them_off(tmp_
                "--time-limit", "60"])
     assert rc == 0 and not (tmp_path / "whole" / "windows.csv").exists()
     assert main(["dispatch", str(src), "--out", str(tmp_path / "x"), "--whole", "--windows"]) == 2
+
+
+# -- water in transit at a window's end --------------------------------------------------
+
+def test_water_on_its_way_at_a_window_end_is_valued(tmp_path):
+    """An upper reservoir (1 MWh, its turbine 1 MW at a wear of 1 per MWh) releasing to a
+    lower plant three steps downstream, where the same water is worth twice as much (route
+    factor 2, a higher head); the price is 0 but in the last step, 100.  The best: release
+    at step 4 or before (0 - 1), the lower plant sells 2 MWh in step 7 (200): 199
+    (analytic).  Windows of two steps see no arrival of what they release: unless water on
+    its way is worth the LP's value at the lower store, the window holding step 4 keeps the
+    water (worth 99 upstream: sold there in step 7) and the schedule earns 99."""
+    T = 8
+    up = F.storage("up", energy=1, power=1, soc_start=1.0, charge_max=0.0, kind="reservoir",
+                   wear=1.0)
+    low = F.storage("low", energy=5, power=2, soc_start=0.0, charge_max=0.0, kind="reservoir")
+    rt = F.route("up_to_low", "up", "low", delay_steps=3, factor=2.0)
+    p = F.market([0.0] * (T - 1) + [100.0], [up, low], routes=[rt])
+    r = dispatch_windows(p, Windows(2, 0, "value"), EXACT)
+    assert r.status in ("optimal", "feasible"), r.message
+    assert r.objective == pytest.approx(199.0, abs=1e-6)
+    _audited(p, r, tmp_path)

@@ -14,7 +14,8 @@ per storage, what the committed schedule did before the window:
   for discharge before the window, per calendar day and in all;
 * its end: the last window keeps the portfolio's end rule; any other ends
   free, with what is left valued at the whole-horizon LP's marginal value
-  (``stored_value``), or, in target mode, at least the LP's state of charge,
+  (``stored_value``; water still on a delayed route at the LP's value in
+  the route's target, ``Route.transit_value``), or, in target mode, at least the LP's state of charge,
   or, pinned, exactly the LP's state of charge; with limited foresight it
   ends with at least the level the portfolio's own end asks for, or, when
   that is free, what the portfolio started with (``hold``), free
@@ -79,6 +80,9 @@ def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, 
                            kw.get("soc_start", s.soc_start), length))
         storages[k] = replace(s, **kw)
     routes = p.routes if start == 0 else tuple(replace(r, in_transit=0.0) for r in p.routes)
+    if stop < T:
+        routes = tuple(replace(r, transit_value=_transit_value(end, r, relaxed, stop))
+                       for r in routes)
     return replace(p, horizon=replace(h, start=begin, steps=length), series=series,
                    storages=storages, routes=routes)
 
@@ -112,6 +116,20 @@ def _end(end, s: Storage, k: str, stop: int, relaxed, dt: float, after: int, soc
     if floor > s.soc_min:
         return {"end_rule": END_AT_LEAST, "end_value": within(floor), "stored_value": price}
     return {"end_rule": END_FREE, "end_value": 0.0, "stored_value": price}
+
+
+def _transit_value(end, r, relaxed, stop: int) -> float:
+    """What a MWh still on its way along ``r`` at a window's end is worth: with ends valued,
+    the LP's value of stored energy in the route's target at the window's end; with limited
+    foresight and a price, that price; else nothing (a target or a pinned level counts only
+    what is in store)."""
+    if int(r.delay_steps) <= 0:
+        return 0.0
+    if end == END_VALUE:
+        return float(relaxed.value[r.target][stop - 1])
+    if end not in (END_TARGET, END_PIN, HOLD, FREE, OPEN):
+        return float(end)
+    return 0.0
 
 
 def _charging(s: Storage, dt: float, n: int):

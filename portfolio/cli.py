@@ -17,8 +17,8 @@ from typing import List, Optional
 
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
-from .cli_output import (Progress, explain_failure, print_assets, print_marginal, print_result,
-                         status_line)
+from .cli_output import (Progress, StudyProgress, explain_failure, print_assets, print_marginal,
+                         print_result, status_line)
 from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
@@ -114,6 +114,21 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--report", action="store_true",
                    help="also write report.html into the output folder (see 'portfolio report')")
 
+    sd = sub.add_parser("study", help="run every case of a study declared in the file, on Dask")
+    sd.add_argument("file", metavar="FILE")
+    sd.add_argument("study", nargs="?", metavar="STUDY", help="the study to run (needed when the file has several)")
+    sd.add_argument("--out", required=True, metavar="DIR",
+                    help="study folder: one folder a case, cases.csv/.parquet, plots; a re-run resumes")
+    sd.add_argument("--scheduler", metavar="ADDRESS",
+                    help="an existing Dask scheduler (tcp://host:8786); default: a local cluster on 127.0.0.1")
+    sd.add_argument("--workers", type=_threads, metavar="N", help="local cluster: worker processes (default: cores)")
+    sd.add_argument("--schedules", action="store_true", help="also write each case's full schedule folder")
+    sd.add_argument("--time-limit", type=_positive_float, metavar="S", help="solver seconds per case")
+    sd.add_argument("--gap", type=_gap, metavar="R", help="relative MIP gap per case (default 0.0001)")
+    sd.add_argument("--threads", type=_threads, metavar="N", help="HiGHS threads per case (default 1)")
+    sd.add_argument("--quiet", "-q", action="store_true", help="no progress bar, only the last line")
+    sd.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
+
     rp = sub.add_parser("report", help="write DIR/report.html: one self-contained page of a dispatch's output folder")
     rp.add_argument("folder", metavar="DIR", help="the output folder of a dispatch (its --out)")
 
@@ -145,6 +160,8 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_graph(args, out, err)
         if args.command == "report":
             return cmd_report(args, out, err)
+        if args.command == "study":
+            return cmd_study(args, out, err)
     except KeyboardInterrupt:
         print("portfolio: interrupted", file=err)
         return 130
@@ -423,6 +440,48 @@ def _windows_spec(args, horizon):
     except WindowsError as e:
         return None, str(e)
     return spec, None
+
+
+def cmd_study(args, out, err) -> int:
+    r, code = _lint_first(args.file, err, "no case was run", args.confine)
+    if code is not None:
+        return code
+    from .solve import SolveOptions
+    from .study import StudyError, pick, run
+    from .study.run import check_folder
+    try:
+        study = pick(r.portfolio, args.study)
+        out_dir = Path(args.out)
+        problem = _output_problem(out_dir, Path(args.file)) or check_folder(out_dir, r.portfolio)
+    except StudyError as e:
+        problem = str(e)
+    if problem:
+        print(printable(f"portfolio: error: {problem}"), file=err)
+        return EXIT_USAGE
+    kw = {"threads": args.threads or 1}
+    if args.time_limit is not None:
+        kw["time_limit"] = args.time_limit
+    if args.gap is not None:
+        kw["mip_gap"] = args.gap
+    bar = StudyProgress(err, quiet=args.quiet)
+    try:
+        got = run(r.portfolio, study.name, out_dir, SolveOptions(**kw), scheduler=args.scheduler,
+                  workers=args.workers, schedules=args.schedules, progress=bar)
+    except StudyError as e:
+        bar.close()
+        print(printable(f"portfolio: error: {e}"), file=err)
+        return EXIT_USAGE
+    finally:
+        bar.close()
+    df = got.frame
+    ok = int(df["status"].isin(("optimal", "feasible")).sum())
+    print(printable(f"study {study.name}: {len(df)} cases, {ok} with a schedule, {len(df) - ok} without; "
+                    f"{got.solved} solved now, {got.skipped} done before"), file=out)
+    if not args.quiet:
+        for _, row in df[~df["status"].isin(("optimal", "feasible"))].head(10).iterrows():
+            print(printable(f"  case {row['case']}: {row['status']} {row['message']}"), file=out)
+        print(printable(f"cases table written to {out_dir}/cases.csv"), file=out)
+    return EXIT_OK if ok == len(df) else EXIT_ERRORS
 
 
 def _report_after(out_dir: Path, out, err, quiet: bool) -> int:

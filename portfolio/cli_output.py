@@ -203,3 +203,31 @@ class Progress:
             if self.status is not None:
                 self.status.stop()
                 self.status = None
+
+
+class StudyProgress:
+    """A progress bar over a study's cases on stderr: done, failed, ETA (rich)."""
+
+    def __init__(self, err, quiet=False):
+        self.err, self.quiet = err, quiet
+        self.bar = self.task = None
+
+    def __call__(self, done, failed, skipped, total):
+        if self.quiet:
+            return
+        from rich.console import Console
+        from rich.progress import (BarColumn, MofNCompleteColumn, Progress as Bar, TextColumn,
+                                   TimeElapsedColumn, TimeRemainingColumn)
+        if self.bar is None:
+            self.bar = Bar(TextColumn("cases"), BarColumn(), MofNCompleteColumn(),
+                           TextColumn("{task.fields[failed]} failed, {task.fields[skipped]} done before"),
+                           TimeElapsedColumn(), TextColumn("ETA"), TimeRemainingColumn(),
+                           console=Console(file=self.err), transient=False)
+            self.bar.start()
+            self.task = self.bar.add_task("cases", total=total - skipped, failed=0, skipped=skipped)
+        self.bar.update(self.task, completed=done, failed=failed)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.stop()
+            self.bar = None

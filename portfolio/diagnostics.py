@@ -163,6 +163,7 @@ MissingSetting = _kind("P204", ERROR, "a required setting or statement is missin
 ReservedName = _kind("P206", ERROR, "a name is reserved for an output file (schedule, summary)", "ReservedName")
 WrongNameKind = _kind("P205", ERROR, "a name refers to a declaration of the wrong kind", "WrongNameKind")
 NameTooLong = _kind("P207", ERROR, "a name is too long to name its output file", "NameTooLong")
+StudyTargetUnknown = _kind("P209", ERROR, "a study varies a setting or series that does not exist (an undeclared name, or a setting its declaration does not have)", "StudyTargetUnknown")
 NameCaseClash = _kind("P208", ERROR, "two names differ only in letter case (their output files would collide)", "NameCaseClash")
 
 # --- P3xx: units and values ---------------------------------------------------
@@ -179,6 +180,9 @@ RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the hori
 ImportUnpriced = _kind("P311", ERROR, "a connection can import but has no 'buy at' price (imports would be free)", "ImportUnpriced")
 ExportUnpriced = _kind("P312", WARNING, "a connection can export but has no 'sell at' price (exports earn nothing)", "ExportUnpriced")
 Implausible = _kind("P313", ERROR, "a value is beyond any plausible plant or market (1 TW, 1 PWh, 1e8 per MWh, ...)", "Implausible")
+StudyEmptyRange = _kind("P314", ERROR, "a study's range or list of values (or of scenarios) is empty", "StudyEmptyRange")
+StudyValueOutOfRange = _kind("P315", ERROR, "a value a study gives a setting is outside what that setting allows (or a study has too many cases)", "StudyValueOutOfRange")
+StudyUnpaired = _kind("P316", ERROR, "a study's cases are 'paired' but its lists of values and scenarios differ in length", "StudyUnpaired")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")
@@ -196,6 +200,7 @@ SeriesOutsideFolder = _kind("P412", ERROR, "confined mode: a series file lies ou
 SeriesRowTooLong = _kind("P413", ERROR, "a CSV data row has more fields than the header (a decimal comma is named as such)", "SeriesRowTooLong")
 SeriesRowTooShort = _kind("P414", ERROR, "a CSV data row has fewer fields than the header, though the cells a series reads are there", "SeriesRowTooShort")
 SeriesGap = _kind("P415", ERROR, "a regular series misses rows inside the horizon (say 'gaps hold' or 'gaps interpolate' to fill them)", "SeriesGap")
+ScenarioHorizon = _kind("P417", ERROR, "a study's scenario series does not cover the portfolio's horizon (scenario files must share it)", "ScenarioHorizon")
 SeriesGapFilled = _kind("P416", WARNING, "missing rows of a regular series were filled as its 'gaps' option says", "SeriesGapFilled")
 
 # --- P5xx: topology -----------------------------------------------------------

@@ -120,6 +120,24 @@ class LoadedPortfolio:
             raise ValueError("marginal_values() takes a dispatch result of this portfolio")
         return attach(result, options)
 
+    def study(self, name=None, client=None, out=None, options=None, schedules=False, **settings):
+        """Run the study ``name`` (the file's only study when None) and return its cases
+        table, a ``pandas.DataFrame`` with one row per case (docs/studies.md).
+
+        ``client``: a ``distributed.Client`` to run the cases on (by default a local
+        cluster of processes, one a core, is started and stopped).  ``out``: a folder
+        to keep each finished case, the tables and the plots in; a second call with
+        the same folder solves only the cases whose inputs changed (without one, a
+        temporary folder is used and removed).  ``settings`` build the solve options
+        (``time_limit=60``; each case gets one HiGHS thread unless ``threads`` says
+        otherwise).  Raises :class:`portfolio.study.StudyError` for an unknown study.
+        """
+        from .study import run
+        if settings:
+            settings.setdefault("threads", 1)
+        return run(self.model, name, out=out, options=_options(options, settings) if (options or settings)
+                   else None, client=client, schedules=schedules).frame
+
     def graph(self):
         """The network graph (:func:`portfolio.graph.build_graph`)."""
         from .graph import build_graph

@@ -246,6 +246,59 @@ class Cap(Decl):
     import_max: Optional[float] = None
 
 
+# The settings a study may vary ('vary NAME SETTING ...'): the words as written -> the kinds of
+# declaration that have it and the canonical unit.  How a value is applied: portfolio.study.cases.
+VARIED = {
+    "energy": (("storage",), "MWh"),
+    "charge max": (("storage",), "MW"),
+    "discharge max": (("storage",), "MW"),
+    "efficiency round trip": (("storage",), "%"),
+    "efficiency charge": (("storage",), "%"),
+    "efficiency discharge": (("storage",), "%"),
+    "export max": (("connection", "site"), "MW"),
+    "import max": (("connection", "site"), "MW"),
+}
+CASES_CROSS = "cross"      # every combination of the study's values and scenarios
+CASES_PAIRED = "paired"    # the first of each together, then the second of each, ...
+
+
+@dataclass(frozen=True)
+class Varied:
+    """One setting a study varies: ``setting`` (a key of :data:`VARIED`) of ``target``,
+    taking each of ``values`` in canonical units (MW, MWh; a fraction for a percentage)."""
+
+    target: str
+    kind: str                    # 'storage', 'connection' or 'site'
+    setting: str
+    values: tuple
+    span: Span = NOWHERE
+
+    @property
+    def unit(self) -> str:
+        return VARIED[self.setting][1]
+
+
+@dataclass(frozen=True, eq=False)
+class ScenarioSet:
+    """The series ``series`` takes each of ``names`` in turn: ``values[i]`` on the horizon."""
+
+    series: str
+    names: tuple
+    values: tuple                # one np.ndarray per name, one value a step
+    sources: tuple = ()          # the file each was read from (resolved), or None
+    span: Span = NOWHERE
+
+
+@dataclass(frozen=True, eq=False)
+class Study(Decl):
+    """A set of dispatches of the portfolio with settings or series changed
+    (docs/studies.md): its dimensions in the order written, each a
+    :class:`Varied` or a :class:`ScenarioSet`, combined as ``cases`` says."""
+
+    dimensions: tuple = ()
+    cases: str = CASES_CROSS
+
+
 @dataclass(frozen=True, eq=False)
 class Portfolio:
     name: str
@@ -260,6 +313,7 @@ class Portfolio:
     routes: tuple = ()
     cap: Optional[Cap] = None
     span: Span = NOWHERE
+    studies: Mapping[str, Study] = field(default_factory=dict)
 
     def price(self, expr: Optional[PriceExpr]) -> np.ndarray:
         """A price expression evaluated on every step (zeros when absent)."""
@@ -278,4 +332,7 @@ class Portfolio:
     def inputs(self) -> tuple:
         """Every file this portfolio was read from: its own file and its series files."""
         own = (self.path,) if self.path else ()
-        return own + tuple(dict.fromkeys(s.source for s in self.series.values() if s.source))
+        scenarios = (src for st in self.studies.values() for d in st.dimensions
+                     if isinstance(d, ScenarioSet) for src in d.sources)
+        return own + tuple(dict.fromkeys([*(s.source for s in self.series.values() if s.source),
+                                          *(src for src in scenarios if src)]))

@@ -218,6 +218,7 @@ EXPECTED_WORDS = {
     "SIGN": "'plus' or 'minus'",
     "ROUTE_KIND": "'release', 'spill' or 'transfer'",
     "GAP_FILL": "'hold' or 'interpolate'",
+    "CASES": "'cross' or 'paired'",
     "$END": "the end of the file",
 }
 

@@ -14,7 +14,7 @@ import pytest
 from lark import Token, Tree
 from lark.tree import Meta
 
-from portfolio.check.tree import QUANTITY_SETTINGS, WORD_SETTINGS, GrammarShape, Node, Reader, Word, fit, read
+from portfolio.check.tree import QUANTITY_SETTINGS, VARIED_SETTINGS, WORD_SETTINGS, GrammarShape, Node, Reader, Word, fit, read
 from portfolio.diagnostics import Sink
 from portfolio.syntax import fixed_keywords, keywords, parse, parser
 
@@ -30,7 +30,7 @@ def _tree_names() -> set:
 
 def _handled() -> set:
     own = {n for n in vars(Reader) if not n.startswith("_")} - {"PASSED", "transform"}
-    return own | set(QUANTITY_SETTINGS) | set(WORD_SETTINGS)
+    return own | set(QUANTITY_SETTINGS) | set(WORD_SETTINGS) | set(VARIED_SETTINGS)
 
 
 def test_every_rule_has_a_reader_or_is_listed_as_passed_through():

@@ -12,7 +12,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 OPTIONAL = {"pyarrow"}                     # guarded: `--parquet` says how to install it
-IMPORT_TO_DIST = {"yaml": "pyyaml"}        # import names that differ from the distribution's
+IMPORT_TO_DIST = {"yaml": "pyyaml",         # import names that differ from the distribution's
+                  "distributed": "dask"}    # required as dask[distributed] (its extra pins distributed)
 
 
 def _imports() -> set:

@@ -14,6 +14,7 @@ from .context import Context
 from .horizon import check_horizon
 from .sources import series_spec
 from .storage import check_preset_chain
+from .study import check_studies
 from .tree import Node
 
 
@@ -31,6 +32,7 @@ class Checker(Context):
         series = {}
         if self.horizon is not None:
             series = load_series(self.specs, self.horizon, self.base_dir, self.sink, confine=self.confine)
+            found["studies"] = check_studies(self, stmts, found, series)
         if self.sink.has_errors or self.horizon is None:
             return None
         if not found["connections"]:
@@ -64,7 +66,7 @@ class Checker(Context):
         return name, name_span
 
     def collect(self, st: Node) -> None:
-        if st.key in ("price", "connection"):
+        if st.key in ("price", "connection", "study"):
             self.names.declare(st.name, st.key)
         elif st.key == "preset":
             if self.names.declare(st.name, "preset"):

@@ -145,6 +145,31 @@ class Route(Node):
     options: Tuple[Setting, ...]
 
 
+@dataclass(frozen=True)
+class ValueRange(Node):
+    low: Quantity
+    high: Quantity
+    step: Quantity
+
+
+@dataclass(frozen=True)
+class Vary(Node):
+    """``vary TARGET SETTING VALUES`` in a study: ``setting`` is a node keyed by the
+    setting (``vary_energy``, ...), ``values`` a :class:`ValueRange` or a ``value_list``
+    :class:`ListSource`."""
+    target: Word
+    setting: Node
+    values: Any
+
+
+@dataclass(frozen=True)
+class Scenario(Node):
+    """``scenario NAME for SERIES SOURCE`` in a study."""
+    name: Word
+    series: Word
+    source: Any
+
+
 # -- matching a rule's children ------------------------------------------------------
 
 def _kind_of(child) -> str:
@@ -198,7 +223,10 @@ QUANTITY_SETTINGS = ("h_length", "h_step", "export_max", "import_max", "energy",
                      "route_efficiency", "in_transit")
 WORD_SETTINGS = {"h_start": "TIMESTAMP", "h_end": "TIMESTAMP", "h_zone": "STRING", "time_column": "STRING",
                  "curtail": "ALLOWED", "kind": "NAME", "modes": "MODES", "factor": "NUMBER",
-                 "gaps": "GAP_FILL"}
+                 "gaps": "GAP_FILL", "cases": "CASES"}
+# The settings a study may vary (grammar rule 'varied'): each a node with no parts.
+VARIED_SETTINGS = ("vary_energy", "vary_charge_max", "vary_discharge_max", "vary_round_trip",
+                   "vary_eta_charge", "vary_eta_discharge", "vary_export_max", "vary_import_max")
 
 
 @v_args(meta=True)
@@ -222,9 +250,15 @@ class Reader(Transformer):
             (value,) = fit(data, children, "Quantity")
         elif data in WORD_SETTINGS:
             (value,) = fit(data, children, WORD_SETTINGS[data])
+        elif data in VARIED_SETTINGS:
+            return self._varied(data, children, meta)
         else:
             raise GrammarShape(f"no reader for rule '{data}'")
         return Setting(data, self._span(meta), value)
+
+    def _varied(self, data, children, meta) -> Node:
+        fit(data, children)
+        return Node(data, self._span(meta))
 
     def _span(self, meta) -> Span:
         return span_of(self.path, meta)
@@ -383,6 +417,24 @@ class Reader(Transformer):
         pair = Pair("pair", self._span(meta), *fit("spill", children, "ALLOWED", "Quantity?"))
         return Setting("spill", self._span(meta), pair)
 
+    # studies
+    def study(self, meta, children):
+        name, items = fit("study", children, "NAME", "Vary|Scenario|Setting*")
+        return Block("study", self._span(meta), name, None, items)
+
+    def vary(self, meta, children):
+        return Vary("vary", self._span(meta), *fit("vary", children, "NAME", "Node", "ValueRange|ListSource"))
+
+    def value_range(self, meta, children):
+        return ValueRange("value_range", self._span(meta),
+                          *fit("value_range", children, "Quantity", "Quantity", "Quantity"))
+
+    def value_list(self, meta, children):
+        return ListSource("value_list", self._span(meta), *fit("value_list", children, "NUMBER*", "Unit"))
+
+    def scenario(self, meta, children):
+        return Scenario("scenario", self._span(meta), *fit("scenario", children, "NAME", "NAME", _SOURCES))
+
     def was(self, meta, children):
         return Setting("was", self._span(meta), *fit("was", children, "Carried"))
 
@@ -418,7 +470,11 @@ _WORDS = {"h_start": "start", "h_end": "end", "h_length": "length", "h_step": "s
           "min_rest": "rest at least", "soc_min": "soc min", "soc_max": "soc max", "soc_start": "soc start",
           "soc_end": "soc end", "time_column": "time column", "csv_unit": "unit", "route_max": "max",
           "route_efficiency": "efficiency", "in_transit": "in transit", "direction_exclusive": "direction exclusive",
-          "charge_from": "charge only from", "cycles": "cycles max"}
+          "charge_from": "charge only from", "cycles": "cycles max",
+          "vary_energy": "energy", "vary_charge_max": "charge max", "vary_discharge_max": "discharge max",
+          "vary_round_trip": "efficiency round trip", "vary_eta_charge": "efficiency charge",
+          "vary_eta_discharge": "efficiency discharge", "vary_export_max": "export max",
+          "vary_import_max": "import max"}
 
 
 def said(key: str) -> str:

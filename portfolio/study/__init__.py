@@ -1,0 +1,61 @@
+"""Studies: many dispatches of one portfolio, with settings or series varied, on Dask.
+
+A ``study`` block in the file (docs/language.md, checked by
+:mod:`portfolio.check.study`) names what varies; :mod:`.cases` makes each
+case's model from the checked one; :mod:`.run` runs the cases on a Dask
+cluster and keeps each finished case on disk; :mod:`.results` makes the
+cases table and the plots.  :func:`run` joins them (docs/studies.md).
+"""
+
+from __future__ import annotations
+
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import List, Optional
+
+import pandas as pd
+
+from .. import model as M
+from .cases import Case, apply, case_key, cases
+from .results import table, write_plots, write_table
+from .run import StudyError, pick, run_serial, run_study, solve_case
+
+__all__ = ["run", "StudyResult", "StudyError", "Case", "apply", "case_key", "cases", "pick", "run_serial",
+           "run_study", "solve_case", "table"]
+
+
+@dataclass
+class StudyResult:
+    """What :func:`run` did: the cases table and how many cases it solved now."""
+
+    study: M.Study
+    frame: pd.DataFrame
+    solved: int              # cases solved by this run
+    skipped: int             # cases found done in the folder (same key), not solved again
+    failed: int              # cases solved now whose status is not optimal or feasible
+    sent_bytes: int          # what was scattered to the workers: the model and the study, once
+    files: List[Path] = field(default_factory=list)
+
+
+def run(p: M.Portfolio, name: Optional[str] = None, out=None, options=None, client=None,
+        scheduler: Optional[str] = None, workers: Optional[int] = None, schedules: bool = False,
+        plots: bool = True, progress=None) -> StudyResult:
+    """Run study ``name`` of ``p`` (the only one when None) into folder ``out`` (a
+    temporary folder, removed afterwards, when None): see :func:`.run.run_study`."""
+    from ..solve import SolveOptions
+    study = pick(p, name)
+    options = options or SolveOptions(threads=1)
+    if out is None:
+        with tempfile.TemporaryDirectory(prefix="portfolio-study-") as tmp:
+            got = run(p, study.name, tmp, options, client, scheduler, workers, False, False, progress)
+            got.files = []
+            return got
+    out = Path(out)
+    got = run_study(p, study, out, options, client=client, scheduler=scheduler, workers=workers,
+                    schedules=schedules, progress=progress)
+    df = table(study, cases(study), got["rows"])
+    files = write_table(df, out)
+    if plots:
+        files += write_plots(study, df, out)
+    return StudyResult(study, df, got["solved"], got["skipped"], got["failed"], got["sent_bytes"], files)

@@ -1,0 +1,249 @@
+"""Studies (portfolio/study/, docs/studies.md): cases applied to the checked model, run on
+Dask, kept on disk as each finishes, resumed after a kill.
+
+The reference for every table is a serial loop of :func:`portfolio.dispatch.dispatch` over
+the case models, made here independently of the study runner (dataclasses.replace on the
+checked model), so a runner that mixed up values, scenarios or rows would fail.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import portfolio
+from portfolio.dispatch import dispatch
+from portfolio.solve import SolveOptions
+from portfolio.study import apply, case_key, cases, run
+from portfolio.study.run import CASES_DIR, CASE_FILE
+
+OPTIONS = SolveOptions(threads=1)
+PRICES = [30, 80, 20, 90, 40, 100, 10, 70]
+
+
+def _text(prices_b, energy="energy values [2, 4] MWh", extra="", repeat=1):
+    low = " ".join(map(str, PRICES * repeat))
+    high = " ".join(map(str, list(prices_b) * repeat))
+    return f"""
+portfolio tiny
+horizon start 2027-03-01T00:00 length {8 * repeat} h step 1 h zone "UTC"
+price spot values [{low}] per MWh
+connection grid {{ export max 3 MW import max 3 MW sell at spot buy at spot plus 1 per MWh }}
+site yard at grid {{
+  storage cells {{ kind battery energy 4 MWh charge max 2 MW discharge max 2 MW
+                  efficiency round trip 81% soc start 50% end at least start modes exclusive }}
+}}
+study sizes {{
+  vary cells {energy}
+  vary grid export max from 1 MW to 2 MW step 1 MW
+  scenario low for spot values [{low}] per MWh
+  scenario high for spot values [{high}] per MWh
+  {extra}
+}}
+"""
+
+
+def _load(tmp_path, text, name="tiny.folio"):
+    path = tmp_path / name
+    path.write_text(text)
+    return portfolio.load(path)
+
+
+def _serial_objectives(p):
+    """The independent reference: each case built by hand and dispatched in this process."""
+    out = []
+    for e in (2.0, 4.0):
+        for x in (1.0, 2.0):
+            for prices in (PRICES, [2 * v for v in PRICES]):
+                s = p.storages["cells"]
+                k = e / s.energy
+                st = replace(s, energy=e, soc_min=s.soc_min * k, soc_max=s.soc_max * k,
+                             soc_start=s.soc_start * k, end_value=s.end_value * k)
+                series = dict(p.series, spot=replace(p.series["spot"], values=np.array(prices, float)))
+                m = replace(p, storages={"cells": st}, series=series,
+                            connections={"grid": replace(p.connections["grid"], export_max=x)}, studies={})
+                out.append(dispatch(m, OPTIONS).objective)
+    return out
+
+
+def test_cases_are_the_cross_product_applied_to_the_model(tmp_path):
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    study = p.studies["sizes"]
+    cs = cases(study)
+    assert len(cs) == 2 * 2 * 2
+    m = apply(p, study, cs[-1])                   # energy 4, export 2, scenario high
+    assert m.storages["cells"].energy == 4 and m.connections["grid"].export_max == 2
+    assert list(m.series["spot"].values) == [2 * v for v in PRICES]
+    small = apply(p, study, cs[0]).storages["cells"]
+    assert small.soc_start == pytest.approx(1.0) and small.soc_max == pytest.approx(2.0)   # 50 % of 2 MWh
+    assert not m.studies
+
+
+def test_round_trip_splits_evenly_and_paired_zips(tmp_path):
+    text = _text([2 * v for v in PRICES], energy="efficiency round trip values [64, 81] %",
+                 extra="cases paired").replace("from 1 MW to 2 MW step 1 MW", "values [1, 2] MW")
+    p = _load(tmp_path, text).model
+    study = p.studies["sizes"]
+    cs = cases(study)
+    assert [(c.settings[0][2], c.settings[1][2], c.scenarios[0][1]) for c in cs] == [
+        (0.64, 1.0, "low"), (0.81, 2.0, "high")]
+    s = apply(p, study, cs[0]).storages["cells"]
+    assert s.eta_charge == pytest.approx(0.8) and s.eta_discharge == pytest.approx(0.8)
+
+
+def test_case_key_follows_inputs_not_layout(tmp_path):
+    a = _load(tmp_path, _text([2 * v for v in PRICES]), "a.folio").model
+    b = _load(tmp_path, "# a comment moves every line\n" + _text([2 * v for v in PRICES]), "b.folio").model
+    c = _load(tmp_path, _text([2 * v + 1 for v in PRICES]), "c.folio").model
+    keys = [[case_key(apply(m, m.studies["sizes"], k), OPTIONS) for k in cases(m.studies["sizes"])]
+            for m in (a, b, c)]
+    assert keys[0] == keys[1]
+    assert [k for i, k in enumerate(keys[0]) if i % 2 == 0] == [k for i, k in enumerate(keys[2]) if i % 2 == 0]
+    assert all(x != y for i, (x, y) in enumerate(zip(keys[0], keys[2])) if i % 2 == 1)
+    assert case_key(apply(a, a.studies["sizes"], cases(a.studies["sizes"])[0]), SolveOptions(threads=2)) != keys[0][0]
+
+
+def test_local_cluster_gives_the_serial_table(tmp_path):
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    want = _serial_objectives(loaded.model)
+    got = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=2)
+    df = got.frame
+    assert list(df["status"]) == ["optimal"] * 8
+    assert np.allclose(df["objective"], want, rtol=0, atol=1e-9)
+    assert list(df["cells energy [MWh]"]) == [2, 2, 2, 2, 4, 4, 4, 4]
+    assert list(df["spot scenario"]) == ["low", "high"] * 4
+    assert df["worker"].str.startswith("tcp://127.0.0.1:").all()
+    # revenue per asset adds up to the objective (no wear, no demand): the columns are the case's own
+    assert np.allclose(df["revenue cells"], df["objective"], atol=1e-6)
+    back = pd.read_csv(tmp_path / "out" / "cases.csv")
+    assert np.allclose(back["objective"], want, atol=1e-9)
+    assert (tmp_path / "out" / "plots" / "objective_vs_cells_energy.svg").is_file()
+    assert got.sent_bytes > 0
+    again = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=2)
+    assert (again.solved, again.skipped) == (0, 8)
+    assert np.allclose(again.frame["objective"], want, atol=1e-9)
+
+
+def test_api_returns_a_dataframe_and_a_failing_case_does_not_stop_the_others(tmp_path):
+    # without import the store cannot reach its end rule (it must end fuller than it starts)
+    text = _text([2 * v for v in PRICES], energy="energy values [4] MWh  vary grid import max values [2, 0] MW")
+    loaded = _load(tmp_path, text.replace("end at least start", "end at least 90%"))
+    df = loaded.study("sizes", out=tmp_path / "out")
+    assert isinstance(df, pd.DataFrame) and len(df) == 8
+    assert set(df[df["grid import max [MW]"] == 0]["status"]) == {"infeasible"}
+    assert set(df[df["grid import max [MW]"] == 2]["status"]) == {"optimal"}
+    assert df[df["status"] == "infeasible"]["objective"].isna().all()
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _tool(name):
+    exe = shutil.which(name, path=str(Path(sys.executable).parent))
+    if exe is None:
+        pytest.skip(f"the {name} command is not installed beside this Python")
+    return exe
+
+
+@pytest.mark.slow
+def test_a_real_scheduler_and_worker_give_the_serial_table(tmp_path):
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    want = _serial_objectives(loaded.model)
+    port = _free_port()
+    dask = _tool("dask")
+    procs = [subprocess.Popen([dask, "scheduler", "--host", "127.0.0.1", "--port", str(port),
+                               "--dashboard-address", ":0", "--no-show"], stdout=subprocess.DEVNULL,
+                              stderr=subprocess.DEVNULL, start_new_session=True)]
+    try:
+        procs.append(subprocess.Popen([dask, "worker", f"tcp://127.0.0.1:{port}", "--host", "127.0.0.1",
+                                       "--nthreads", "1", "--no-dashboard"], stdout=subprocess.DEVNULL,
+                                      stderr=subprocess.DEVNULL, start_new_session=True))
+        from distributed import Client
+        with Client(f"tcp://127.0.0.1:{port}", timeout=60) as client:
+            client.wait_for_workers(1, timeout=60)
+            df = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, client=client).frame
+        assert np.allclose(df["objective"], want, rtol=0, atol=1e-9)
+        assert df["worker"].nunique() == 1 and df["worker"].iloc[0].startswith("tcp://127.0.0.1:")
+    finally:
+        for pr in procs:
+            os.killpg(pr.pid, signal.SIGTERM)
+            pr.wait(timeout=30)
+
+
+@pytest.mark.slow
+def test_a_killed_study_loses_no_case_and_resumes(tmp_path):
+    """SIGKILL the `portfolio study` command (and its workers) once some cases are written;
+    a re-run solves only the rest, leaves the finished ones' files alone, and its table
+    equals an uninterrupted run's."""
+    exe = _tool("portfolio")
+    text = _text([2 * v for v in PRICES], energy="energy from 1 MWh to 30 MWh step 1 MWh", repeat=24)
+    path = tmp_path / "tiny.folio"
+    path.write_text(text)
+    out = tmp_path / "out"
+    cmd = [exe, "study", str(path), "--out", str(out), "--workers", "1", "-q"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, start_new_session=True)
+    deadline = time.monotonic() + 120      # not a performance target: a hung start fails the test
+    done = []
+    while time.monotonic() < deadline and proc.poll() is None:
+        done = list((out / CASES_DIR).glob(f"*/{CASE_FILE}")) if (out / CASES_DIR).is_dir() else []
+        if len(done) >= 3:
+            break
+        time.sleep(0.05)
+    if proc.poll() is not None:
+        _, err = proc.communicate()
+        assert proc.returncode == 0, err.decode()
+        pytest.skip("the study finished before it could be killed")
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    before = {f.parent.name: f.stat().st_mtime_ns for f in (out / CASES_DIR).glob(f"*/{CASE_FILE}")}
+    assert len(before) >= 3
+    total = 30 * 2 * 2
+    assert len(before) < total
+    again = subprocess.run(cmd, capture_output=True, text=True, timeout=600)
+    assert again.returncode == 0, again.stderr
+    assert f"{total - len(before)} solved now, {len(before)} done before" in again.stdout
+    for case_id, mtime in before.items():
+        assert (out / CASES_DIR / case_id / CASE_FILE).stat().st_mtime_ns == mtime
+    resumed = pd.read_csv(out / "cases.csv")
+    whole = run(portfolio.load(path).model, "sizes", tmp_path / "whole", OPTIONS, workers=2).frame
+    assert list(resumed["case"]) == list(whole["case"])
+    assert np.allclose(resumed["objective"], whole["objective"], rtol=0, atol=1e-9)
+
+
+def test_cli_refuses_bad_input_and_runs_nothing(tmp_path):
+    from portfolio.cli import main
+    path = tmp_path / "bad.folio"
+    path.write_text(_text(PRICES).replace("vary cells energy", "vary cels energy"))
+    out, err = _Sink(), _Sink()
+    assert main(["study", str(path), "--out", str(tmp_path / "out")], out, err) == 1
+    assert "P209" in err.text and not (tmp_path / "out").exists()
+    good = tmp_path / "good.folio"
+    good.write_text(_text(PRICES))
+    assert main(["study", str(good), "other", "--out", str(tmp_path / "out")], out, err) == 2
+    assert "no study 'other'" in err.text and not (tmp_path / "out").exists()
+
+
+class _Sink:
+    def __init__(self):
+        self.text = ""
+
+    def write(self, s):
+        self.text += s
+
+    def flush(self):
+        pass

@@ -254,6 +254,7 @@ class Portfolio:
     routes: tuple = ()
     cap: Optional[Cap] = None
     span: Span = NOWHERE
+    currency: Optional[str] = None   # ISO 4217 code of prices and money; None: not declared
 
     def price(self, expr: Optional[PriceExpr]) -> np.ndarray:
         """A price expression evaluated on every step (zeros when absent)."""

@@ -40,8 +40,8 @@ from typing import Iterable, List
 import numpy as np
 import pandas as pd
 
-from .contract import (FORMATS, MARGINAL_TABLE, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE,
-                       WINDOWS_TABLE, table_file)
+from .contract import (FORMATS, MARGINAL_TABLE, MARKER, PERIODS_TABLE, RESERVED_NAMES, SUMMARY_FILE,
+                       WIDE, WINDOWS_TABLE, table_file)
 
 
 class OutputFolderError(Exception):
@@ -95,6 +95,7 @@ def _extra(result) -> list:
     """Tables beside the assets' (dispatch by windows: the per-window table; when asked
     for: the marginal values)."""
     extra = [(WINDOWS_TABLE, getattr(result, "windows", None)),
+             (PERIODS_TABLE, getattr(result, "periods", None)),
              (MARGINAL_TABLE, getattr(result, "marginal_values", None))]
     return [(name, df) for name, df in extra if df is not None]
 
@@ -102,7 +103,7 @@ def _extra(result) -> list:
 def _check_names(result) -> None:
     for name in (result.tables or {}):
         if name in dict(_extra(result)):
-            what = "per-window" if name == WINDOWS_TABLE else "marginal values"
+            what = {WINDOWS_TABLE: "per-window", PERIODS_TABLE: "daily and monthly"}.get(name, "marginal values")
             raise OutputFolderError(f'an asset is named "{name}", which clashes with the {what} '
                                     f"table {name}.csv; rename the asset")
         if name in RESERVED_NAMES:

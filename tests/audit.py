@@ -11,7 +11,7 @@ Tolerances: a limit or identity is violated when it is off by more than
 ``tol`` (1e-6) times ``max(1, scale)``, where ``scale`` is the size of the
 largest term in that row (balances of a 300 MWh store are checked to about
 3e-4 MWh; a 1 MW limit to 1e-6 MW).  Money sums (cashflow, objective,
-revenues) use the same rule with the sum of the absolute terms as scale,
+net values) use the same rule with the sum of the absolute terms as scale,
 because the written tables clip values below 1e-9 to zero.
 
 A state carried in from before the horizon (``was ...``) starts the run and
@@ -51,7 +51,7 @@ COLUMNS = {
     "connection": ["import_mw", "export_mw", "sell_price", "buy_price", "cashflow"],
     "route": ["flow_mw", "arriving_mw"],
 }
-ASSET_KEYS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+ASSET_KEYS = ("net_value", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
               "curtailed_mwh", "spilled_mwh")
 
 
@@ -569,7 +569,7 @@ class _Audit:
                 v = self.col(dm.name, "demand_mw")
                 self.money(dm.name, "summary energy_in_mwh", e["energy_in_mwh"], float(v.sum()) * dt, v * dt)
 
-        # revenue attribution
+        # net value attribution
         price = {}
         for cn in p.connections.values():
             exp = self.col(cn.name, "export_mw")
@@ -585,13 +585,13 @@ class _Audit:
                 d, c = self.col(k.name, "discharge_mw"), self.col(k.name, "charge_mw")
                 terms = np.r_[dt * pr * d, dt * pr * c, k.wear * d * dt]
                 want = float(np.sum(dt * pr * (d - c))) - k.wear * float(d.sum()) * dt
-                got = e["revenue"] if e else None
+                got = e["net_value"] if e else None
                 if k.name in direct:        # its own charge includes supply: check as a group
                     group_want += want
                     group_terms.append(terms)
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(k.name, "summary revenue (attribution)", got, want, terms)
+                    self.money(k.name, "summary net value (attribution)", got, want, terms)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(terms)
             for i in p.supplies.values():
@@ -600,13 +600,13 @@ class _Audit:
                 e = entry("supplies", i.name)
                 u = self.col(i.name, "used_mw")
                 want = float(np.sum(dt * pr * u))
-                got = e["revenue"] if e else None
+                got = e["net_value"] if e else None
                 if any(t != "site" for t in i.targets):
                     group_want += want
                     group_terms.append(dt * pr * u)
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(i.name, "summary revenue (attribution)", got, want, dt * pr * u)
+                    self.money(i.name, "summary net value (attribution)", got, want, dt * pr * u)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * u)
             for dm in p.demands.values():
@@ -614,28 +614,28 @@ class _Audit:
                     continue
                 e = entry("demands", dm.name)
                 v = self.col(dm.name, "demand_mw")
-                got = e["revenue"] if e else None
-                self.money(dm.name, "summary revenue (attribution)", got, -float(np.sum(dt * pr * v)),
+                got = e["net_value"] if e else None
+                self.money(dm.name, "summary net value (attribution)", got, -float(np.sum(dt * pr * v)),
                            dt * pr * v)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * v)
             if group_terms:
-                self.money(site.name, "summary revenue of the stores and supplies that feed them "
+                self.money(site.name, "summary net value of the stores and supplies that feed them "
                            "(attribution, as a group)", group_got, group_want, np.concatenate(group_terms))
             e = entry("sites", site.name)
             flat = np.concatenate([np.ravel(x) for x in site_terms]) if site_terms else []
             if e is not None:
-                self.money(site.name, "summary revenue = sum of its assets'", e["revenue"], site_rev, flat)
+                self.money(site.name, "summary net value = sum of its assets'", e["net_value"], site_rev, flat)
             total_rev += site_rev
             total_terms.append(flat)
         flat = np.concatenate([np.ravel(x) for x in total_terms]) if total_terms else []
-        self.money("summary.json", "sum of the assets' revenues vs the objective", total_rev,
+        self.money("summary.json", "sum of the assets' net values vs the objective", total_rev,
                    S.get("objective") if isinstance(S.get("objective"), (int, float)) else float("nan"), flat)
         for cn in p.connections:
             e = entry("connections", cn)
             if e is not None:
                 v = self.col(cn, "cashflow")
-                self.money(cn, "summary revenue = its cashflow", e["revenue"], float(v.sum()), v)
+                self.money(cn, "summary net value = its cashflow", e["net_value"], float(v.sum()), v)
 
 
 def _steps_up(hours: float, dt: float) -> int:

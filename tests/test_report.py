@@ -187,10 +187,10 @@ def test_report_figures_equal_the_csvs(which, request):
         assert vals[f"connections/{name}/energy_out_mwh"] == pytest.approx(t["export_mw"].sum() * dt, abs=1e-6)
         # a connection's money is its cashflow column, recomputed from prices and flows
         cash = (dt * (t["sell_price"] * t["export_mw"] - t["buy_price"] * t["import_mw"])).sum()
-        assert vals[f"connections/{name}/revenue"] == pytest.approx(cash, rel=1e-9, abs=1e-6)
+        assert vals[f"connections/{name}/net_value"] == pytest.approx(cash, rel=1e-9, abs=1e-6)
         checked += 1
     # the storages', supplies' and demands' values add up to the objective (docs/outputs.md)
-    parts = sum(vals[f"{g}/{n}/revenue"] for g in ("storages", "supplies", "demands") for n in summary[g])
+    parts = sum(vals[f"{g}/{n}/net_value"] for g in ("storages", "supplies", "demands") for n in summary[g])
     assert parts == pytest.approx(summary["objective"], rel=1e-6, abs=1e-6)
     assert checked >= 3
 

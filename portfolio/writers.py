@@ -54,8 +54,20 @@ def _iso_index(df: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+CSV_DECIMALS = 6     # every number in a CSV: MW, MWh, money, money/MWh to 1e-6 (docs/outputs.md)
+
+
+def rounded(df: pd.DataFrame, decimals: int = CSV_DECIMALS) -> pd.DataFrame:
+    """``df`` with its float columns rounded to ``decimals`` (a -0.0 written as 0.0), words untouched."""
+    out = df.copy()
+    for c in out.columns:
+        if pd.api.types.is_float_dtype(out[c]):
+            out[c] = out[c].round(decimals) + 0.0
+    return out
+
+
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
-    _iso_index(df).to_csv(path, lineterminator="\n")
+    _iso_index(rounded(df)).to_csv(path, lineterminator="\n")
 
 
 def _write_parquet(df: pd.DataFrame, path: Path) -> None:

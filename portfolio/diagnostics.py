@@ -179,7 +179,7 @@ RuleTooLong = _kind("P310", WARNING, "a run or rest rule is longer than the hori
 ImportUnpriced = _kind("P311", ERROR, "a connection can import but has no 'buy at' price (imports would be free)", "ImportUnpriced")
 ExportUnpriced = _kind("P312", WARNING, "a connection can export but has no 'sell at' price (exports earn nothing)", "ExportUnpriced")
 Implausible = _kind("P313", ERROR, "a value is beyond any plausible plant or market (1 TW, 1 PWh, 1e8 per MWh, ...)", "Implausible")
-UnknownCurrency = _kind("P314", ERROR, "a currency is not an ISO 4217 code (three capital letters of a listed currency)", "UnknownCurrency")
+UnknownCurrency = _kind("P317", ERROR, "a currency is not an ISO 4217 code (three capital letters of a listed currency)", "UnknownCurrency")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")

@@ -29,7 +29,7 @@ VES VND VUV WST XAF XCD XCG XOF XPF YER ZAR ZMW ZWG
 
 
 def check_currency(stmts, sink) -> Optional[str]:
-    """The declared code (None when there is no ``currency`` line); P314 for a code not listed,
+    """The declared code (None when there is no ``currency`` line); P317 for a code not listed,
     P203 for a second declaration."""
     found = first = None
     for st in stmts:

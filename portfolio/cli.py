@@ -18,7 +18,7 @@ from typing import List, Optional
 from . import __version__
 from .diagnostics import EXIT_ERRORS, EXIT_OK, EXIT_USAGE, REGISTRY, Report
 from .cli_output import (Progress, StudyProgress, explain_failure, print_assets, print_marginal,
-                         print_result, status_line)
+                         print_result, status_line, width_of, wrapped)
 from .render import format_json, format_text, printable
 
 # Heavy modules (the front end, pandas, Pyomo, HiGHS) are imported where they
@@ -381,15 +381,16 @@ def cmd_dispatch(args, out, err) -> int:
             print(status_line(result), file=out)
             print(printable(f"portfolio: error: cannot write '{out_dir}': {e}"), file=err)
             return EXIT_USAGE
-        print_result(result, out)
+        width = width_of(out)
+        print_result(result, out, width)
         if spec is not None:
             _print_windows(result, out)
         if not args.quiet:
-            print_marginal(result, out)
+            print_marginal(result, out, width)
             from .contract import CAUTION   # one wording for the terminal and summary.json
-            print_assets(result, out)
+            print_assets(result, out, width)
             print(printable(f"schedule written to {out_dir}/"), file=out)
-            print(f"caution: {CAUTION}", file=out)
+            print(wrapped(f"caution: {CAUTION}", width), file=out)
         if args.report:
             return _report_after(out_dir, out, err, args.quiet) or exit_code(status)
     else:
@@ -398,7 +399,7 @@ def cmd_dispatch(args, out, err) -> int:
             written = f"summary written to {out_dir}/summary.json (no schedule)"
         except (OSError, ValueError, OutputFolderError) as e:
             written = f"portfolio: could not write the summary to '{out_dir}': {e}"
-        print_result(result, out)
+        print_result(result, out, width_of(out))
         explain_failure(result, err)
         mv = result.summary.get("marginal_values")
         if mv:

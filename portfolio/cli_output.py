@@ -8,23 +8,64 @@ import time
 
 from .render import printable
 
+WIDTH = 80        # the terminal's width when it cannot be asked (output to a file or a pipe)
 
-def print_result(result, out) -> None:
-    print(status_line(result), file=out)
+
+def print_result(result, out, width: int = WIDTH) -> None:
+    print(status_line(result, width), file=out)
     for note in result.summary.get("notes", ()):
-        print(printable(f"note: {note}"), file=out)
+        print(wrapped(printable(f"note: {note}"), width), file=out)
 
 
-def status_line(result) -> str:
+def width_of(out) -> int:
+    """Columns to fill: the terminal's (at least 40) when ``out`` is one, else :data:`WIDTH`."""
+    import shutil
+
+    try:
+        if out.isatty():
+            return max(40, shutil.get_terminal_size((WIDTH, 24)).columns)
+    except (AttributeError, ValueError, OSError):
+        pass
+    return WIDTH
+
+
+def currency(summary: dict) -> str:
+    """The unit of money on screen: the declared ISO 4217 code, or 'money' (docs/language.md)."""
+    return summary.get("currency") or "money"
+
+
+def money(x: float, summary: dict) -> str:
+    """Money as the terminal shows it: two decimals, thousands grouped, the currency after."""
+    return f"{x:,.2f} {currency(summary)}"
+
+
+def wrapped(text: str, width: int) -> str:
+    """``text`` broken into lines of at most ``width`` columns (continuations indented)."""
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width=width, subsequent_indent="  ", break_on_hyphens=False))
+
+
+def status_line(result, width: int = 0) -> str:
+    """The status, objective, gap and times, parted by ' | '; with ``width``, broken into
+    lines of at most that many columns between parts."""
     parts = [f"status: {result.status}"]
     if result.objective is not None:
-        parts.append(f"objective {result.objective:,.2f}")
+        parts.append(f"objective {money(result.objective, result.summary or {})}")
     if result.mip_gap is not None:
         gap = result.mip_gap if result.mip_gap > 1e-12 else 0.0
         parts.append(f"gap {gap * 100:.3g} %")
     parts.append(f"build {result.build_seconds:.2f} s")
     parts.append(f"solve {result.solve_seconds:.2f} s")
-    return " | ".join(parts)
+    if not width:
+        return " | ".join(parts)
+    lines = [parts[0]]
+    for part in parts[1:]:
+        if len(lines[-1]) + 3 + len(part) <= width:
+            lines[-1] += " | " + part
+        else:
+            lines.append("  " + part)
+    return "\n".join(lines)
 
 
 def explain_failure(result, err) -> None:
@@ -64,34 +105,80 @@ def _no_schedule_reason(summary: dict) -> str:
     return f"the solver stopped before it found a schedule ({shown}); no schedule"
 
 
-def print_assets(result, out) -> None:
+def print_assets(result, out, width: int = WIDTH) -> None:
+    """Per-asset figures in tables that fit ``width`` columns, the storages' prices, and the
+    line that reconciles the assets' net values with the objective."""
     from rich.console import Console
     from rich.table import Table
 
-    from .contract import CLI_ASSET_COLUMNS, CLI_GROUP_ORDER
+    from .contract import CLI_ASSET_COLUMNS, CLI_GROUP_ORDER, CLI_HEADINGS, PRICE_KEYS
 
-    console = Console(file=out, width=120, highlight=False)
+    console = Console(file=out, width=width, highlight=False, emoji=False)
     summary = result.summary
+    cur = currency(summary)
+    routes = {r.name: r for r in getattr(getattr(result, "portfolio", None), "routes", ()) or ()}
     for group in CLI_GROUP_ORDER:
         rows = summary.get(group) or {}
         if not rows:
             continue
-        cols = [c for c in CLI_ASSET_COLUMNS
-                if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
-                or (c == "revenue" and any(c in v for v in rows.values()))]
-        table = Table(title=group, title_justify="left", show_edge=False)
-        table.add_column("name")
+        if group == "routes":
+            cols = ["flow_mwh", "in_transit_end_mwh"]     # always: what flowed, what is on its way
+        else:
+            cols = [c for c in CLI_ASSET_COLUMNS
+                    if any(v.get(c) not in (None, 0, 0.0) for v in rows.values())
+                    or (c == "net_value" and any(c in v for v in rows.values()))]
+        table = Table(title=group, title_justify="left", show_edge=False, pad_edge=False)
+        table.add_column("name", overflow="fold")
+        if group == "routes":
+            table.add_column("from -> to", overflow="fold")
         for c in cols:
-            table.add_column(c, justify="right")
+            head = CLI_HEADINGS.get(c, c) + (f" {cur}" if c == "net_value" else "")
+            table.add_column(head, justify="right")
         for name, v in rows.items():
-            table.add_row(name, *[_num(v.get(c)) for c in cols])
+            cells = [printable(name)]
+            if group == "routes":
+                r = routes.get(name)
+                cells.append(printable(f"{r.source} -> {r.target}") if r is not None else "")
+            cells += [_num(v.get(c), _DIGITS.get(c, 2)) for c in cols]
+            table.add_row(*cells)
         console.print(table)
+    stores = summary.get("storages") or {}
+    if any(v.get(k) is not None for v in stores.values() for k in PRICE_KEYS):
+        table = Table(title=f"storage prices ({cur}/MWh, energy-weighted at the connection's price)",
+                      title_justify="left", show_edge=False, pad_edge=False)
+        table.add_column("name", overflow="fold")
+        for c in PRICE_KEYS + ("equivalent_full_cycles",):
+            table.add_column(CLI_HEADINGS.get(c, c), justify="right")
+        for name, v in stores.items():
+            table.add_row(printable(name), *[_num(v.get(c), 2) for c in PRICE_KEYS + ("equivalent_full_cycles",)])
+        console.print(table)
+    line = reconcile_line(summary)
+    if line:
+        print(wrapped(line, width), file=out)
+
+
+_DIGITS = {"equivalent_full_cycles": 2}
+
+
+def reconcile_line(summary: dict) -> str:
+    """Why the numbers on screen add up: the storages', supplies' and demands' net values sum to
+    the objective, which is the connections' cashflow less the storages' wear."""
+    objective = summary.get("objective")
+    if objective is None:
+        return ""
+    assets = sum(float(v.get("net_value") or 0.0) for g in ("storages", "supplies", "demands")
+                 for v in (summary.get(g) or {}).values())
+    cash = sum(float(v.get("net_value") or 0.0) for v in (summary.get("connections") or {}).values())
+    wear = cash - float(objective)
+    return (f"net values of storages, supplies and demands add up to the objective "
+            f"({money(assets, summary)}): the connections' cashflow {money(cash, summary)} less "
+            f"storage wear {money(wear, summary)}; a negative net value is a cost.")
 
 
 MARGINAL_SHOWN = 10      # rows of the largest marginal values the terminal shows
 
 
-def print_marginal(result, out) -> None:
+def print_marginal(result, out, width: int = WIDTH) -> None:
     """The largest marginal values (per limit and step) and what they mean, or why there are none."""
     mv = result.summary.get("marginal_values")
     if not mv:
@@ -126,18 +213,18 @@ def print_marginal(result, out) -> None:
         for name, just in (("limit", "left"), ("step", "left"), ("value", "right"), ("unit", "left")):
             t.add_column(name, justify=just)
         for _, col, when, v in cells[:MARGINAL_SHOWN]:
-            t.add_row(printable(col), when.isoformat(), f"{v:,.3f}", units.get(col, ""))
-        Console(file=out, width=120, highlight=False).print(t)
+            t.add_row(printable(col), when.isoformat(), f"{v:,.3f}", units.get(col, "").replace("money", currency(result.summary)))
+        Console(file=out, width=width, highlight=False).print(t)
     for name, v in cap.items():
         print(printable(f"one more MWh of storage {name}'s upper state of charge, every step: {v:,.3f}"),
               file=out)
 
 
-def _num(x) -> str:
+def _num(x, digits: int = 2) -> str:
     if x is None:
         return ""
     if isinstance(x, (int, float)):
-        return f"{x:,.3f}"
+        return f"{x:,.{digits}f}"
     return str(x)
 
 

@@ -78,6 +78,19 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("flow_mw", "MW", "leaving the source: source's stored MWh per step / step hours"),
         Column("arriving_mw", "MW", "reaching the target after the delay, factor and efficiency applied"),
     ),
+    # horizons of more than one day: daily and monthly totals per asset (periods.csv), one row
+    # per period and asset, indexed by the period's first step
+    "periods": (
+        Column("period", "-", "day or month, in the horizon's zone"),
+        Column("label", "-", "the day (YYYY-MM-DD) or month (YYYY-MM)"),
+        Column("asset", "-", "the asset's name"),
+        Column("kind", "-", "storage, supply, demand, site or connection"),
+        Column("energy_in_mwh", "MWh", "energy in over the period, as the per-asset key energy_in_mwh"),
+        Column("energy_out_mwh", "MWh", "energy out over the period, as the per-asset key energy_out_mwh"),
+        Column("net_value", "money", "the asset's net value over the period (negative: a cost)"),
+        Column("curtailed_mwh", "MWh", "supply not taken over the period (0 for other kinds)"),
+        Column("spilled_mwh", "MWh", "stored energy or water spilled over the period (0 for other kinds)"),
+    ),
     # dispatch by windows only: one row per window, indexed by its first step (windows.csv)
     "windows": (
         Column("window", "-", "the window's number, from 1"),
@@ -102,7 +115,7 @@ SUMMARY_KEYS = (
     "polish_seconds", "time_limit", "certificate", "polish", "tie_break", "steps", "step_hours",
     "start", "zone", "portfolio", "variant", "warm_start", "solver_status", "model", "caution",
     "storages", "supplies", "demands", "sites", "connections", "routes", "relaxed", "notes",
-    "provenance", "network",
+    "provenance", "network", "currency",
 )
 # summary["provenance"]: where the result came from (portfolio/provenance.py); a summary
 # without it was written by an older version (the report refuses it)
@@ -116,6 +129,7 @@ WINDOW_KEYS = ("commit_h", "overlap_h", "end", "foresight_h", "workers", "count"
                "lp_seconds", "stitched_objective", "gap", "ratio_to_bound", "resolved",
                "max_violation", "worst", "seconds", "windows")
 WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>
+PERIODS_TABLE = "periods"          # daily and monthly totals: periods.<format>
 
 # -- marginal values (dispatch --marginal-values; docs/marginal-values.md) --------------------
 
@@ -151,16 +165,26 @@ ASSET_GROUPS: Mapping[str, str] = {
     "connections": "connection", "routes": "route",
 }
 
-ASSET_KEYS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+ASSET_KEYS = ("net_value", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
               "curtailed_mwh", "spilled_mwh")
-STORAGE_KEYS = ASSET_KEYS + ("soc_end_mwh",)
+# a storage's analyst figures: energy-weighted prices (money/MWh) at its connection's price
+PRICE_KEYS = ("average_charge_price", "average_discharge_price", "spread_captured")
+STORAGE_KEYS = ASSET_KEYS + ("soc_end_mwh",) + PRICE_KEYS
 ROUTE_KEYS = ("in_transit_end_mwh", "flow_mwh")
 
 # the per-asset figures the terminal shows, in this order (a column is shown when
-# some asset of the group has it non-zero; revenue whenever the group has it)
-CLI_ASSET_COLUMNS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+# some asset of the group has it non-zero; net value whenever the group has it)
+CLI_ASSET_COLUMNS = ("net_value", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
                      "curtailed_mwh", "spilled_mwh", "in_transit_end_mwh")
 CLI_GROUP_ORDER = ("connections", "sites", "storages", "supplies", "demands", "routes")
+# the terminal's short headings (money columns add the currency)
+CLI_HEADINGS = {"net_value": "net value", "energy_in_mwh": "in MWh", "energy_out_mwh": "out MWh",
+                "equivalent_full_cycles": "cycles", "curtailed_mwh": "curtailed MWh",
+                "spilled_mwh": "spilled MWh", "in_transit_end_mwh": "in transit MWh",
+                "flow_mwh": "flowed MWh", "average_charge_price": "avg charge",
+                "average_discharge_price": "avg discharge", "spread_captured": "spread"}
+MONEY_KEYS = ("net_value",)                      # per-asset keys in money
+PRICE_UNIT_KEYS = PRICE_KEYS                     # per-asset keys in money per MWh
 
 # -- output folder -------------------------------------------------------------------------
 

@@ -183,6 +183,7 @@ Implausible = _kind("P313", ERROR, "a value is beyond any plausible plant or mar
 StudyEmptyRange = _kind("P314", ERROR, "a study's range or list of values (or of scenarios) is empty", "StudyEmptyRange")
 StudyValueOutOfRange = _kind("P315", ERROR, "a value a study gives a setting is outside what that setting allows (or a study has too many cases)", "StudyValueOutOfRange")
 StudyUnpaired = _kind("P316", ERROR, "a study's cases are 'paired' but its lists of values and scenarios differ in length", "StudyUnpaired")
+UnknownCurrency = _kind("P317", ERROR, "a currency is not an ISO 4217 code (three capital letters of a listed currency)", "UnknownCurrency")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")

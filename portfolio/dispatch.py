@@ -25,7 +25,7 @@ from . import provenance as prov
 from .compile import Built, build
 from .model import Portfolio
 from .contract import CAUTION
-from .schedule import build_tables, wide
+from .schedule import build_tables, periods, wide
 from .solve import (ERROR, FEASIBLE, INFEASIBLE, INFEASIBLE_OR_UNBOUNDED, NO_SCHEDULE, OPTIMAL,
                     UNBOUNDED, Deadline, Progress, SolveOptions, solve)
 from .spans import Span
@@ -84,6 +84,7 @@ class DispatchResult:
     built: Optional[Built] = field(default=None, repr=False)
     windows: Optional[pd.DataFrame] = None     # dispatch by windows: the per-window table
     marginal_values: Optional[pd.DataFrame] = None   # when asked for: portfolio.marginal.attach
+    periods: Optional[pd.DataFrame] = None     # horizons over a day: daily and monthly totals
 
     @property
     def has_schedule(self) -> bool:
@@ -235,9 +236,12 @@ def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOpti
     tables: Dict[str, pd.DataFrame] = {}
     schedule = None
     parts: dict = {}
+    by_period = None
     if status in (OPTIMAL, FEASIBLE) and sol.solved:
         tables, parts = build_tables(built, sol.values)
         schedule = wide(tables, pd.DatetimeIndex(index, name="time"))
+        by_period = periods(tables, parts, built.step_hours)
+    parts.pop("_step_money", None)
 
     summary = {
         "status": status,
@@ -265,6 +269,7 @@ def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOpti
         "warm_start": options.warm_start and options.interface == "matrix",
         "solver_status": sol.highs_status,
         "caution": CAUTION,
+        "currency": p.currency,
         "model": _model_summary(built, changed),
     }
     summary.update(parts)
@@ -281,4 +286,5 @@ def make_result(p: Portfolio, built: Built, sol, status: str, options: SolveOpti
         build_seconds=built.build_seconds, solve_seconds=sol.solve_seconds,
         schedule=schedule, tables=tables, summary=summary, relaxed=relaxed,
         message=message, handoff_seconds=sol.handoff_seconds, portfolio=p, built=built,
+        periods=by_period,
     )

@@ -314,6 +314,7 @@ class Portfolio:
     cap: Optional[Cap] = None
     span: Span = NOWHERE
     studies: Mapping[str, Study] = field(default_factory=dict)
+    currency: Optional[str] = None   # ISO 4217 code of prices and money; None: not declared
 
     def price(self, expr: Optional[PriceExpr]) -> np.ndarray:
         """A price expression evaluated on every step (zeros when absent)."""

@@ -17,14 +17,17 @@ Conventions:
   :data:`MODE_TOL` (1e-6 MW); a storage without the exclusive rule may, when
   that pays (negative prices with losses), do both: ``both``.
 
-Revenue attribution across a shared connection: each step the connection's
+Net value attribution across a shared connection: each step the connection's
 net flow is valued at the sell price if it exports that step, else at the
 buy price.  Each asset's net injection into its site (storage:
 discharge - charge drawn from the site; supply: power delivered to the site;
 demand: -demand) is valued at that same price, and a storage's wear is
-subtracted from its own revenue.  So the revenues of the storages, supplies
-and demands add up to the objective; a site's revenue is the sum of its
-assets', a connection's revenue is its cashflow (before wear).
+subtracted from its own net value (``net_value``: money the asset brings,
+negative when it costs, as a demand does).  So the net values of the
+storages, supplies and demands add up to the objective; a site's is the sum
+of its assets', a connection's is its cashflow (before wear).  A storage's
+average charge and discharge prices are weighted by the same flows at the
+same price.
 """
 
 from __future__ import annotations
@@ -36,7 +39,7 @@ import numpy as np
 import pandas as pd
 
 from .compile import expressions as E
-from .contract import ASSET_GROUPS, ASSET_KEYS, ROUTE_KEYS, STORAGE_KEYS, frame
+from .contract import ASSET_GROUPS, ASSET_KEYS, COLUMNS, ROUTE_KEYS, STORAGE_KEYS, frame
 
 NOISE = 1e-9
 MODE_TOL = 1e-6
@@ -54,8 +57,8 @@ def _net(net: np.ndarray) -> Tuple[np.ndarray, np.ndarray]:
     return np.maximum(net, 0.0), np.maximum(-net, 0.0)
 
 
-def _asset(revenue=0.0, e_in=0.0, e_out=0.0, efc=None, curtailed=0.0, spilled=0.0) -> dict:
-    vals = (revenue, e_in, e_out, efc, curtailed, spilled)
+def _asset(net_value=0.0, e_in=0.0, e_out=0.0, efc=None, curtailed=0.0, spilled=0.0) -> dict:
+    vals = (net_value, e_in, e_out, efc, curtailed, spilled)
     return {k: (None if v is None else float(v)) for k, v in zip(ASSET_KEYS, vals)}
 
 
@@ -166,7 +169,11 @@ def _meter_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
 
 
 def _summary_parts(acc: E.Values, p, topo, flows: _Flows, tables) -> dict:
-    """The per-asset summary sections (docs/outputs.md, "Revenue attribution")."""
+    """The per-asset summary sections (docs/outputs.md, "Net value attribution").
+
+    Also keeps each asset's net value per step (``_step_money``), which the
+    period totals (:func:`periods`) add up by day and by month.
+    """
     T, dt = acc.steps, acc.dt
 
     def site_price(sname):
@@ -178,38 +185,43 @@ def _summary_parts(acc: E.Values, p, topo, flows: _Flows, tables) -> dict:
         return float(t[col_in].sum()) * dt, float(t[col_out].sum()) * dt
 
     storages, supplies, demands, sites, connections, routes = {}, {}, {}, {}, {}, {}
-    site_rev = {s: 0.0 for s in p.sites}
+    money: Dict[str, np.ndarray] = {}
+    site_money = {s: np.zeros(T) for s in p.sites}
     for k, s in p.storages.items():
         pr = site_price(s.site)
         d, cs = clean(flows.discharge[k]), clean(flows.charge_site[k])
-        rev = float(np.sum(dt * pr * (d - cs))) - s.wear * float(d.sum()) * dt
+        money[k] = dt * pr * (d - cs) - s.wear * d * dt
         e_out = float(d.sum()) * dt
         # Equivalent full cycles (docs/model.md): MWh drawn from the store to discharge over
         # its usable capacity, the definition the cycle limits use; none for a store that
         # cannot charge (a reservoir filled by nature and routes does not cycle).
         efc = (float(clean(acc.of(E.drawn_for_discharge(p, k))).sum()) * dt / s.usable_mwh
                if s.cycles else None)
-        storages[k] = _asset(rev, float(clean(flows.charge[k]).sum()) * dt, e_out, efc,
+        storages[k] = _asset(float(money[k].sum()), float(clean(flows.charge[k]).sum()) * dt, e_out, efc,
                              0.0, float(clean(acc(E.SPILL, k)).sum()) * dt)
-        storages[k][STORAGE_KEYS[-1]] = float(clean(acc(E.SOC, k))[-1]) if T else s.soc_start
-        if s.site in site_rev:
-            site_rev[s.site] += rev
+        storages[k]["soc_end_mwh"] = float(clean(acc(E.SOC, k))[-1]) if T else s.soc_start
+        storages[k].update(_prices(pr, cs, d))
+        if s.site in site_money:
+            site_money[s.site] = site_money[s.site] + money[k]
     for name, f in p.supplies.items():
-        rev = float(np.sum(dt * site_price(f.site) * clean(flows.supply_site[name])))
+        money[name] = dt * site_price(f.site) * clean(flows.supply_site[name])
         e_in, e_out = totals(name, "available_mw", "used_mw")
-        supplies[name] = _asset(rev, e_in, e_out, None, float(tables[name]["curtailed_mw"].sum()) * dt, 0.0)
-        if f.site in site_rev:
-            site_rev[f.site] += rev
+        supplies[name] = _asset(float(money[name].sum()), e_in, e_out, None,
+                                float(tables[name]["curtailed_mw"].sum()) * dt, 0.0)
+        if f.site in site_money:
+            site_money[f.site] = site_money[f.site] + money[name]
     for name, dmd in p.demands.items():
         dem = clean(p.profile(dmd.profile))
-        rev = -float(np.sum(dt * site_price(dmd.site) * dem))
-        demands[name] = _asset(rev, float(dem.sum()) * dt, 0.0, None, 0.0, 0.0)
-        if dmd.site in site_rev:
-            site_rev[dmd.site] += rev
+        money[name] = -dt * site_price(dmd.site) * dem
+        demands[name] = _asset(float(money[name].sum()), float(dem.sum()) * dt, 0.0, None, 0.0, 0.0)
+        if dmd.site in site_money:
+            site_money[dmd.site] = site_money[dmd.site] + money[name]
     for sname in p.sites:
-        sites[sname] = _asset(site_rev[sname], *totals(sname, "import_mw", "export_mw"), None, 0.0, 0.0)
+        money[sname] = site_money[sname]
+        sites[sname] = _asset(float(money[sname].sum()), *totals(sname, "import_mw", "export_mw"), None, 0.0, 0.0)
     for cname in p.connections:
-        connections[cname] = _asset(float(tables[cname]["cashflow"].sum()),
+        money[cname] = tables[cname]["cashflow"].to_numpy(dtype=float)
+        connections[cname] = _asset(float(money[cname].sum()),
                                     *totals(cname, "import_mw", "export_mw"), None, 0.0, 0.0)
     for r in p.routes:
         figures = (flows.route_transit[r.name], flows.route_flow[r.name].sum() * dt)
@@ -217,7 +229,74 @@ def _summary_parts(acc: E.Values, p, topo, flows: _Flows, tables) -> dict:
     parts = {"storages": storages, "supplies": supplies, "demands": demands, "sites": sites,
              "connections": connections, "routes": routes}
     assert tuple(parts) == tuple(ASSET_GROUPS)
+    for group in ("storages",):
+        for fig in parts[group].values():
+            assert tuple(fig) == STORAGE_KEYS
+    parts["_step_money"] = money
     return parts
+
+
+def _prices(price: np.ndarray, bought: np.ndarray, sold: np.ndarray) -> dict:
+    """A storage's energy-weighted average prices (docs/outputs.md, "Storage price figures"):
+    the price its flow met at its connection each step, weighted by the MW drawn from the
+    site (charge) and by the discharge; None when it drew or discharged nothing."""
+    def avg(weights):
+        total = float(weights.sum())
+        return float(np.sum(price * weights)) / total if total > 0 else None
+
+    buy, sell = avg(bought), avg(sold)
+    spread = sell - buy if buy is not None and sell is not None else None
+    return {"average_charge_price": buy, "average_discharge_price": sell, "spread_captured": spread}
+
+
+PERIOD_GROUPS = ("storages", "supplies", "demands", "sites", "connections")   # the assets periods.csv totals
+# per table kind, the columns of energy in, energy out, curtailed, spilled (None: not this kind's)
+_PERIOD_COLUMNS = {
+    "storage": ("charge_mw", "discharge_mw", None, "spill_mw"),
+    "supply": ("available_mw", "used_mw", "curtailed_mw", None),
+    "demand": ("demand_mw", None, None, None),
+    "site": ("import_mw", "export_mw", None, None),
+    "connection": ("import_mw", "export_mw", None, None),
+}
+
+
+def periods(tables: Dict[str, pd.DataFrame], parts: dict, step_hours: float) -> Optional[pd.DataFrame]:
+    """Daily and monthly totals per asset (``periods.csv``), for a horizon of more than one day;
+    None otherwise.  Days and months are the horizon zone's calendar (the tables' index);
+    a row's ``time`` is the first step of its period inside the horizon."""
+    money = parts.get("_step_money") or {}
+    if not tables or not money:
+        return None
+    index = next(iter(tables.values())).index
+    if len(index) * step_hours <= 24.0 + 1e-9:
+        return None
+    keys = {"day": index.strftime("%Y-%m-%d"), "month": index.strftime("%Y-%m")}
+    cols = {c: [] for c in COLUMNS["periods"]}
+    starts = []
+    for length, labels in keys.items():
+        labels = np.asarray(labels)
+        order = list(dict.fromkeys(labels))
+        for group in PERIOD_GROUPS:
+            kind = ASSET_GROUPS[group]
+            for name in parts[group]:
+                t = tables[name]
+                series = [t[c].to_numpy(dtype=float) * step_hours if c else np.zeros(len(t))
+                          for c in _PERIOD_COLUMNS[kind]]
+                for label in order:
+                    m = labels == label
+                    starts.append(index[np.argmax(m)])
+                    cols["period"].append(length)
+                    cols["label"].append(label)
+                    cols["asset"].append(name)
+                    cols["kind"].append(kind)
+                    e_in, e_out, cur, spill = (float(v[m].sum()) for v in series)
+                    cols["energy_in_mwh"].append(e_in)
+                    cols["energy_out_mwh"].append(e_out)
+                    cols["net_value"].append(float(money[name][m].sum()))
+                    cols["curtailed_mwh"].append(cur)
+                    cols["spilled_mwh"].append(spill)
+    return frame("periods", {c: np.asarray(v) for c, v in cols.items()},
+                 pd.DatetimeIndex(starts, name="time"))
 
 
 def wide(tables: Dict[str, pd.DataFrame], index: Optional[pd.DatetimeIndex] = None) -> pd.DataFrame:

@@ -40,8 +40,8 @@ from typing import Iterable, List
 import numpy as np
 import pandas as pd
 
-from .contract import (FORMATS, MARGINAL_TABLE, MARKER, RESERVED_NAMES, SUMMARY_FILE, WIDE,
-                       WINDOWS_TABLE, table_file)
+from .contract import (FORMATS, MARGINAL_TABLE, MARKER, PERIODS_TABLE, RESERVED_NAMES, SUMMARY_FILE,
+                       WIDE, WINDOWS_TABLE, table_file)
 
 
 class OutputFolderError(Exception):
@@ -54,8 +54,20 @@ def _iso_index(df: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+CSV_DECIMALS = 6     # every number in a CSV: MW, MWh, money, money/MWh to 1e-6 (docs/outputs.md)
+
+
+def rounded(df: pd.DataFrame, decimals: int = CSV_DECIMALS) -> pd.DataFrame:
+    """``df`` with its float columns rounded to ``decimals`` (a -0.0 written as 0.0), words untouched."""
+    out = df.copy()
+    for c in out.columns:
+        if pd.api.types.is_float_dtype(out[c]):
+            out[c] = out[c].round(decimals) + 0.0
+    return out
+
+
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
-    _iso_index(df).to_csv(path, lineterminator="\n")
+    _iso_index(rounded(df)).to_csv(path, lineterminator="\n")
 
 
 def _write_parquet(df: pd.DataFrame, path: Path) -> None:
@@ -95,6 +107,7 @@ def _extra(result) -> list:
     """Tables beside the assets' (dispatch by windows: the per-window table; when asked
     for: the marginal values)."""
     extra = [(WINDOWS_TABLE, getattr(result, "windows", None)),
+             (PERIODS_TABLE, getattr(result, "periods", None)),
              (MARGINAL_TABLE, getattr(result, "marginal_values", None))]
     return [(name, df) for name, df in extra if df is not None]
 
@@ -102,7 +115,7 @@ def _extra(result) -> list:
 def _check_names(result) -> None:
     for name in (result.tables or {}):
         if name in dict(_extra(result)):
-            what = "per-window" if name == WINDOWS_TABLE else "marginal values"
+            what = {WINDOWS_TABLE: "per-window", PERIODS_TABLE: "daily and monthly"}.get(name, "marginal values")
             raise OutputFolderError(f'an asset is named "{name}", which clashes with the {what} '
                                     f"table {name}.csv; rename the asset")
         if name in RESERVED_NAMES:

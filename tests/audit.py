@@ -8,10 +8,13 @@ never imports the engine.  It returns a list of violations, one line each
 (empty when the schedule is sound).
 
 Tolerances: a limit or identity is violated when it is off by more than
-``tol`` (1e-6) times ``max(1, scale)``, where ``scale`` is the size of the
+``tol`` (1e-6) times ``max(1, scale)`` (the cashflow identity also by the
+CSVs' rounding, ROUNDING = 5e-7 times its absolute coefficients: each
+value read back is within 5e-7 of the schedule's, docs/outputs.md "CSV
+precision"; so are the balances that add several rounded columns), where ``scale`` is the size of the
 largest term in that row (balances of a 300 MWh store are checked to about
 3e-4 MWh; a 1 MW limit to 1e-6 MW).  Money sums (cashflow, objective,
-revenues) use the same rule with the sum of the absolute terms as scale,
+net values) use the same rule with the sum of the absolute terms as scale,
 because the written tables clip values below 1e-9 to zero.
 
 A state carried in from before the horizon (``was ...``) starts the run and
@@ -38,6 +41,11 @@ import pandas as pd
 from portfolio.model import END_AT_LEAST, END_EQUAL, PRIOR_CHARGE, PRIOR_IDLE, Portfolio
 
 TOL = 1e-6
+# The CSVs are rounded to 6 decimals (docs/outputs.md, "CSV precision"): a value read back is
+# within ROUNDING of the schedule's.  A row mixing rounded values with large coefficients (a
+# cashflow: price x MW) may then be off by ROUNDING x the sum of its absolute coefficients; that
+# check is allowed exactly so much more (the writer's documented precision, not a looser audit).
+ROUNDING = 5e-7
 MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 
 # The output contract restated from docs/outputs.md on purpose, not imported from
@@ -51,7 +59,7 @@ COLUMNS = {
     "connection": ["import_mw", "export_mw", "sell_price", "buy_price", "cashflow"],
     "route": ["flow_mw", "arriving_mw"],
 }
-ASSET_KEYS = ("revenue", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
+ASSET_KEYS = ("net_value", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
               "curtailed_mwh", "spilled_mwh")
 
 
@@ -67,12 +75,14 @@ class _Audit:
     def bad(self, msg: str) -> None:
         self.problems.append(msg)
 
-    def close(self, name: str, what: str, got, want, scale=None) -> None:
-        """Per-step equality within tolerance; report the worst step."""
+    def close(self, name: str, what: str, got, want, scale=None, rounding=0.0) -> None:
+        """Per-step equality within tolerance; report the worst step.  ``rounding``: the
+        most the CSVs' rounding can move the row (ROUNDING x its absolute coefficients)."""
         got, want = np.asarray(got, dtype=float), np.asarray(want, dtype=float)
         if scale is None:
             scale = np.maximum(np.abs(got), np.abs(want))
-        err = np.abs(got - want) - self.tol * np.maximum(1.0, np.asarray(scale, dtype=float))
+        err = (np.abs(got - want) - self.tol * np.maximum(1.0, np.asarray(scale, dtype=float))
+               - np.asarray(rounding, dtype=float))
         err = np.atleast_1d(err)
         if err.size and np.nanmax(err) > 0 or np.isnan(err).any():
             t = int(np.nanargmax(err)) if not np.isnan(err).all() else 0
@@ -100,12 +110,14 @@ class _Audit:
             self.bad(f"{name}: {what} at {self.times[t] if self.T > t else t}: "
                      f"{got[t]:.9g} below {limit[t]:.9g}")
 
-    def money(self, name: str, what: str, got, want, terms) -> None:
+    def money(self, name: str, what: str, got, want, terms, coef: float = 0.0) -> None:
+        """A sum within tolerance; ``coef``: the coefficient of the rounded CSV value in each
+        term (the sum may move by ROUNDING x coef per term)."""
         scale = float(np.sum(np.abs(np.asarray(terms, dtype=float)))) if np.size(terms) else 0.0
         if got is None or not isinstance(got, (int, float)) or not math.isfinite(got):
             self.bad(f"{name}: {what} is {got!r}, expected {want:.9g}")
             return
-        if abs(got - want) > self.tol * max(1.0, scale, abs(want)):
+        if abs(got - want) > self.tol * max(1.0, scale, abs(want)) + ROUNDING * coef * np.size(terms):
             self.bad(f"{name}: {what} is {got:.9g}, expected {want:.9g}")
 
     # -- reading -------------------------------------------------------------------
@@ -321,17 +333,23 @@ class _Audit:
         arrive_mwh = {k: np.zeros(T) for k in p.storages}
         out_mwh = {k: np.zeros(T) for k in p.storages}
         transfer_mwh = {k: np.zeros(T) for k in p.storages}
+        # what the CSVs' rounding may move each sum (ROUNDING x its coefficients, per MW column)
+        arrive_coef = {k: 0.0 for k in p.storages}
+        out_coef = {k: 0.0 for k in p.storages}
         for r in p.routes:
             src = p.storages[r.source]
             flow_csv = self.col(r.name, "flow_mw")
             if r.kind == "release":
                 out = self.col(r.source, "discharge_mw") / src.eta_discharge * dt
                 self.close(r.name, "flow_mw (release = discharge / discharge efficiency)",
-                           flow_csv, out / dt)
+                           flow_csv, out / dt, rounding=ROUNDING * (1.0 + 1.0 / src.eta_discharge))
+                coef = 1.0 / src.eta_discharge
             elif r.kind == "spill":
                 out = self.col(r.source, "spill_mw") * dt
-                self.close(r.name, "flow_mw (spill)", flow_csv, out / dt)
+                self.close(r.name, "flow_mw (spill)", flow_csv, out / dt, rounding=2 * ROUNDING)
+                coef = 1.0
             else:
+                coef = 1.0
                 out = flow_csv * dt
                 self.at_least(r.name, "transfer flow negative", flow_csv, 0.0)
                 transfer_mwh[r.source] += out
@@ -343,8 +361,11 @@ class _Audit:
                 arr[:min(D, T)] = r.in_transit / D
             if D < T:
                 arr[D:] = r.factor * r.efficiency * out[:T - D]
-            self.close(r.name, "arriving_mw", self.col(r.name, "arriving_mw"), arr / dt)
+            self.close(r.name, "arriving_mw", self.col(r.name, "arriving_mw"), arr / dt,
+                       rounding=ROUNDING * (1.0 + r.factor * r.efficiency * coef))
             arrive_mwh[r.target] += arr
+            arrive_coef[r.target] += r.factor * r.efficiency * coef
+            out_coef[r.source] += coef
             out_mwh[r.source] += out
             if self.summary is not None:
                 got = self.summary.get("routes", {}).get(r.name, {}).get("in_transit_end_mwh")
@@ -352,8 +373,10 @@ class _Audit:
                 self.money(r.name, "summary in_transit_end_mwh", got, want, out[max(T - D, 0):])
         for s in p.storages.values():
             n = s.name
-            self.close(n, "routed_in_mw", self.col(n, "routed_in_mw"), arrive_mwh[n] / dt)
-            self.close(n, "routed_out_mw", self.col(n, "routed_out_mw"), out_mwh[n] / dt)
+            self.close(n, "routed_in_mw", self.col(n, "routed_in_mw"), arrive_mwh[n] / dt,
+                       rounding=ROUNDING * (1.0 + arrive_coef[n]))
+            self.close(n, "routed_out_mw", self.col(n, "routed_out_mw"), out_mwh[n] / dt,
+                       rounding=ROUNDING * (1.0 + out_coef[n]))
             c, d = self.col(n, "charge_mw"), self.col(n, "discharge_mw")
             soc, q = self.col(n, "soc_mwh"), self.col(n, "spill_mw")
             nat = p.profile(s.supply) if s.supply else np.zeros(T)
@@ -362,14 +385,16 @@ class _Audit:
                      arrive_mwh[n], transfer_mwh[n]]
             want = terms[0] + terms[1] - terms[2] - terms[3] + terms[4] + terms[5] - terms[6]
             scale = np.max(np.abs(np.vstack(terms + [soc])), axis=0)
-            self.close(n, "energy balance (soc)", soc, want, scale=scale)
+            self.close(n, "energy balance (soc)", soc, want, scale=scale,
+                       rounding=ROUNDING * (2.0 + dt * (s.eta_charge + 1.0 / s.eta_discharge + 1.0
+                                                        + arrive_coef[n] + out_coef[n])))
 
     # supplies, sites, connections ------------------------------------------------------------
     def check_supply(self, i) -> None:
         n = i.name
         avail, used, cur = (self.col(n, c) for c in ("available_mw", "used_mw", "curtailed_mw"))
         self.close(n, "available_mw vs the declared profile", avail, self.p.profile(i.profile))
-        self.close(n, "used + curtailed = available", used + cur, avail)
+        self.close(n, "used + curtailed = available", used + cur, avail, rounding=3 * ROUNDING)
         self.at_least(n, "used_mw negative", used, 0.0)
         self.at_least(n, "curtailed_mw negative", cur, 0.0)
         if not i.curtail_allowed:
@@ -404,7 +429,7 @@ class _Audit:
                     terms.append(self.col(dm.name, "demand_mw"))
             scale = np.max(np.abs(np.vstack(terms)), axis=0)
             self.close(n, "site balance (export - import = net injection of its assets)",
-                       exp - imp, inj, scale=scale)
+                       exp - imp, inj, scale=scale, rounding=ROUNDING * (len(terms) + 2))
             self.check_split(s)
 
     def check_split(self, site) -> None:
@@ -475,7 +500,7 @@ class _Audit:
                 net = net + self.col(s.name, "export_mw") - self.col(s.name, "import_mw")
                 terms += [self.col(s.name, "export_mw"), self.col(s.name, "import_mw")]
             self.close(n, "net flow = sum of its sites' net flows", exp - imp, net,
-                       scale=np.max(np.abs(np.vstack(terms)), axis=0))
+                       scale=np.max(np.abs(np.vstack(terms)), axis=0), rounding=ROUNDING * len(terms))
             sell, buy = p.price(cn.sell), p.price(cn.buy)
             self.close(n, "sell_price vs the declared price", self.col(n, "sell_price"), sell)
             self.close(n, "buy_price vs the declared price", self.col(n, "buy_price"), buy)
@@ -490,7 +515,8 @@ class _Audit:
             cash = dt * (sell * exp - buy * imp)
             self.close(n, "cashflow = step hours x (sell x export - buy x import)",
                        self.col(n, "cashflow"), cash,
-                       scale=dt * np.maximum(np.abs(sell * exp), np.abs(buy * imp)))
+                       scale=dt * np.maximum(np.abs(sell * exp), np.abs(buy * imp)),
+                       rounding=ROUNDING * (1.0 + dt * (np.abs(sell) + np.abs(buy))))
             exp_all, imp_all = exp_all + exp, imp_all + imp
         cap = p.cap
         if cap is not None:
@@ -511,7 +537,7 @@ class _Audit:
         wear = float(np.sum(wear_terms)) if wear_terms else 0.0
         all_terms = np.concatenate([np.ravel(x) for x in cash_terms + wear_terms]) if cash_terms else []
         self.money("summary.json", "objective (sum of cashflows - wear)", S.get("objective"),
-                   cash - wear, all_terms)
+                   cash - wear, all_terms, coef=max([1.0] + [s.wear * dt for s in p.storages.values()]))
 
         def entry(section, name):
             e = S.get(section, {}).get(name)
@@ -530,9 +556,9 @@ class _Audit:
             if e is None:
                 continue
             c, d, q = (self.col(s.name, x) for x in ("charge_mw", "discharge_mw", "spill_mw"))
-            self.money(s.name, "summary energy_in_mwh", e["energy_in_mwh"], float(c.sum()) * dt, c * dt)
-            self.money(s.name, "summary energy_out_mwh", e["energy_out_mwh"], float(d.sum()) * dt, d * dt)
-            self.money(s.name, "summary spilled_mwh", e["spilled_mwh"], float(q.sum()) * dt, q * dt)
+            self.money(s.name, "summary energy_in_mwh", e["energy_in_mwh"], float(c.sum()) * dt, c * dt, coef=dt)
+            self.money(s.name, "summary energy_out_mwh", e["energy_out_mwh"], float(d.sum()) * dt, d * dt, coef=dt)
+            self.money(s.name, "summary spilled_mwh", e["spilled_mwh"], float(q.sum()) * dt, q * dt, coef=dt)
             # docs/model.md: equivalent full cycles = MWh drawn from the store to discharge
             # (d / eta_discharge) over the usable capacity soc_max - soc_min; none for a store
             # that cannot charge (or has no usable capacity)
@@ -554,22 +580,22 @@ class _Audit:
             for key, colname in (("energy_in_mwh", "available_mw"), ("energy_out_mwh", "used_mw"),
                                  ("curtailed_mwh", "curtailed_mw")):
                 v = self.col(i.name, colname)
-                self.money(i.name, f"summary {key}", e[key], float(v.sum()) * dt, v * dt)
+                self.money(i.name, f"summary {key}", e[key], float(v.sum()) * dt, v * dt, coef=dt)
         for section, names in (("sites", p.sites), ("connections", p.connections)):
             for n in names:
                 e = entry(section, n)
                 if e is None:
                     continue
                 imp, exp = self.col(n, "import_mw"), self.col(n, "export_mw")
-                self.money(n, "summary energy_in_mwh", e["energy_in_mwh"], float(imp.sum()) * dt, imp * dt)
-                self.money(n, "summary energy_out_mwh", e["energy_out_mwh"], float(exp.sum()) * dt, exp * dt)
+                self.money(n, "summary energy_in_mwh", e["energy_in_mwh"], float(imp.sum()) * dt, imp * dt, coef=dt)
+                self.money(n, "summary energy_out_mwh", e["energy_out_mwh"], float(exp.sum()) * dt, exp * dt, coef=dt)
         for dm in p.demands.values():
             e = entry("demands", dm.name)
             if e is not None:
                 v = self.col(dm.name, "demand_mw")
-                self.money(dm.name, "summary energy_in_mwh", e["energy_in_mwh"], float(v.sum()) * dt, v * dt)
+                self.money(dm.name, "summary energy_in_mwh", e["energy_in_mwh"], float(v.sum()) * dt, v * dt, coef=dt)
 
-        # revenue attribution
+        # net value attribution
         price = {}
         for cn in p.connections.values():
             exp = self.col(cn.name, "export_mw")
@@ -585,13 +611,13 @@ class _Audit:
                 d, c = self.col(k.name, "discharge_mw"), self.col(k.name, "charge_mw")
                 terms = np.r_[dt * pr * d, dt * pr * c, k.wear * d * dt]
                 want = float(np.sum(dt * pr * (d - c))) - k.wear * float(d.sum()) * dt
-                got = e["revenue"] if e else None
+                got = e["net_value"] if e else None
                 if k.name in direct:        # its own charge includes supply: check as a group
                     group_want += want
                     group_terms.append(terms)
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(k.name, "summary revenue (attribution)", got, want, terms)
+                    self.money(k.name, "summary net value (attribution)", got, want, terms)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(terms)
             for i in p.supplies.values():
@@ -600,13 +626,13 @@ class _Audit:
                 e = entry("supplies", i.name)
                 u = self.col(i.name, "used_mw")
                 want = float(np.sum(dt * pr * u))
-                got = e["revenue"] if e else None
+                got = e["net_value"] if e else None
                 if any(t != "site" for t in i.targets):
                     group_want += want
                     group_terms.append(dt * pr * u)
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(i.name, "summary revenue (attribution)", got, want, dt * pr * u)
+                    self.money(i.name, "summary net value (attribution)", got, want, dt * pr * u)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * u)
             for dm in p.demands.values():
@@ -614,28 +640,28 @@ class _Audit:
                     continue
                 e = entry("demands", dm.name)
                 v = self.col(dm.name, "demand_mw")
-                got = e["revenue"] if e else None
-                self.money(dm.name, "summary revenue (attribution)", got, -float(np.sum(dt * pr * v)),
+                got = e["net_value"] if e else None
+                self.money(dm.name, "summary net value (attribution)", got, -float(np.sum(dt * pr * v)),
                            dt * pr * v)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * v)
             if group_terms:
-                self.money(site.name, "summary revenue of the stores and supplies that feed them "
+                self.money(site.name, "summary net value of the stores and supplies that feed them "
                            "(attribution, as a group)", group_got, group_want, np.concatenate(group_terms))
             e = entry("sites", site.name)
             flat = np.concatenate([np.ravel(x) for x in site_terms]) if site_terms else []
             if e is not None:
-                self.money(site.name, "summary revenue = sum of its assets'", e["revenue"], site_rev, flat)
+                self.money(site.name, "summary net value = sum of its assets'", e["net_value"], site_rev, flat)
             total_rev += site_rev
             total_terms.append(flat)
         flat = np.concatenate([np.ravel(x) for x in total_terms]) if total_terms else []
-        self.money("summary.json", "sum of the assets' revenues vs the objective", total_rev,
+        self.money("summary.json", "sum of the assets' net values vs the objective", total_rev,
                    S.get("objective") if isinstance(S.get("objective"), (int, float)) else float("nan"), flat)
         for cn in p.connections:
             e = entry("connections", cn)
             if e is not None:
                 v = self.col(cn, "cashflow")
-                self.money(cn, "summary revenue = its cashflow", e["revenue"], float(v.sum()), v)
+                self.money(cn, "summary net value = its cashflow", e["net_value"], float(v.sum()), v, coef=1.0)
 
 
 def _steps_up(hours: float, dt: float) -> int:

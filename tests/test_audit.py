@@ -196,15 +196,15 @@ def test_cashflow_is_checked(copy):
     assert _found(audit(p, out), "grid", "cashflow")
 
 
-def test_summary_objective_and_revenue_are_checked(copy):
+def test_summary_objective_and_net_value_are_checked(copy):
     p, out = copy
     s = json.loads((out / "summary.json").read_text())
     s["objective"] += 0.5
-    s["storages"]["bat"]["revenue"] -= 0.25
+    s["storages"]["bat"]["net_value"] -= 0.25
     (out / "summary.json").write_text(json.dumps(s))
     problems = audit(p, out)
     assert _found(problems, "objective (sum of cashflows - wear)"), problems
-    assert _found(problems, "bat", "summary revenue (attribution)"), problems
+    assert _found(problems, "bat", "summary net value (attribution)"), problems
 
 
 def test_wide_table_is_compared_with_the_asset_files(copy):

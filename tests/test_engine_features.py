@@ -104,7 +104,7 @@ def test_portfolio_cap_limits_the_sum_of_connections():
     assert r.objective == pytest.approx(40.0)    # analytic: 4 MW cap x 10
 
 
-def test_revenue_attribution_adds_up_to_the_objective():
+def test_net_value_attribution_adds_up_to_the_objective():
     bat = F.storage("bat", energy=2.0, power=1.0, eta_charge=0.9, eta_discharge=0.9, wear=3.0)
     pv = F.supply("pv", "pv_mw", targets=("site", "bat"), curtail_allowed=True)
     p = F.market([10, -2, 30, 60, 20], [bat], buy=[12, 0, 35, 65, 25], supplies=[pv],
@@ -113,11 +113,11 @@ def test_revenue_attribution_adds_up_to_the_objective():
                                F.series("load_mw", [0.5, 0.5, 1, 1, 0.5])])
     r = dispatch(p)
     s = r.summary
-    total = sum(a["revenue"] for sec in ("storages", "supplies", "demands") for a in s[sec].values())
+    total = sum(a["net_value"] for sec in ("storages", "supplies", "demands") for a in s[sec].values())
     assert total == pytest.approx(r.objective, abs=1e-7)
-    assert s["connections"]["grid"]["revenue"] - 3.0 * s["storages"]["bat"]["energy_out_mwh"] \
+    assert s["connections"]["grid"]["net_value"] - 3.0 * s["storages"]["bat"]["energy_out_mwh"] \
         == pytest.approx(r.objective, abs=1e-7)
-    assert s["sites"]["site"]["revenue"] == pytest.approx(total, abs=1e-7)
+    assert s["sites"]["site"]["net_value"] == pytest.approx(total, abs=1e-7)
 
 
 def test_both_interfaces_agree():

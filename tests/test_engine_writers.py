@@ -46,7 +46,7 @@ def test_files_and_columns_follow_the_contract(result, tmp_path):
                 "steps", "step_hours", "caution"):
         assert key in summary
     assert "advisory" in summary["caution"] and "downstream" in summary["caution"]
-    assert set(summary["storages"]["bat"]) >= {"revenue", "energy_in_mwh", "energy_out_mwh",
+    assert set(summary["storages"]["bat"]) >= {"net_value", "energy_in_mwh", "energy_out_mwh",
                                                "equivalent_full_cycles", "curtailed_mwh", "spilled_mwh"}
     assert "in_transit_end_mwh" in summary["routes"]["lake_to_low"]
 

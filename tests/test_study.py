@@ -125,8 +125,8 @@ def test_local_cluster_gives_the_serial_table(tmp_path):
     assert list(df["cells energy [MWh]"]) == [2, 2, 2, 2, 4, 4, 4, 4]
     assert list(df["spot scenario"]) == ["low", "high"] * 4
     assert df["worker"].str.startswith("tcp://127.0.0.1:").all()
-    # revenue per asset adds up to the objective (no wear, no demand): the columns are the case's own
-    assert np.allclose(df["revenue cells"], df["objective"], atol=1e-6)
+    # net value per asset adds up to the objective (no wear, no demand): the columns are the case's own
+    assert np.allclose(df["net value cells"], df["objective"], atol=1e-6)
     back = pd.read_csv(tmp_path / "out" / "cases.csv")
     assert np.allclose(back["objective"], want, atol=1e-9)
     assert (tmp_path / "out" / "plots" / "objective_vs_cells_energy.svg").is_file()

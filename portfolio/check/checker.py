@@ -11,6 +11,7 @@ from ..series import load_series
 from ..spans import Span
 from . import network
 from .context import Context
+from .currency import check_currency
 from .horizon import check_horizon
 from .sources import series_spec
 from .storage import check_preset_chain
@@ -23,6 +24,7 @@ class Checker(Context):
 
     def run(self, stmts: List[Node]) -> Optional[M.Portfolio]:
         name, name_span = self.heading(stmts)
+        currency = check_currency(stmts, self.sink)
         # First pass: declare every name so that order of declaration does not matter.
         for st in stmts:
             self.collect(st)
@@ -40,7 +42,8 @@ class Checker(Context):
                           "note: declare one with 'connection NAME { export max ... }'")
             return None
         return M.Portfolio(name=name or Path(self.path).stem, path=self.path, horizon=self.horizon, series=series,
-                           routes=tuple(routes), span=name_span or Span.whole_file(self.path), **found)
+                           routes=tuple(routes), span=name_span or Span.whole_file(self.path), currency=currency,
+                           **found)
 
     def heading(self, stmts: List[Node]):
         """The portfolio's name (and its span) and the horizon, each given at most once."""

@@ -299,6 +299,9 @@ class Reader(Transformer):
     def portfolio_decl(self, meta, children):
         return Named("portfolio_decl", self._span(meta), *fit("portfolio_decl", children, "NAME"))
 
+    def currency_decl(self, meta, children):
+        return Named("currency_decl", self._span(meta), *fit("currency_decl", children, "NAME"))
+
     def horizon(self, meta, children):
         return Block("horizon", self._span(meta), None, None, *fit("horizon", children, "Setting*"))
 

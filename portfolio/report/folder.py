@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Dict, List, Optional
 
-from ..contract import (ASSET_GROUPS, COLUMNS, MARKER, NETWORK_KEYS, PROVENANCE_KEYS,
+from ..contract import (ASSET_GROUPS, COLUMNS, MARKER, NETWORK_KEYS, PERIODS_TABLE, PROVENANCE_KEYS,
                         SUMMARY_FILE, WINDOWS_TABLE, table_file)
 from ..files import read_bytes
 
@@ -34,6 +34,12 @@ class Folder:
     tables: Dict[str, "object"] = field(default_factory=dict)   # name -> DataFrame
     kinds: Dict[str, str] = field(default_factory=dict)         # name -> table kind
     windows: Optional["object"] = None
+    periods: Optional["object"] = None                 # periods.csv: daily and monthly totals
+
+    @property
+    def money_unit(self) -> str:
+        """The currency the summary declares, or 'money' when the portfolio declares none."""
+        return self.summary.get("currency") or "money"
 
     @property
     def has_schedule(self) -> bool:
@@ -76,6 +82,9 @@ def _check_summary(path: Path, summary) -> None:
         raise ReportError(
             f"{path / SUMMARY_FILE} was written by an older version of portfolio (it has no "
             f"provenance with the tool version); dispatch again with this version to report it")
+    if "currency" not in summary:
+        raise ReportError(f"{path / SUMMARY_FILE} was written by an older version of portfolio (it has "
+                          f"no currency key); dispatch again with this version to report it")
     net = summary.get("network")
     if not isinstance(net, dict) or set(net) != set(NETWORK_KEYS):
         raise ReportError(f"{path / SUMMARY_FILE} has no network section; dispatch again with "
@@ -122,4 +131,6 @@ def read(path) -> Folder:
             folder.kinds[name] = kind
     if "windows" in summary and table_file(WINDOWS_TABLE, "csv") in listed:
         folder.windows = _table(path, WINDOWS_TABLE, "windows", zone)
+    if table_file(PERIODS_TABLE, "csv") in listed:
+        folder.periods = _table(path, PERIODS_TABLE, "periods", zone)
     return folder

@@ -4,7 +4,7 @@
 figure shown in a table carries ``data-key`` (``group/asset/figure``) and
 ``data-value`` (the unrounded number), so a test can compare the page with
 the CSVs it came from.  Energies are recomputed here from the tables (a
-step's MW times the step's hours); money is summary.json's.
+step's MW times the step's hours); money is summary.json's, in its currency.
 A Content-Security-Policy forbids the page to load anything at all.
 """
 
@@ -96,12 +96,14 @@ def _headline(pg: _Page) -> None:
     cert = s.get("certificate") or {}
     gap = s.get("mip_gap")
     gap_text = "–" if gap is None else f"{100 * gap:.4g} %"
-    rows = [("objective (money)", _cell("objective", s.get("objective"))),
-            ("best bound (money)", _cell("best_bound", s.get("best_bound"))),
+    cur = pg.f.money_unit
+    rows = [(f"objective ({cur})", _cell("objective", s.get("objective"))),
+            (f"best bound ({cur})", _cell("best_bound", s.get("best_bound"))),
             ("relative gap", f'<td class="num" data-key="mip_gap" data-value="{e(repr(gap))}">{gap_text}</td>'),
             ("certificate", f"<td>{e('schedule checked against the model: feasible' if cert.get('feasible') else 'no checked schedule')}"
                             f"{e('; bound from ' + cert['bound_source']) if cert.get('bound_source') else ''}</td>"),
-            ("solver's own word", f"<td>{e(str(s.get('solver_status') or '–'))}</td>")]
+            ("solver's own word", f"<td>{e(str(s.get('solver_status') or '–'))}</td>"),
+            ("currency", f'<td data-key="currency">{e(s.get("currency") or "none declared: money")}</td>')]
     w = s.get("windows")
     if isinstance(w, dict):
         rows.append(("windows", f"<td>{e(str(w.get('count')))} windows of {e(_num(w.get('commit_h'), 1))} h "
@@ -170,7 +172,7 @@ def _sites(pg: _Page) -> None:
             prices = [("sell price", _arr(f.tables[conn], "sell_price")),
                       ("buy price", _arr(f.tables[conn], "buy_price"))]
         svg = C.site_power(f"site {site}", idx, zone, dt, sources, uses, prices, pw,
-                           C.unit("connection", "sell_price"), pg.salt())
+                           C.unit("connection", "sell_price").replace("money", f.money_unit), pg.salt())
         pg.figure(svg, f"Site {site}: power into the site (discharge, supply used, import) above zero, "
                        f"out of it (charge, demand, export) below; prices of connection {conn} on the "
                        f"right axis." + _averaged(len(idx)), f"site/{site}")
@@ -256,17 +258,18 @@ _ENERGY = {
 def _money(pg: _Page) -> None:
     f, s = pg.f, pg.s
     dt = float(s["step_hours"])
-    money_unit = C.unit("connection", "cashflow")
+    cur = f.money_unit
     rows = []
     for group, kind in (("storages", "storage"), ("supplies", "supply"), ("demands", "demand")):
         for name, fig in (s.get(group) or {}).items():
-            if fig.get("revenue") is not None:
-                rows.append((f"{kind} {name}", float(fig["revenue"])))
+            if fig.get("net_value") is not None:
+                rows.append((f"{kind} {name}", float(fig["net_value"])))
     pg.add("<section><h2>Money and energy by asset</h2>")
     if rows:
-        pg.figure(C.money("net value by asset", rows, money_unit, pg.salt()),
+        pg.figure(C.money("net value by asset", rows, cur, pg.salt()),
                   "Each storage's, supply's and demand's net value at its connection's price (a "
-                  "storage's wear subtracted); they add up to the objective.", "money")
+                  "storage's wear subtracted; a negative value is a cost, as a demand's); they add "
+                  "up to the objective.", "money")
     for group, kind in (("storages", "storage"), ("supplies", "supply"), ("demands", "demand"),
                         ("sites", "site"), ("connections", "connection"), ("routes", "route")):
         names = f.names(kind)
@@ -274,25 +277,68 @@ def _money(pg: _Page) -> None:
             continue
         cols = _ENERGY[kind]
         has_money = kind != "route"
-        head = "<tr><th>" + e(kind) + "</th>" + ("<th>net value (money)</th>" if has_money else "")
+        head = "<tr><th>" + e(kind) + "</th>" + (f"<th>net value ({e(cur)})</th>" if has_money else "")
         head += "".join(f"<th>{e(label)}</th>" for label, _c, _k in cols)
         if kind == "storage":
             head += "<th>equivalent full cycles</th><th>content at end (MWh)</th>"
+            head += "".join(f"<th>{e(label)} ({e(cur)}/MWh)</th>" for label, _k in _PRICES)
         head += "</tr>"
         body = []
         for n in names:
             df, fig = f.tables[n], (s.get(group) or {}).get(n, {})
             cells = [f"<td>{e(n)}</td>"]
             if has_money:
-                cells.append(_cell(f"{group}/{n}/revenue", fig.get("revenue")))
+                cells.append(_cell(f"{group}/{n}/net_value", fig.get("net_value")))
             for _label, col, key in cols:
                 cells.append(_cell(f"{group}/{n}/{key}", float(df[col].sum()) * dt, 3))
             if kind == "storage":
                 cells.append(_cell(f"{group}/{n}/equivalent_full_cycles", fig.get("equivalent_full_cycles"), 3))
                 cells.append(_cell(f"{group}/{n}/soc_end_mwh", float(df["soc_mwh"].iloc[-1]) if len(df) else None, 3))
+                cells += [_cell(f"{group}/{n}/{key}", fig.get(key)) for _label, key in _PRICES]
             body.append("<tr>" + "".join(cells) + "</tr>")
         pg.add(f"<table>{head}{''.join(body)}</table>")
+    if any(k in (s.get("storages") or {}).get(n, {}) for n in f.names("storage") for _l, k in _PRICES):
+        pg.add("<p>A storage's average charge price is weighted by the energy it drew from its site, "
+               "its average discharge price by its discharge, each at the price its connection's flow "
+               "met that step (as its net value); the spread captured is their difference.</p>")
     pg.add("</section>")
+
+
+_PRICES = (("average charge price", "average_charge_price"),
+           ("average discharge price", "average_discharge_price"),
+           ("spread captured", "spread_captured"))
+DAYS_SHOWN = 62          # a longer horizon's days are in periods.csv, its months on the page
+
+
+def _periods(pg: _Page) -> None:
+    """Net value and energy by month and by day (periods.csv), for horizons over a day."""
+    per = pg.f.periods
+    if per is None or not len(per):
+        return
+    cur = pg.f.money_unit
+    pg.add("<section><h2>Money by day and by month</h2>")
+    for length, title in (("month", "By month"), ("day", "By day")):
+        rows = per[per["period"] == length]
+        labels = list(dict.fromkeys(rows["label"]))
+        if not labels:
+            continue
+        if length == "day" and len(labels) > DAYS_SHOWN:
+            pg.add(f"<p>{len(labels)} days: the daily totals are in <code>periods.csv</code>.</p>")
+            continue
+        money = rows[rows["kind"].isin(("storage", "supply", "demand"))]
+        assets = list(dict.fromkeys(money["asset"]))
+        head = (f"<tr><th>{e(length)}</th>" + "".join(f"<th>{e(a)} ({e(cur)})</th>" for a in assets)
+                + f"<th>total ({e(cur)})</th></tr>")
+        body = []
+        for label in labels:
+            at = money[money["label"] == label]
+            vals = {a: float(v) for a, v in zip(at["asset"], at["net_value"])}
+            cells = [_cell(f"periods/{length}/{label}/{a}", vals.get(a)) for a in assets]
+            cells.append(_cell(f"periods/{length}/{label}/total", sum(vals.values())))
+            body.append(f"<tr><td>{e(str(label))}</td>{''.join(cells)}</tr>")
+        pg.add(f"<h3>{e(title)}</h3><table>{head}{''.join(body)}</table>")
+    pg.add("<p>Net value of each storage, supply and demand per period in the horizon's zone; "
+           "energies, curtailment and spill per period are in <code>periods.csv</code>.</p></section>")
 
 
 def _provenance(pg: _Page) -> None:
@@ -321,6 +367,7 @@ def render(folder: Folder) -> Tuple[str, int]:
         _lost(pg)
         _connections(pg)
         _money(pg)
+        _periods(pg)
     _provenance(pg)
     title = f"{folder.summary.get('portfolio', '')}: dispatch report"
     page = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"

@@ -3,7 +3,7 @@ varied setting (objective against its value, one line per scenario; PNG and SVG)
 
 One row per case, in case order: the case id, the varied values (units in the
 column names; a percentage in %), the scenario of each varied series, the
-status, objective, MIP gap, revenue of every storage and supply, equivalent
+status, objective, MIP gap, net value of every storage and supply, equivalent
 full cycles of every storage, curtailed energy, the times and the worker
 that ran it, and the message of a case that failed.  Files are written
 atomically (:func:`portfolio.files.replace_atomically`).
@@ -50,7 +50,7 @@ def table(study: M.Study, cases, rows: List[dict]) -> pd.DataFrame:
         assets = r.get("assets") or {}
         for group, names in (("storages", storages), ("supplies", supplies)):
             for n in names:
-                rec[f"revenue {n}"] = assets.get(group, {}).get(n, {}).get("revenue")
+                rec[f"net value {n}"] = assets.get(group, {}).get(n, {}).get("net_value")
         for n in storages:
             rec[f"cycles {n}"] = assets.get("storages", {}).get(n, {}).get("equivalent_full_cycles")
         curtailed = [f.get("curtailed_mwh") for f in assets.get("supplies", {}).values()]

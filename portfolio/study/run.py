@@ -93,8 +93,8 @@ def solve_case(p: M.Portfolio, study: M.Study, case: Case, options, schedule_dir
 
 
 def _assets(summary: dict) -> dict:
-    """Per storage and supply: revenue, equivalent full cycles, curtailed MWh (as summary.json)."""
-    return {group: {name: {k: figures.get(k) for k in ("revenue", "equivalent_full_cycles", "curtailed_mwh")
+    """Per storage and supply: net value, equivalent full cycles, curtailed MWh (as summary.json)."""
+    return {group: {name: {k: figures.get(k) for k in ("net_value", "equivalent_full_cycles", "curtailed_mwh")
                            if figures.get(k) is not None}
                     for name, figures in (summary.get(group) or {}).items()}
             for group in ("storages", "supplies")}

@@ -38,7 +38,7 @@ or rest rule exclusive modes, as a ``.folio`` file would, and
 * :func:`modes` — one site, minimum outputs, runs, rests and ramps, steps
   down to 15 minutes;
 * :func:`cascade` — reservoirs in cascade over several sites: delays up to
-  4 steps, water in transit, tributaries, pumped storage, turbines with a
+  4 steps, water in transit, tributaries, pumped storage (pump routes), turbines with a
   minimum output;
 * :func:`limits` — several sites and connections: site limits inside
   connection limits, a portfolio-wide cap, the direction rule, buying below
@@ -433,7 +433,7 @@ def cascade(seed: int) -> Portfolio:
     """2-4 reservoirs in cascade over 1-3 sites on 1-2 connections: release and
     spill routes (delays up to 4 steps, factors, maxima, water in transit at
     the start), tributaries that skip a level, a few transfers, pumped
-    storage below the top, turbines with a minimum output (and sometimes a
+    storage below the top (a pump route from the pool below: :func:`_pumps`), turbines with a minimum output (and sometimes a
     run or rest rule), site limits inside the connections', sometimes a cap."""
     rng = np.random.default_rng(30000 + seed)
     T = int(rng.integers(24, 41))

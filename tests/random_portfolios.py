@@ -477,16 +477,16 @@ def cascade(seed: int) -> Portfolio:
 def _pumps(stores, routes) -> list:
     """A pump route into every reservoir that charges (its charge is its pump, and must
     say where the water comes from: P513), from the next store down the cascade, or the
-    one above for the bottom store; the factor undoes the release's factor when one joins
-    the pair the other way.  No draw is made, so the rest of the portfolio is unchanged."""
+    one above for the bottom store; the factor undoes the largest release or spill factor
+    back down the pair, so no water goes round (P313).  No draw is made, so the rest of the portfolio is unchanged."""
     out = []
     for j, k in enumerate(stores):
         if k.kind != "reservoir" or k.charge_max <= 0:
             continue
         low = stores[j + 1] if j + 1 < len(stores) else stores[j - 1]
-        back = [r.factor for r in routes if r.kind == "release" and r.source == k.name
+        back = [r.factor for r in routes if r.kind in ("release", "spill") and r.source == k.name
                 and r.target == low.name]
-        factor = _r(1.0 / back[0]) if back else 1.0
+        factor = 1.0 / max(back) if back else 1.0
         out.append(F.route(f"{low.name}_pump_to_{k.name}", low.name, k.name, "pump", factor=factor))
     return out
 
@@ -674,6 +674,11 @@ def front_end_errors(p: Portfolio) -> List[str]:
             out.append(f"{k.name}: a reservoir charges with no pump route into it (water from nothing)")
         if pumped.count(k.name) > 1:
             out.append(f"{k.name}: pumped along two routes")
+    for r in p.routes:
+        for b in p.routes:
+            if r.kind == "pump" and b.kind in ("release", "spill") and (b.source, b.target) == (r.target, r.source) \
+                    and r.factor * b.factor > 1 + 1e-9:
+                out.append(f"{r.name}: its factor and {b.name}'s make water going round the pair")
     return out
 
 

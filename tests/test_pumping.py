@@ -223,6 +223,14 @@ def test_a_pumped_pair_with_a_release_back_is_no_zero_delay_cycle():
     assert "P502" in _codes(loop)      # a transfer back at zero delay is still refused
 
 
+@pytest.mark.parametrize("pump, back, codes", [(1.25, 0.8, []), (1.5, 0.8, ["P313"]), (1.0, 0.8, [])])
+def test_factors_round_a_pair_may_not_make_water(pump, back, codes):
+    # 1 MWh of the upper pool released is worth `back` MWh below; pumped up again it is
+    # worth pump x back MWh: above 1 it would grow going round (before any losses)
+    text = _text([20, 90], pump=f"factor {pump}", release=f"route upper release -> lower factor {back}")
+    assert _codes(text) == codes
+
+
 def test_a_battery_charging_from_the_grid_is_not_water_from_nothing():
     text = ('horizon start 2027-05-03T00:00 length 2 h step 1 h zone "UTC"\n'
             "price spot values [20 90] per MWh\n" + GRID

@@ -316,6 +316,16 @@ def check_pumps(ck: Context, routes: List[Tuple[M.Route, float]], storages: Dict
                         f"fix: add 'route LOWER pump -> {k}' naming the store it pumps from, "
                         f"or write 'charge off' in '{k}'")
     for k, r in pumped.items():
+        for back, _ in routes:
+            if back.kind in (M.ROUTE_RELEASE, M.ROUTE_SPILL) and back.source == k and back.target == r.source \
+                    and r.factor * back.factor > 1 + 1e-9:
+                ck.sink.add(Implausible, r.where("factor"),
+                            f"pumping from '{r.source}' to '{k}' (factor {fmt(r.factor)}) and the {back.kind} "
+                            f"back (factor {fmt(back.factor)}) make water going round: each MWh pumped up "
+                            f"comes back as {fmt(r.factor * back.factor)} MWh before any losses",
+                            f"note: the {back.kind} route is declared at {back.span}",
+                            f"fix: for one pair of pools the factors are each other's inverse: "
+                            f"'factor {fmt(1 / back.factor)}' on the pump route")
         s = storages.get(k)
         if s is not None and s.charge_max <= 0:
             ck.sink.add(UnusedSetting, r.span, f"'{k}' cannot charge, so nothing is ever pumped into it",

@@ -300,8 +300,9 @@ def check_pumps(ck: Context, routes: List[Tuple[M.Route, float]], storages: Dict
     A reservoir's charge is its pump (``route LOWER pump -> RESERVOIR``): MW drawn
     from its site, or from supplies fed into it, lift water from the lower store at
     the charge efficiency.  A reservoir that charges with no pump route into it would
-    make water from nothing.  The other way round, a pump route into a store that
-    cannot charge never moves anything (``P308``).
+    make water from nothing; so would a pump factor whose product with the factor of
+    a release or spill back down the same pair is above 1 (``P313``).  The other way
+    round, a pump route into a store that cannot charge never moves anything (``P308``).
     """
     pumped = {}
     for r, _ in routes:

@@ -79,6 +79,16 @@ def main() -> None:
     _write(pd.DataFrame({"time": stamp(h48), "mw": 1.2 + 0.6 * (h48.hour.isin(range(7, 19)))}),
            HERE / "ridge_and_river/profiles/kiln_load.csv")
 
+    # corrie_steps: three pools down one glen, the lower two a pumped pair, 48 h hourly.
+    # Its own generator, so the profiles above stay as they were.
+    rng = np.random.default_rng(20270913)
+    h48c = pd.date_range("2027-09-13T00:00", periods=48, freq="h", tz="UTC")
+    burn = 3 + 5 * np.exp(-((np.arange(48) - 30) ** 2) / 40) + rng.normal(0, 0.2, 48)
+    _write(pd.DataFrame({"time": stamp(h48c), "price": price_curve(h48c, rng, base=58, swing=48)}),
+           HERE / "corrie_steps/profiles/prices.csv")
+    _write(pd.DataFrame({"time": stamp(h48c), "mw": np.clip(burn, 0, None)}),
+           HERE / "corrie_steps/profiles/burn.csv")
+
 
 if __name__ == "__main__":
     main()

@@ -51,9 +51,10 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("soc_mwh", "MWh", "content at the END of the step"),
         Column("spill_mw", "MW", "spilled: stored MWh per step / step hours"),
         Column("mode", "-", "charge, discharge, idle, or both (tolerance 1e-6 MW)"),
-        Column("routed_in_mw", "MW", "arriving from routes, target units (water in transit at the start included)"),
+        Column("routed_in_mw", "MW", "arriving from routes, target units (water in transit at the start included; not pump routes: pumped water is the store's charge)"),
         Column("routed_out_mw", "MW", "leaving into routes of every kind, source's stored MWh per step / step hours"),
         Column("supply_in_mw", "MW", "the store's own supply (a river's natural inflow), stored MWh per step / step hours; 0 without one"),
+        Column("pump_mw", "MW", "power drawn to pump water up into the store from a lower one (its charge when a pump route feeds it); 0 without one"),
     ),
     "supply": (
         Column("available_mw", "MW", "the supply's profile: used + curtailed"),

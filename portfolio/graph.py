@@ -8,7 +8,9 @@ search).  The graph's nodes are the portfolio's connections,
 sites, storages, supplies (including a reservoir's natural supply) and demands,
 and whose edges are every path energy or water can take.  Edge keys name the
 path (``export``, ``import``, ``charge``, ``discharge``, ``feed``,
-``serve``, ``natural``, and the route kinds; a second route of one kind
+``serve``, ``natural``, and the route kinds: ``release``, ``spill``, ``transfer``
+and ``pump``, the last from the lower store to the upper one, whose charge
+lifts the water; a second route of one kind
 between the same two stores is keyed ``kind:name``).  Every node and edge carries
 ``span``: the declaration it came from.  Membership is on the nodes: a
 storage's, supply's and demand's ``site``, a site's ``connection``; a route
@@ -167,7 +169,10 @@ def check_topology(p: M.Portfolio, g: Network, sink: Sink) -> None:
 
 
 def _check_zero_delay_cycles(g: Network, sink: Sink) -> None:
-    zero_delay = [(u, v, a["route"]) for u, v, _, a in g.edge_list() if "route" in a and a["delay"] == 0]
+    # A pump edge is left out: what it lifts is paid for in grid energy each time round
+    # (the upper store's charge), so a pumped pair with a release back is no free loop.
+    zero_delay = [(u, v, a["route"]) for u, v, _, a in g.edge_list()
+                  if "route" in a and a["delay"] == 0 and a["route"].kind != M.ROUTE_PUMP]
     if len(zero_delay) < 2:
         return                   # a cycle through two or more stores needs two routes
     import networkx as nx

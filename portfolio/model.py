@@ -47,6 +47,7 @@ END_EQUAL = "equal"        # soc[T] == value
 ROUTE_RELEASE = "release"    # water drawn to generate, passed downstream
 ROUTE_SPILL = "spill"        # water spilled, passed downstream
 ROUTE_TRANSFER = "transfer"  # energy moved store-to-store (e.g. heat network)
+ROUTE_PUMP = "pump"          # water pumped up: the target's charge takes it from the source
 
 
 @dataclass(frozen=True)

@@ -75,6 +75,7 @@ class _Flows:
     received: Dict[str, np.ndarray] = field(default_factory=dict)      # MWh per step from routes
     sent: Dict[str, np.ndarray] = field(default_factory=dict)          # MWh per step into routes
     supply_site: Dict[str, np.ndarray] = field(default_factory=dict)   # delivered to the site
+    pumped: Dict[str, bool] = field(default_factory=dict)              # a pump route feeds the store
     step_price: Dict[str, np.ndarray] = field(default_factory=dict)    # connection -> price its flow met
 
 
@@ -102,6 +103,7 @@ def _storage_flows(acc: E.Values, p, topo, flows: _Flows) -> None:
         flows.charge_site[k] = acc(E.CHARGE_SITE, k)
         flows.charge[k] = acc.of(E.total_charge(topo, k))
         flows.discharge[k] = acc(E.DISCHARGE, k)
+        flows.pumped[k] = topo.pump_into(k) is not None
 
 
 def _route_flows(acc: E.Values, p, topo, flows: _Flows) -> None:
@@ -115,7 +117,8 @@ def _route_flows(acc: E.Values, p, topo, flows: _Flows) -> None:
         flows.route_transit[r.name] = E.route_in_transit_end(r, flow, dt)
     for k in p.storages:
         received, sent = np.zeros(acc.steps), np.zeros(acc.steps)
-        for r in topo.routes_into(k):
+        arriving, _ = E.balance_routes(topo, k)   # pumped water is the upper store's charge
+        for r in arriving:
             received = received + arriving_mwh[r.name]
         for r in topo.routes_out_of(k):
             sent = sent + flows.route_flow[r.name] * dt
@@ -137,6 +140,7 @@ def _storage_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
             "routed_in_mw": clean(flows.received[k] / dt),
             "routed_out_mw": clean(flows.sent[k] / dt),
             "supply_in_mw": clean(p.profile(p.storages[k].supply)),
+            "pump_mw": c if flows.pumped[k] else np.zeros(len(c)),
         }, index)
     for r in p.routes:
         tables[r.name] = frame("route", {"flow_mw": clean(flows.route_flow[r.name]),

@@ -216,7 +216,7 @@ EXPECTED_WORDS = {
     "MODES": "'exclusive' or 'free'",
     "RUNNING_MODE": "'charging' or 'discharging'",
     "SIGN": "'plus' or 'minus'",
-    "ROUTE_KIND": "'release', 'spill' or 'transfer'",
+    "ROUTE_KIND": "'release', 'spill', 'transfer' or 'pump'",
     "GAP_FILL": "'hold' or 'interpolate'",
     "CASES": "'cross' or 'paired'",
     "$END": "the end of the file",

@@ -12,7 +12,8 @@ same way:
   ``supply_targets(supply)`` (the stores a supply feeds), ``feeds_site(supply)``,
   ``site_supplies(site)`` (supplies delivering to a site),
   ``routes_into(storage)``, ``routes_out_of(storage)``, ``routes``,
-  ``natural_supply_of(storage)``.
+  ``natural_supply_of(storage)``, ``pump_into(storage)`` (the pump route whose
+  water a store's charge lifts).
 
 Every answer lists names (routes: :class:`~portfolio.model.Route`
 declarations) in declaration order, which keeps the compiled matrix and
@@ -25,6 +26,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import TYPE_CHECKING, Dict, Iterable, List, Mapping, Optional, Tuple
+
+from .model import ROUTE_PUMP
 
 if TYPE_CHECKING:
     import networkx as nx
@@ -197,6 +200,13 @@ class Topology:
 
     def routes_out_of(self, storage: str) -> tuple:
         return self._routes_out.get(storage, ())
+
+    def pump_into(self, storage: str):
+        """The pump route into ``storage`` (its charge lifts that route's water), or None."""
+        for r in self.routes_into(storage):
+            if r.kind == ROUTE_PUMP:
+                return r
+        return None
 
     def natural_supply_of(self, storage: str) -> Optional[str]:
         """The node name of a store's natural supply (its series), or None."""

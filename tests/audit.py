@@ -52,7 +52,7 @@ MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 # portfolio.schedule: if the writer's columns drift from the documented contract, the audit fails.
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "routed_in_mw", "routed_out_mw", "supply_in_mw"],
+                "routed_in_mw", "routed_out_mw", "supply_in_mw", "pump_mw"],
     "supply": ["available_mw", "used_mw", "curtailed_mw"],
     "demand": ["demand_mw"],
     "site": ["import_mw", "export_mw"],
@@ -348,6 +348,16 @@ class _Audit:
                 out = self.col(r.source, "spill_mw") * dt
                 self.close(r.name, "flow_mw (spill)", flow_csv, out / dt, rounding=2 * ROUNDING)
                 coef = 1.0
+            elif r.kind == "pump":
+                # docs/model.md, pumping: the upper store's charge lifts eta_charge * charge / factor
+                # of the lower store's MWh; it leaves the lower store's balance like a transfer
+                up = p.storages[r.target]
+                coef = up.eta_charge / r.factor
+                lifted = coef * self.col(r.target, "charge_mw")
+                self.close(r.name, "flow_mw (pump = upper charge x charge efficiency / factor)",
+                           flow_csv, lifted, rounding=ROUNDING * (1.0 + coef))
+                out = lifted * dt
+                transfer_mwh[r.source] += out
             else:
                 coef = 1.0
                 out = flow_csv * dt
@@ -363,16 +373,20 @@ class _Audit:
                 arr[D:] = r.factor * r.efficiency * out[:T - D]
             self.close(r.name, "arriving_mw", self.col(r.name, "arriving_mw"), arr / dt,
                        rounding=ROUNDING * (1.0 + r.factor * r.efficiency * coef))
-            arrive_mwh[r.target] += arr
-            arrive_coef[r.target] += r.factor * r.efficiency * coef
+            if r.kind != "pump":    # pumped water reaches the upper store as its own charge term
+                arrive_mwh[r.target] += arr
+                arrive_coef[r.target] += r.factor * r.efficiency * coef
             out_coef[r.source] += coef
             out_mwh[r.source] += out
             if self.summary is not None:
                 got = self.summary.get("routes", {}).get(r.name, {}).get("in_transit_end_mwh")
                 want = r.factor * r.efficiency * float(out[max(T - D, 0):].sum()) if D > 0 else 0.0
                 self.money(r.name, "summary in_transit_end_mwh", got, want, out[max(T - D, 0):])
+        pumped = {r.target for r in p.routes if r.kind == "pump"}
         for s in p.storages.values():
             n = s.name
+            self.close(n, "pump_mw (the charge of a pumped store, else 0)", self.col(n, "pump_mw"),
+                       self.col(n, "charge_mw") if n in pumped else np.zeros(T), rounding=2 * ROUNDING)
             self.close(n, "routed_in_mw", self.col(n, "routed_in_mw"), arrive_mwh[n] / dt,
                        rounding=ROUNDING * (1.0 + arrive_coef[n]))
             self.close(n, "routed_out_mw", self.col(n, "routed_out_mw"), out_mwh[n] / dt,

@@ -159,6 +159,11 @@ def build_oracle(p: Portfolio):
             return d[r.source][t] * (dt / src.eta_discharge)
         if r.kind == "spill":
             return q[r.source][t] * dt
+        if r.kind == "pump":
+            # docs/language.md, pumping: the upper store's total charge stores eta_charge * c * dt;
+            # that water is taken from the lower store, factor MWh up per MWh down
+            up = p.storages[r.target]
+            return c_total[r.target][t] * (up.eta_charge * dt / r.factor)
         return x[r.name][t] * dt
 
     for r in p.routes:
@@ -170,8 +175,9 @@ def build_oracle(p: Portfolio):
     for k in p.storages.values():
         keep = (1.0 - k.loss_per_h) ** dt
         nat = p.profile(k.supply) if k.supply else np.zeros(T)
-        ins = [r for r in p.routes if r.target == k.name]
-        outs = [r for r in p.routes if r.source == k.name and r.kind == "transfer"]
+        # pumped water reaches the upper store as its charge term, not as a route arrival
+        ins = [r for r in p.routes if r.target == k.name and r.kind != "pump"]
+        outs = [r for r in p.routes if r.source == k.name and r.kind in ("transfer", "pump")]
         for t in steps:
             prev = soc[k.name][t - 1] * keep if t > 0 else k.soc_start * keep
             arrive = []

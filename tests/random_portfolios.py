@@ -38,7 +38,7 @@ or rest rule exclusive modes, as a ``.folio`` file would, and
 * :func:`modes` — one site, minimum outputs, runs, rests and ramps, steps
   down to 15 minutes;
 * :func:`cascade` — reservoirs in cascade over several sites: delays up to
-  4 steps, water in transit, tributaries, pumped storage, turbines with a
+  4 steps, water in transit, tributaries, pumped storage (pump routes), turbines with a
   minimum output;
 * :func:`limits` — several sites and connections: site limits inside
   connection limits, a portfolio-wide cap, the direction rule, buying below
@@ -433,7 +433,7 @@ def cascade(seed: int) -> Portfolio:
     """2-4 reservoirs in cascade over 1-3 sites on 1-2 connections: release and
     spill routes (delays up to 4 steps, factors, maxima, water in transit at
     the start), tributaries that skip a level, a few transfers, pumped
-    storage below the top, turbines with a minimum output (and sometimes a
+    storage below the top (a pump route from the pool below: :func:`_pumps`), turbines with a minimum output (and sometimes a
     run or rest rule), site limits inside the connections', sometimes a cap."""
     rng = np.random.default_rng(30000 + seed)
     T = int(rng.integers(24, 41))
@@ -465,12 +465,30 @@ def cascade(seed: int) -> Portfolio:
             routes.append(_route(rng, src, "spill", dst, max_delay=4))
         if rng.random() < 0.15:
             routes.append(_route(rng, src, "transfer", stores[int(rng.integers(j + 1, n_res))], max_delay=4))
+    routes += _pumps(stores, routes)
     for s in sites:
         _site_extras(rng, T, dt, sl, s.name, stores, supplies, demands, p_pv=0.3, p_demand=0.3)
     cap = _cap(rng, conns) if rng.random() < (0.7 if n_conn > 1 else 0.2) else None
     return F.portfolio(T, step_hours=dt, storages=stores, supplies=supplies, demands=demands,
                        sites=sites, connections=conns, routes=routes, cap=cap, series_list=sl,
                        name=f"cascade_{seed}")
+
+
+def _pumps(stores, routes) -> list:
+    """A pump route into every reservoir that charges (its charge is its pump, and must
+    say where the water comes from: P513), from the next store down the cascade, or the
+    one above for the bottom store; the factor undoes the largest release or spill factor
+    back down the pair, so no water goes round (P313).  No draw is made, so the rest of the portfolio is unchanged."""
+    out = []
+    for j, k in enumerate(stores):
+        if k.kind != "reservoir" or k.charge_max <= 0:
+            continue
+        low = stores[j + 1] if j + 1 < len(stores) else stores[j - 1]
+        back = [r.factor for r in routes if r.kind in ("release", "spill") and r.source == k.name
+                and r.target == low.name]
+        factor = 1.0 / max(back) if back else 1.0
+        out.append(F.route(f"{low.name}_pump_to_{k.name}", low.name, k.name, "pump", factor=factor))
+    return out
 
 
 def limits(seed: int) -> Portfolio:
@@ -544,7 +562,7 @@ def features(p: Portfolio) -> Set[str]:
             ("run_with_min", k.min_run_h > 0 and (k.charge_min > 0 or k.discharge_min > 0)),
             ("run_and_rest", k.min_run_h > 0 and k.min_rest_h > 0),
             ("pumped", k.kind == "reservoir" and k.charge_max > 0
-             and any(r.target == k.name for r in p.routes))) if on}
+             and any(r.target == k.name and r.kind == "pump" for r in p.routes))) if on}
     for i in p.supplies.values():
         seen |= {n for n, on in (("into_site", "site" in i.targets),
                                  ("into_store", any(t != "site" for t in i.targets)),
@@ -638,7 +656,7 @@ def front_end_errors(p: Portfolio) -> List[str]:
             out.append(f"{r.name}: a {r.kind} route cannot join a {src.kind} to a {dst.kind}")
         if r.source == r.target:
             out.append(f"{r.name}: routes to itself")
-        if r.kind != "transfer" and (r.source, r.kind) in seen:
+        if r.kind not in ("transfer", "pump") and (r.source, r.kind) in seen:
             out.append(f"{r.name}: a second {r.kind} route from {r.source}")
         seen.add((r.source, r.kind))
         if r.kind == "spill" and not src.spill_allowed:
@@ -647,6 +665,20 @@ def front_end_errors(p: Portfolio) -> List[str]:
             out.append(f"{r.name}: in transit on a route without delay")
         if r.delay_steps > T:
             out.append(f"{r.name}: a delay longer than the horizon")
+        if r.kind == "pump" and (r.delay_steps or r.in_transit or r.max_mw is not None or r.efficiency != 1):
+            out.append(f"{r.name}: a pump route with a delay, in transit, max or efficiency (ignored)")
+    # docs/language.md, pumping: a reservoir's charge is its pump, fed by one pump route
+    pumped = [r.target for r in p.routes if r.kind == "pump"]
+    for k in p.storages.values():
+        if k.kind == "reservoir" and k.charge_max > 0 and k.name not in pumped:
+            out.append(f"{k.name}: a reservoir charges with no pump route into it (water from nothing)")
+        if pumped.count(k.name) > 1:
+            out.append(f"{k.name}: pumped along two routes")
+    for r in p.routes:
+        for b in p.routes:
+            if r.kind == "pump" and b.kind in ("release", "spill") and (b.source, b.target) == (r.target, r.source) \
+                    and r.factor * b.factor > 1 + 1e-9:
+                out.append(f"{r.name}: its factor and {b.name}'s make water going round the pair")
     return out
 
 

@@ -77,6 +77,24 @@ EXPECTED = {
             ("upper_loch", "lower_loch", "release"), ("upper_loch", "lower_loch", "spill"),
         ],
     },
+    "corrie_steps": {
+        # crag_pool's charge is its pump: a charge edge from the site, and a pump edge
+        # from tarn_basin (which reaches the grid through it as well as its own plant)
+        "nodes": {
+            "steps_line": "connection", "corrie_works": "site", "high_corrie": "storage",
+            "crag_pool": "storage", "tarn_basin": "storage", "burn": "supply",
+        },
+        "edges": [
+            ("corrie_works", "steps_line", "export"), ("steps_line", "corrie_works", "import"),
+            ("high_corrie", "corrie_works", "discharge"),
+            ("corrie_works", "crag_pool", "charge"), ("crag_pool", "corrie_works", "discharge"),
+            ("tarn_basin", "corrie_works", "discharge"),
+            ("burn", "high_corrie", "natural"),
+            ("high_corrie", "crag_pool", "release"), ("high_corrie", "crag_pool", "spill"),
+            ("tarn_basin", "crag_pool", "pump"),
+            ("crag_pool", "tarn_basin", "release"), ("crag_pool", "tarn_basin", "spill"),
+        ],
+    },
     "ridge_and_river": {
         "nodes": {
             "north_grid": "connection", "valley_grid": "connection",

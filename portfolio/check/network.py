@@ -14,7 +14,7 @@ from .. import model as M
 from .. import units as U
 from ..diagnostics import (DelayNotWhole, DuplicateName, DuplicateSetting, NameCaseClash, ExportUnpriced, Implausible,
                            ImportUnpriced, OutOfRange, RouteDuplicate, RouteKindMismatch, RouteToSelf,
-                           SourceChargeMismatch, SpillNotAllowed, UnusedSetting)
+                           SourceChargeMismatch, SpillNotAllowed, UnusedSetting, WaterFromNothing)
 from .context import Context
 from .horizon import MAX_STEPS
 from .names import a, listed_once
@@ -27,6 +27,7 @@ from .tree import Block, PriceExpr, Route, Setting, said
 ROUTE_RULES = {
     M.ROUTE_RELEASE: {(M.KIND_RESERVOIR, M.KIND_RESERVOIR), ("other", "other")},
     M.ROUTE_SPILL: {(M.KIND_RESERVOIR, M.KIND_RESERVOIR), ("other", "other")},
+    M.ROUTE_PUMP: {(M.KIND_RESERVOIR, M.KIND_RESERVOIR), ("other", "other")},
     M.ROUTE_TRANSFER: {(M.KIND_THERMAL, M.KIND_THERMAL), (M.KIND_RESERVOIR, M.KIND_RESERVOIR),
                        ("other", "other")},
 }
@@ -234,6 +235,8 @@ def route_syntax(ck: Context, st: Route) -> Optional[Tuple[M.Route, float]]:
                 ck.sink.add(OutOfRange, opts["in_transit"].span, "what is in transit cannot be negative")
             vals["in_transit"] = got[1]
         spans["in_transit"] = opts["in_transit"].span
+    if kind == M.ROUTE_PUMP:
+        delay_h = _pump_options(ck, opts, vals, spans)
     if src is None or dst is None:
         return None
     r = M.Route(name=f"{src}_{kind}_to_{dst}", source=src, kind=kind, target=dst, span=st.span,
@@ -259,13 +262,80 @@ def _route_efficiency(ck: Context, opt: Setting, kind: str, vals: dict, spans: d
                         f"the route's efficiency must be above 0 % and at most 100 %, found {fmt(got[1] * 100)} %")
         vals["efficiency"] = got[1]
     spans["efficiency"] = opt.span
-    if kind != M.ROUTE_TRANSFER:
+    if kind == M.ROUTE_PUMP:
+        vals.pop("efficiency", None)   # _pump_options says where a pump's efficiency is declared
+    elif kind != M.ROUTE_TRANSFER:
         ck.sink.add(UnusedSetting, opt.span,
                     f"an efficiency applies to 'transfer' routes; a {kind} route loses nothing on the way (use 'factor')")
 
 
+# What a pump route ignores, and where the pump's own figure is declared instead.
+PUMP_IGNORES = {
+    "delay": "pumped water reaches the upper store in the step it is pumped",
+    "in_transit": "pumped water reaches the upper store in the step it is pumped",
+    "route_max": "the pump's power is the upper store's 'charge max' (MW drawn from the grid)",
+    "route_efficiency": "the pump's efficiency is the upper store's charge efficiency "
+                        "('efficiency charge X% discharge Y%' or 'efficiency round trip Z%')",
+}
+
+
+def _pump_options(ck: Context, opts: dict, vals: dict, spans: dict) -> float:
+    """A pump route takes a factor only: its power, efficiency and modes are the upper
+    store's charge settings, and it has no delay.  Anything else is warned and dropped."""
+    for key, why in PUMP_IGNORES.items():
+        if key in opts:
+            ck.sink.add(UnusedSetting, opts[key].span, f"a pump route ignores this: {why}",
+                        "note: a pump route takes only a 'factor' (MWh in the upper store per MWh "
+                        "taken from the lower one)")
+            spans.pop({"route_max": "max_mw", "route_efficiency": "efficiency",
+                       "delay": "delay_steps"}.get(key, key), None)
+    for field in ("max_mw", "efficiency", "in_transit"):
+        vals.pop(field, None)
+    return 0.0
+
+
+def check_pumps(ck: Context, routes: List[Tuple[M.Route, float]], storages: Dict[str, M.Storage]) -> None:
+    """Charging a reservoir moves water: it must say where from (``P513``).
+
+    A reservoir's charge is its pump (``route LOWER pump -> RESERVOIR``): MW drawn
+    from its site, or from supplies fed into it, lift water from the lower store at
+    the charge efficiency.  A reservoir that charges with no pump route into it would
+    make water from nothing; so would a pump factor whose product with the factor of
+    a release or spill back down the same pair is above 1 (``P313``).  The other way
+    round, a pump route into a store that cannot charge never moves anything (``P308``).
+    """
+    pumped = {}
+    for r, _ in routes:
+        if r.kind == M.ROUTE_PUMP:
+            pumped.setdefault(r.target, r)
+    for k, s in storages.items():
+        if s.kind == M.KIND_RESERVOIR and s.charge_max > 0 and k not in pumped:
+            ck.sink.add(WaterFromNothing, s.where("charge_max"),
+                        f"reservoir '{k}' charges, but no pump route brings it water: "
+                        "its charge would make water from nothing",
+                        "note: a reservoir's charge is its pump; the water it lifts comes from a lower store",
+                        f"fix: add 'route LOWER pump -> {k}' naming the store it pumps from, "
+                        f"or write 'charge off' in '{k}'")
+    for k, r in pumped.items():
+        for back, _ in routes:
+            if back.kind in (M.ROUTE_RELEASE, M.ROUTE_SPILL) and back.source == k and back.target == r.source \
+                    and r.factor * back.factor > 1 + 1e-9:
+                ck.sink.add(Implausible, r.where("factor"),
+                            f"pumping from '{r.source}' to '{k}' (factor {fmt(r.factor)}) and the {back.kind} "
+                            f"back (factor {fmt(back.factor)}) make water going round: each MWh pumped up "
+                            f"comes back as {fmt(r.factor * back.factor)} MWh before any losses",
+                            f"note: the {back.kind} route is declared at {back.span}",
+                            f"fix: for one pair of pools the factors are each other's inverse: "
+                            f"'factor {fmt(1 / back.factor)}' on the pump route")
+        s = storages.get(k)
+        if s is not None and s.charge_max <= 0:
+            ck.sink.add(UnusedSetting, r.span, f"'{k}' cannot charge, so nothing is ever pumped into it",
+                        f"note: the pump's power is the charge of '{k}': give it a 'charge max'")
+
+
 def check_routes(ck: Context, routes: List[Tuple[M.Route, float]], storages: Dict[str, M.Storage]) -> List[M.Route]:
     """Routes in steps of the horizon, each joining stores it may join, under a name of its own."""
+    check_pumps(ck, routes, storages)
     out = []
     taken: set = set()
     seen: Dict[Tuple[str, str], M.Route] = {}
@@ -319,11 +389,18 @@ def _joins(ck: Context, r: M.Route, storages: Dict[str, M.Storage], seen: dict) 
         ck.sink.add(RouteToSelf, r.span, f"'{r.source}' cannot route to itself")
         ok = False
     key = (r.source, r.kind)
-    if key in seen and r.kind != M.ROUTE_TRANSFER:
+    if key in seen and r.kind not in (M.ROUTE_TRANSFER, M.ROUTE_PUMP):   # a pool may feed two pumps
         ck.sink.add(RouteDuplicate, r.span, f"'{r.source}' already has a {r.kind} route",
                     f"note: first declared at {seen[key].span}")
         ok = False
     seen.setdefault(key, r)
+    if r.kind == M.ROUTE_PUMP:   # the upper store's charge draws from one lower store
+        into = (r.target, "pump into")
+        if into in seen:
+            ck.sink.add(RouteDuplicate, r.span, f"'{r.target}' already has a pump route into it",
+                        f"note: first declared at {seen[into].span}")
+            ok = False
+        seen.setdefault(into, r)
     if src is None or dst is None:
         return ok
     sk = src.kind if src.kind in M.KNOWN_KINDS else "other"

@@ -22,6 +22,7 @@ discharge      storage output to its site (grid side)
 soc            stored energy at the END of step t (MWh)
 spill          spilled power (stored MWh per step / dt)
 transfer       power moved along a transfer route
+pumped         a pump route's water leaving its lower store (its stored MWh per step / dt)
 site_import    site import / export through its connection
 site_export
 conn_import    connection import / export (what the meter sees, net)
@@ -183,6 +184,7 @@ def _variables(ctx: Ctx) -> None:
     ctx.add_var(E.SUPPLY_SITE, [i for i in topo.supplies if topo.feeds_site(i)])
     ctx.add_var(E.CURTAILED, list(topo.supplies))
     ctx.add_var(E.TRANSFER, [r.name for r in topo.routes if r.kind == "transfer"])
+    ctx.add_var(E.PUMPED, [r.name for r in topo.routes if r.kind == "pump"])
     ctx.add_var(E.SITE_IMPORT, list(topo.sites))
     ctx.add_var(E.SITE_EXPORT, list(topo.sites))
     ctx.add_var(E.CONN_IMPORT, list(topo.connections))

@@ -21,7 +21,7 @@ from typing import Dict, Hashable, List, Optional, Tuple
 
 import numpy as np
 
-from ..model import Portfolio, Route
+from ..model import ROUTE_PUMP, Portfolio, Route
 from ..topology import Topology
 
 # The variable families declared for every portfolio (compile/__init__.py documents them).
@@ -33,6 +33,7 @@ DISCHARGE = "discharge"
 SOC = "soc"
 SPILL = "spill"
 TRANSFER = "transfer"
+PUMPED = "pumped"
 SITE_IMPORT, SITE_EXPORT = "site_import", "site_export"
 CONN_IMPORT, CONN_EXPORT = "conn_import", "conn_export"
 
@@ -101,7 +102,8 @@ class RouteFlow:
     """What leaves the source of a route, in the source's stored MW: ``variable[asset] / divisor``.
 
     release: the source's discharge over its discharge efficiency; spill: its
-    spill; transfer: the route's own transfer variable.
+    spill; transfer: the route's own transfer variable; pump: the route's own
+    pumped variable (the water the upper store's charge lifts, :func:`pump_lift`).
     """
 
     variable: str
@@ -114,12 +116,37 @@ def route_flow(p: Portfolio, r: Route) -> RouteFlow:
         return RouteFlow(DISCHARGE, r.source, p.storages[r.source].eta_discharge)
     if r.kind == "spill":
         return RouteFlow(SPILL, r.source)
+    if r.kind == ROUTE_PUMP:
+        return RouteFlow(PUMPED, r.name)
     return RouteFlow(TRANSFER, r.name)
+
+
+def pump_lift(p: Portfolio, topo: Topology, r: Route) -> List[Part]:
+    """MW of the lower store's content a pump route ``r`` lifts: what the upper store's
+    charge stores, ``eta_charge[upper] * total_charge[upper]``, over the route's factor
+    (MWh in the upper store per MWh taken from the lower one).  The ``pumping`` family
+    sets the route's :data:`PUMPED` variable to it."""
+    up = p.storages[r.target]
+    return [(c * up.eta_charge / r.factor, var, asset) for c, var, asset in total_charge(topo, r.target)]
 
 
 def route_gain(r: Route) -> float:
     """Arriving MWh per MWh that left (factor and efficiency)."""
     return r.factor * r.efficiency
+
+
+def balance_routes(topo: Topology, k: str) -> Tuple[tuple, tuple]:
+    """The routes store ``k``'s balance adds and subtracts: (arriving, leaving).
+
+    Every route into ``k`` adds what arrives, except a pump route: what it lifts
+    is already the store's charge (``eta_charge * c``).  Routes out of ``k`` whose
+    flow no variable of ``k`` takes out already (a transfer; a pump, which takes
+    the water the upper store's charge lifts) are subtracted; release and spill
+    leave through ``k``'s discharge and spill.
+    """
+    arriving = tuple(r for r in topo.routes_into(k) if r.kind != ROUTE_PUMP)
+    leaving = tuple(r for r in topo.routes_out_of(k) if r.kind in ("transfer", ROUTE_PUMP))
+    return arriving, leaving
 
 
 # -- rows: terms at one step ----------------------------------------------------------

@@ -8,13 +8,14 @@ something in ``ctx.expr`` for a later one (``modes`` publishes its binaries
 for ``run_rest``).
 """
 
-from . import (cycles, direction, grid_limits, modes, objective, power_limits, ramp, routes, run_rest,
+from . import (cycles, direction, grid_limits, modes, objective, power_limits, pumping, ramp, routes, run_rest,
                site_balance, storage_balance, supplies)
 
 FAMILIES = (
     power_limits,
     supplies,
     routes,
+    pumping,
     storage_balance,
     site_balance,
     grid_limits,

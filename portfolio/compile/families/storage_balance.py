@@ -6,7 +6,7 @@ into a step), c = total charge (draw from the site plus direct supplies), d = di
 q = spill, n = natural supply (MW, the storage's supply series):
 
     soc[t] = a*soc[t-1] + eta_charge*c[t]*dt - d[t]*dt/eta_discharge - q[t]*dt
-             + n[t]*dt + routes_in[t] - transfers_out[t]
+             + n[t]*dt + routes_in[t] - transfers_out[t] - pumped_out[t]
                                               (family ``storage_balance``, identity)
 
     soc_min <= soc[t] <= soc_max              (families ``soc_min``, ``soc_max``)
@@ -14,7 +14,10 @@ q = spill, n = natural supply (MW, the storage's supply series):
                                               (family ``end_rule``)
 
 routes_in / transfers_out are the routes' in[r,t] and out[r,t] (:mod:`.routes`, MWh
-per step, from :mod:`portfolio.compile.expressions`).  A window of a longer
+per step, from :mod:`portfolio.compile.expressions`).  pumped_out is what a pump
+route from this store lifts: out[r,t] = eta_charge[u]*c[u,t]*dt/factor[r] for the
+upper store u it feeds; a pump route adds nothing to u's routes_in, since u's own
+charge term eta_charge*c*dt already is the water arriving (``E.balance_routes``).  A window of a longer
 horizon (:mod:`portfolio.windows`) carries in what was released before it
 and arrives inside it as fixed MWh per step (``Storage.arriving``, per
 route): a constant on the right-hand side of those steps, whose row then
@@ -57,8 +60,7 @@ def build(ctx: Ctx) -> None:
     p = ctx.p
     dt = ctx.dt
     for k, s in p.storages.items():
-        into = ctx.topo.routes_into(k)
-        transfers = [r for r in ctx.topo.routes_out_of(k) if r.kind == "transfer"]
+        into, leaving = E.balance_routes(ctx.topo, k)
         a = (1.0 - s.loss_per_h) ** dt
         natural = p.profile(s.supply) if s.supply is not None else None
         o = Origin(s.span, f'energy balance of storage "{k}"')
@@ -84,7 +86,7 @@ def build(ctx: Ctx) -> None:
                 if t < len(mwh):
                     const += mwh[t]
                     row_origin = Origin(r.span, f'water in transit on route "{r.name}" into storage "{k}"')
-            terms += [term for r in transfers for term in E.route_out_terms(ctx, r, t)]
+            terms += [term for r in leaving for term in E.route_out_terms(ctx, r, t)]
             # soc - (supplies) = const  ->  rhs = const
             ctx.row("storage_balance", (k, t), terms, lo=const, hi=const, origin=row_origin,
                     relaxable=False)

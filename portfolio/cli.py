@@ -74,6 +74,8 @@ def build_parser() -> argparse.ArgumentParser:
                     help="write nothing; exit 1 when a file is not in the canonical layout (for CI)")
     fm.add_argument("--diff", action="store_true", help="write nothing; print what would change as a unified diff")
 
+    sub.add_parser("lsp", help="run the language server over standard input and output (docs/lsp.md)")
+
     codes = sub.add_parser("codes", help="list every diagnostic code")
     codes.add_argument("--format", choices=("text", "markdown"), default="text")
 
@@ -154,6 +156,9 @@ def main(argv: Optional[List[str]] = None, out=None, err=None) -> int:
             return cmd_codes(args, out)
         if args.command == "fmt":
             return cmd_fmt(args, out, err)
+        if args.command == "lsp":
+            from .lsp.server import main as lsp_main   # pygls only here: other commands start without it
+            return lsp_main()
         if args.command == "dispatch":
             return cmd_dispatch(args, out, err)
         if args.command == "graph":

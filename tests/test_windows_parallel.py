@@ -104,7 +104,8 @@ def test_windows_whose_guess_was_wrong_are_solved_again(family, seed):
     par = dispatch_windows(p, Windows(c, None, "pin", 2), EXACT, executor=InThisProcess())
     w = par.summary["windows"]
     again = [x for x in w["windows"] if "solved again" in x["message"]]
-    assert w["resolved"] == len(again) >= 1
+    assert w["resolved"] >= max(1, len(again))   # a window solved again may then merge with its
+    #                                              predecessor, and the merged one says that instead
     assert par.objective == pytest.approx(seq.objective, rel=1e-12)
 
 

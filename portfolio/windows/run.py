@@ -29,7 +29,7 @@ from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
 from ..solve.matrix import values_by_family
 from .bound import relax
 from .cut import window_model
-from .spec import END_MODES, END_VALUE, OPEN, Foresight, Windows, plan
+from .spec import END_VALUE, OPEN, Foresight, Windows, plan
 from .task import WindowOutcome, WindowTask, solve_window
 
 Spec = Union[Windows, Foresight]

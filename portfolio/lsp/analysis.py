@@ -27,7 +27,7 @@ from lark import Token, Tree
 from lark.exceptions import UnexpectedInput
 
 from .. import units as U
-from ..api import _tidy
+from ..api import tidy_diagnostics
 from ..check.checker import Checker
 from ..check.tree import Node, Quantity, Reader, Word, read
 from ..diagnostics import Diagnostic, Sink
@@ -35,7 +35,7 @@ from ..graph import check_topology, network
 from ..model import Decl as ModelDecl
 from ..model import Portfolio
 from ..spans import Span
-from ..syntax import _words_of, lines_of, parse, parser, span_of
+from ..syntax import keywords_of, lines_of, parse, parser, span_of
 
 # How a model field (canonical units, docs/model.md) reads in a hover.  A
 # field missing here is shown as its plain value: a new field needs no entry.
@@ -115,7 +115,7 @@ def analyse(text: str, path: str, base_dir: Optional[Path] = None) -> Analysis:
     finally:
         if was_enabled:
             gc.enable()
-    a.diagnostics = _tidy(sink.items)
+    a.diagnostics = tidy_diagnostics(sink.items)
     return a
 
 
@@ -339,7 +339,7 @@ def completions(a: Analysis, line: int, col: int) -> List[Tuple[str, str]]:
     accepts, before = got
     out = {}
     for terminal in sorted(accepts):
-        for w in _words_of(terminal):
+        for w in keywords_of(terminal):
             out.setdefault(w, "keyword")
     declaring = {_declaring_word(a, d) for d in a.declarations}
     if "NAME" in accepts and before not in declaring:

@@ -76,7 +76,8 @@ def test_parallel_windows_give_the_in_order_schedule(family, seed, pool, tmp_pat
                     (name, col)
     w = together.summary["windows"]
     assert w["workers"] == 2 and w["max_violation"] <= 1e-6
-    assert 0 <= w["resolved"] <= w["count"] - 1
+    if any("solved again" in x["message"] for x in w["windows"]):
+        assert w["resolved"] >= 1
     mono = RP.dispatched(family, seed)
     if mono.status == "optimal":
         assert together.objective <= mono.objective + 1e-6 * max(1.0, abs(mono.objective))

@@ -113,11 +113,13 @@ class _Run:
     def sighted(self) -> bool:
         return isinstance(self.spec, Foresight)
 
-    def task(self, number, start, commit, length, guess=False) -> WindowTask:
-        """The task of a window from the committed schedule (or, ``guess``, from the LP)."""
+    def task(self, number, start, commit, length, guess=False, values=None) -> WindowTask:
+        """The task of a window from the committed schedule (``guess``: from the LP's;
+        ``values``: from those columns instead)."""
         last = start + length == self.p.horizon.steps
         end = self.spec.end
-        values = _lp_values(self) if guess else self.values
+        if values is None:
+            values = _lp_values(self) if guess else self.values
         relaxed = None if self.sighted else self.relaxed   # limited foresight never reads it
         model = window_model(self.p, self.full, values, start, length, end, relaxed)
         fallback, fallback_end = None, END_VALUE
@@ -181,34 +183,67 @@ def _in_order(run: _Run):
 
 
 def _parallel(run: _Run, executor):
-    """Every window at once from the LP's state at its start, ends pinned to the LP's state
-    there; then, in order, each is kept when the committed schedule before it left exactly
-    the state it was solved from (:func:`_same`), else solved again from that state.  So
-    the schedule is the one :func:`_in_order` finds with the same settings."""
+    """Windows in rounds, each round all at once (ends pinned to the LP's state).
+
+    Round 1 solves every window from the LP's state at its start.  Then, in order, a
+    window is kept when the committed schedule before it leaves exactly the problem it
+    was solved from (:func:`_same`); the first that does not is solved again from the
+    committed schedule, and every later one whose start, read from the latest schedule
+    of the window before it, differs from what it was solved from is solved again from
+    that, all in the next round.  Each round keeps at least one more window, so this
+    ends; and the schedule is the one :func:`_in_order` finds with the same settings.
+    """
     own = executor is None
     if own:
         executor = _pool(run.spec.workers)
-    futures = []
+    pieces, n = run.pieces, len(run.pieces)
+    futures: dict = {}
     try:
-        tasks = [run.task(i + 1, start, commit, length, guess=i > 0)
-                 for i, (start, commit, length) in enumerate(run.pieces)]
+        tasks = [run.task(i + 1, *pieces[i], guess=i > 0) for i in range(n)]
         with _children_ignore_ctrl_c(own):
-            futures = [executor.submit(run.runner, tasks[0])]
-        futures += [executor.submit(run.runner, task) for task in tasks[1:]]
-        for i, (start, commit, length) in enumerate(run.pieces):
-            out = futures[i].result()
-            if i > 0 and not _same(run, tasks[i], out):
-                run.resolved += 1
-                again = run.runner(run.task(i + 1, start, commit, length))
-                again.message = ("solved again from the committed schedule before it"
-                                 + (f" ({out.message})" if out.message else ""))
-                out = again
-            failure = run.keep(i, out)
-            if failure is not None:
-                return failure
+            futures[0] = executor.submit(run.runner, tasks[0])
+        for i in range(1, n):
+            futures[i] = executor.submit(run.runner, tasks[i])
+        outs: dict = {}
+        exact = {0}          # windows solved from the committed schedule itself
+        kept, rounds = 0, 1
+        candidate = np.zeros_like(run.x)
+        while kept < n:
+            for i in sorted(futures):
+                o = outs[i] = futures.pop(i).result()
+                if rounds > 1:
+                    o.message = (f"solved again in round {rounds} from the schedule before it"
+                                 + (f" ({o.message})" if o.message else ""))
+            while kept < n:                      # keep what follows the committed schedule
+                # a window solved from the committed schedule is kept even when it failed:
+                # keep() then merges it with the ones before it, or stops
+                wanted = None if kept in exact else run.task(kept + 1, *pieces[kept])
+                if wanted is not None and not _same(run, tasks[kept], wanted, outs[kept]):
+                    break
+                failure = run.keep(kept, outs[kept])
+                if failure is not None:
+                    return failure
+                kept = _kept_steps(run, pieces)
+            if kept >= n:
+                break
+            rounds += 1
+            candidate[:] = run.x                 # the committed schedule, then the latest guesses
+            for j in range(kept, n):
+                if outs[j].solved:
+                    _place(run.full, candidate, outs[j], outs[j].start)
+            guessed = values_by_family(run.full, candidate)
+            for j in range(kept, n):
+                t = run.task(j + 1, *pieces[j]) if j == kept else \
+                    run.task(j + 1, *pieces[j], values=guessed)
+                if j == kept or not _same(run, tasks[j], t, outs[j]):
+                    if j == kept:
+                        exact.add(j)
+                    tasks[j] = t
+                    run.resolved += 1
+                    futures[j] = executor.submit(run.runner, t)
         return None
     except BaseException:
-        for f in futures:
+        for f in futures.values():
             f.cancel()
         if own:
             _stop(executor)
@@ -218,19 +253,29 @@ def _parallel(run: _Run, executor):
             executor.shutdown(wait=True, cancel_futures=True)
 
 
-def _same(run: _Run, guessed: WindowTask, out: WindowOutcome) -> bool:
-    """Is the problem a window was solved from (the LP's state at its start) the very problem
-    the committed schedule before it leaves?  Then its schedule is the one an in-order
-    dispatch finds there (same matrix, same solver, same settings)."""
+def _kept_steps(run: _Run, pieces) -> int:
+    """How many windows of the plan the committed schedule covers (a merged window may
+    cover several)."""
+    if not run.outcomes:
+        return 0
+    last = run.outcomes[-1]
+    end = last.start + last.commit
+    return sum(1 for start, _, _ in pieces if start < end)
+
+
+def _same(run: _Run, solved: WindowTask, wanted: WindowTask, out: WindowOutcome) -> bool:
+    """Was ``out`` solved from the very problem ``wanted`` poses (the same compiled matrix,
+    of the main model, or of the fallback when the window fell back to it)?  Then its
+    schedule is the one solving ``wanted`` gives (same matrix, solver and settings)."""
     if not out.solved:
         return False
-    actual = run.task(out.number, out.start, out.commit, out.length)
-    model = actual.portfolio if out.end == guessed.end else actual.fallback
-    solved = guessed.portfolio if out.end == guessed.end else guessed.fallback
-    if model is None or solved is None:
+    fell_back = out.end != solved.end
+    a = solved.fallback if fell_back else solved.portfolio
+    b = wanted.fallback if fell_back else wanted.portfolio
+    if a is None or b is None:
         return False
-    return same_matrix(build(model, variant=run.options.variant).matrix,
-                       build(solved, variant=run.options.variant).matrix)
+    return same_matrix(build(a, variant=run.options.variant).matrix,
+                       build(b, variant=run.options.variant).matrix)
 
 
 def same_matrix(a, b, rtol: float = 1e-12) -> bool:

@@ -26,13 +26,13 @@ from cli_support import DEMO, run  # noqa: E402
 from portfolio import contract as C  # noqa: E402
 
 
-def _long_text(days: int = 5) -> str:
+def _long_text(days: int = 5, start: str = "2027-06-01T00:00") -> str:
     """A battery and a solar farm behind a limited connection, hourly over ``days`` days."""
     hours = 24 * days
     price = [round(60 + 35 * math.sin(2 * math.pi * (h % 24 - 9) / 24) + 3 * (h // 24), 2) for h in range(hours)]
     sun = [round(max(0.0, 9 * math.sin(math.pi * (h % 24 - 6) / 12)), 3) if 6 <= h % 24 <= 18 else 0.0
            for h in range(hours)]
-    return (f'horizon start 2027-06-01T00:00 length {hours} h step 1 h zone "Europe/Berlin"\n'
+    return (f'horizon start {start} length {hours} h step 1 h zone "Europe/Berlin"\n'
             f"price spot values [{', '.join(map(str, price))}]\n"
             "connection line { export max 6 MW import max 5 MW sell at spot buy at spot plus 5 per MWh }\n"
             "site farm at line {\n"
@@ -485,3 +485,44 @@ def test_bad_study_folders_are_refused_with_a_clear_message(study, tmp_path):
     code, out, err = run("report", plain)
     assert code == 2 and "neither" in err and ".portfolio-study" in err and ".portfolio-output" in err
     assert os.listdir(plain) == ["cases.csv"]
+
+
+def test_a_horizon_over_two_months_charts_money_by_month(tmp_path):
+    f = tmp_path / "turn.folio"
+    f.write_text(_long_text(4, start="2027-06-29T00:00"), encoding="utf-8")
+    out = tmp_path / "out"
+    code, _text, err = run("dispatch", f, "--out", out, "--report", "-q")
+    assert code == 0, err
+    text, page = _page(out)
+    assert {"periods/day", "periods/month"} <= set(page.charts)
+    per = pd.read_csv(out / "periods.csv")
+    months = per[(per["period"] == "month") & per["kind"].isin(("storage", "supply", "demand"))]
+    assert sorted(set(months["label"])) == ["2027-06", "2027-07"]
+    figure = text.split('data-chart="periods/month"', 1)[1].split("</figure>", 1)[0]
+    assert "2027-06" in figure and "2027-07" in figure and "net value (money)" in figure
+    summary = json.loads((out / C.SUMMARY_FILE).read_text())
+    total = sum(page.values[f"periods/month/{m}/total"] for m in ("2027-06", "2027-07"))
+    assert total == pytest.approx(summary["objective"], rel=1e-6, abs=1e-6)   # the months add up
+
+
+def test_a_study_of_scenarios_only_gets_its_objectives_as_bars(tmp_path):
+    """A cases table as `portfolio study` writes it, varying only a series: no setting to plot
+    against, so each case's objective is one bar (a failed case has none)."""
+    from portfolio.study.run import MARKER as STUDY_MARKER
+    folder = tmp_path / "sc"
+    folder.mkdir()
+    (folder / STUDY_MARKER).write_text("portfolio study of x.folio\n")
+    df = pd.DataFrame({"case": ["a1", "b2", "c3"], "spot scenario": ["low", "high", "odd"],
+                       "status": ["optimal", "optimal", "error"], "objective": [12.5, 30.25, None],
+                       "gap": [0.0, 0.0, None], "net value cells": [12.5, 30.25, None],
+                       "message": ["", "", "ValueError: planted"]})
+    df.to_csv(folder / "cases.csv", index=False)
+    code, out, err = run("report", folder)
+    assert code == 0 and "study of 3 cases, 1 without a schedule" in out, err
+    text, page = _page(folder)
+    assert page.charts == ["study/objective"]
+    figure = text.split('data-chart="study/objective"', 1)[1].split("</figure>", 1)[0]
+    assert ">low<" in figure and ">high<" in figure and ">odd<" not in figure
+    assert page.values["cases/b2/objective"] == 30.25 and page.values["cases/c3/objective"] is None
+    assert 'data-key="failed/c3/message">ValueError: planted<' in text
+    assert "Not recorded" in text and 'data-key="currency">not recorded: money<' in text

@@ -131,8 +131,9 @@ def build_parser() -> argparse.ArgumentParser:
     sd.add_argument("--quiet", "-q", action="store_true", help="no progress bar, only the last line")
     sd.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
 
-    rp = sub.add_parser("report", help="write DIR/report.html: one self-contained page of a dispatch's output folder")
-    rp.add_argument("folder", metavar="DIR", help="the output folder of a dispatch (its --out)")
+    rp = sub.add_parser("report", help="write DIR/report.html: one self-contained page of a dispatch's output "
+                                            "folder or of a study folder")
+    rp.add_argument("folder", metavar="DIR", help="the output folder of a dispatch or a study (its --out)")
 
     gr = sub.add_parser("graph", help="draw the portfolio's network (SVG, PNG or DOT)")
     gr.add_argument("file", metavar="FILE")
@@ -510,7 +511,7 @@ def cmd_report(args, out, err) -> int:
     except ReportError as e:
         print(printable(f"portfolio: error: {e}; no report written"), file=err)
         return EXIT_USAGE
-    what = ("" if rep.status in ("optimal", "feasible")
+    what = (f" ({rep.note})" if rep.note else "" if rep.status in ("optimal", "feasible")
             else f" (status {rep.status}: no schedule; the page says why)")
     print(printable(f"report written to {rep.path}{what}"), file=out)
     return EXIT_OK

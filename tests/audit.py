@@ -110,14 +110,17 @@ class _Audit:
             self.bad(f"{name}: {what} at {self.times[t] if self.T > t else t}: "
                      f"{got[t]:.9g} below {limit[t]:.9g}")
 
-    def money(self, name: str, what: str, got, want, terms, coef: float = 0.0) -> None:
+    def money(self, name: str, what: str, got, want, terms, coef=0.0) -> None:
         """A sum within tolerance; ``coef``: the coefficient of the rounded CSV value in each
-        term (the sum may move by ROUNDING x coef per term)."""
+        term, one for all or one per term (the sum may move by ROUNDING x |coef| per term:
+        a net value, price x step hours x a rounded MW, by ROUNDING x |price| x step hours)."""
         scale = float(np.sum(np.abs(np.asarray(terms, dtype=float)))) if np.size(terms) else 0.0
         if got is None or not isinstance(got, (int, float)) or not math.isfinite(got):
             self.bad(f"{name}: {what} is {got!r}, expected {want:.9g}")
             return
-        if abs(got - want) > self.tol * max(1.0, scale, abs(want)) + ROUNDING * coef * np.size(terms):
+        reach = ROUNDING * float(np.sum(np.broadcast_to(np.abs(np.asarray(coef, dtype=float)),
+                                                        np.shape(np.ravel(terms)))))
+        if abs(got - want) > self.tol * max(1.0, scale, abs(want)) + reach:
             self.bad(f"{name}: {what} is {got:.9g}, expected {want:.9g}")
 
     # -- reading -------------------------------------------------------------------
@@ -619,19 +622,21 @@ class _Audit:
             pr = price.get(site.connection, np.zeros(T))
             site_rev, site_terms = 0.0, []
             direct = {k for i in p.supplies.values() if i.site == site.name for k in i.targets if k != "site"}
-            group_got, group_want, group_terms = 0.0, 0.0, []
+            group_got, group_want, group_terms, group_coefs = 0.0, 0.0, [], []
             for k in [x for x in p.storages.values() if x.site == site.name]:
                 e = entry("storages", k.name)
                 d, c = self.col(k.name, "discharge_mw"), self.col(k.name, "charge_mw")
                 terms = np.r_[dt * pr * d, dt * pr * c, k.wear * d * dt]
+                coefs = np.r_[dt * np.abs(pr), dt * np.abs(pr), np.full(T, k.wear * dt)]
                 want = float(np.sum(dt * pr * (d - c))) - k.wear * float(d.sum()) * dt
                 got = e["net_value"] if e else None
                 if k.name in direct:        # its own charge includes supply: check as a group
                     group_want += want
                     group_terms.append(terms)
+                    group_coefs.append(coefs)
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(k.name, "summary net value (attribution)", got, want, terms)
+                    self.money(k.name, "summary net value (attribution)", got, want, terms, coef=coefs)
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(terms)
             for i in p.supplies.values():
@@ -644,9 +649,11 @@ class _Audit:
                 if any(t != "site" for t in i.targets):
                     group_want += want
                     group_terms.append(dt * pr * u)
+                    group_coefs.append(dt * np.abs(pr))
                     group_got = None if got is None or group_got is None else group_got + got
                 else:
-                    self.money(i.name, "summary net value (attribution)", got, want, dt * pr * u)
+                    self.money(i.name, "summary net value (attribution)", got, want, dt * pr * u,
+                               coef=dt * np.abs(pr))
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * u)
             for dm in p.demands.values():
@@ -656,12 +663,13 @@ class _Audit:
                 v = self.col(dm.name, "demand_mw")
                 got = e["net_value"] if e else None
                 self.money(dm.name, "summary net value (attribution)", got, -float(np.sum(dt * pr * v)),
-                           dt * pr * v)
+                           dt * pr * v, coef=dt * np.abs(pr))
                 site_rev += got if isinstance(got, (int, float)) else 0.0
                 site_terms.append(dt * pr * v)
             if group_terms:
                 self.money(site.name, "summary net value of the stores and supplies that feed them "
-                           "(attribution, as a group)", group_got, group_want, np.concatenate(group_terms))
+                           "(attribution, as a group)", group_got, group_want, np.concatenate(group_terms),
+                           coef=np.concatenate(group_coefs))
             e = entry("sites", site.name)
             flat = np.concatenate([np.ravel(x) for x in site_terms]) if site_terms else []
             if e is not None:

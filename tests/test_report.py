@@ -26,13 +26,13 @@ from cli_support import DEMO, run  # noqa: E402
 from portfolio import contract as C  # noqa: E402
 
 
-def _long_text(days: int = 5) -> str:
+def _long_text(days: int = 5, start: str = "2027-06-01T00:00") -> str:
     """A battery and a solar farm behind a limited connection, hourly over ``days`` days."""
     hours = 24 * days
     price = [round(60 + 35 * math.sin(2 * math.pi * (h % 24 - 9) / 24) + 3 * (h // 24), 2) for h in range(hours)]
     sun = [round(max(0.0, 9 * math.sin(math.pi * (h % 24 - 6) / 12)), 3) if 6 <= h % 24 <= 18 else 0.0
            for h in range(hours)]
-    return (f'horizon start 2027-06-01T00:00 length {hours} h step 1 h zone "Europe/Berlin"\n'
+    return (f'horizon start {start} length {hours} h step 1 h zone "Europe/Berlin"\n'
             f"price spot values [{', '.join(map(str, price))}]\n"
             "connection line { export max 6 MW import max 5 MW sell at spot buy at spot plus 5 per MWh }\n"
             "site farm at line {\n"
@@ -79,6 +79,41 @@ def infeasible(tmp_path_factory):
     return out
 
 
+_STUDY = """portfolio tiny
+horizon start 2027-03-01T00:00 length 8 h step 1 h zone "UTC"
+currency EUR
+price spot values [30 80 20 90 40 100 10 70] per MWh
+connection grid { export max 3 MW import max 3 MW sell at spot buy at spot plus 1 per MWh }
+site yard at grid {
+  storage cells { kind battery energy 4 MWh charge max 2 MW discharge max 2 MW
+                  efficiency round trip 81% soc start 50% end at least 90% modes exclusive }
+}
+study sizes {
+  vary cells energy values [2, 4] MWh
+  vary grid import max values [2, 0] MW
+  scenario low for spot values [30 80 20 90 40 100 10 70] per MWh
+  scenario high for spot values [60 160 40 180 80 200 20 140] per MWh
+}
+"""
+
+
+@pytest.fixture(scope="module")
+def study(tmp_path_factory):
+    """A study of 8 cases, 4 of them infeasible (no import: the store cannot end fuller), with
+    each case's schedule kept (so its provenance is recorded), and its report."""
+    base = tmp_path_factory.mktemp("study")
+    f = base / "tiny.folio"
+    f.write_text(_STUDY, encoding="utf-8")
+    out = base / "st"
+    code, text, err = run("study", f, "--out", out, "--workers", "1", "--schedules", "-q")
+    assert code == 1, err                    # some cases have no schedule
+    assert (out / "cases.csv").is_file()
+    code, text, err = run("report", out)
+    assert code == 0, err
+    assert f"report written to {out / C.REPORT_FILE} (study of 8 cases, 4 without a schedule)" in text
+    return out
+
+
 class _Figures(HTMLParser):
     """The page's figures (data-key -> data-value), its charts and their <svg> elements."""
 
@@ -114,9 +149,14 @@ def _listing(folder: Path):
     return sorted((n, (folder / n).read_bytes()) for n in os.listdir(folder))
 
 
+def _tree(folder: Path):
+    """Every file under ``folder`` (a study's cases and plots too) with its bytes."""
+    return sorted((str(f.relative_to(folder)), f.read_bytes()) for f in folder.rglob("*") if f.is_file())
+
+
 # -- the page in a real browser --------------------------------------------------------------
 
-@pytest.mark.parametrize("which", ["demo", "long_windows", "infeasible"])
+@pytest.mark.parametrize("which", ["demo", "long_windows", "infeasible", "study"])
 def test_the_report_opens_in_a_real_browser_with_nothing_fetched(which, request, tmp_path):
     exe = browser.find()
     if exe is None:
@@ -136,8 +176,10 @@ def test_the_report_opens_in_a_real_browser_with_nothing_fetched(which, request,
     assert float(pixels.std()) > 0.05                              # not one flat colour
     assert float((pixels.min(axis=2) < 0.5).mean()) > 0.005        # some dark ink: text, lines
     assert v.svgs == v.charts_declared == len(parsed.charts) == parsed.svgs_in_charts
-    if which != "infeasible":
+    if which in ("demo", "long_windows"):
         assert v.svgs >= 4
+    if which == "study":
+        assert v.svgs == 2                                         # a plot per varied setting
 
 
 def test_the_browser_check_sees_a_fetch_and_a_console_error(tmp_path):
@@ -333,3 +375,154 @@ def test_a_dispatch_from_python_has_provenance_without_a_command():
     assert tuple(r.summary["network"]) == C.NETWORK_KEYS
     assert r.summary["network"]["storages"]["cell"]["energy_mwh"] == 1.0
     assert np.isfinite(pd.Timestamp(prov["started_utc"]).timestamp())
+
+
+# -- money by day as a chart ---------------------------------------------------------------
+
+def test_a_long_horizon_charts_money_by_day_and_a_short_one_does_not(long_windows, demo):
+    text, page = _page(long_windows)
+    per = pd.read_csv(long_windows / "periods.csv")
+    days = per[(per["period"] == "day") & per["kind"].isin(("storage", "supply", "demand"))]
+    assert "periods/day" in page.charts
+    figure = text.split('data-chart="periods/day"', 1)[1].split("</figure>", 1)[0]
+    for label in list(dict.fromkeys(days["label"]))[::2]:          # the days label the axis
+        assert label in figure
+    for asset, kind in set(zip(days["asset"], days["kind"])):        # each asset in the legend
+        assert f"{kind} {asset}" in figure
+    # the chart's totals are the day table's, which are periods.csv's
+    for label, part in days.groupby("label"):
+        assert page.values[f"periods/day/{label}/total"] == pytest.approx(part["net_value"].sum(), abs=1e-9)
+    summary = json.loads((demo / C.SUMMARY_FILE).read_text())
+    if summary["steps"] * summary["step_hours"] <= 72:
+        assert not [c for c in _page(demo)[1].charts if c.startswith("periods/")]
+
+
+# -- a study's report --------------------------------------------------------------------
+
+def test_the_study_report_figures_equal_cases_csv(study):
+    text, page = _page(study)
+    df = pd.read_csv(study / "cases.csv", keep_default_na=True)
+    vals = page.values
+    varied = list(df.columns[1:list(df.columns).index("status")])
+    assert varied == ["cells energy [MWh]", "grid import max [MW]", "spot scenario"]
+    assets = [c for c in df.columns if c.startswith("net value ")]
+    assert assets == ["net value cells"]
+    for _i, r in df.iterrows():
+        k = r["case"]
+        for c in ["objective", "gap", "cells energy [MWh]", "grid import max [MW]"] + assets:
+            want = r[c]
+            if pd.isna(want):
+                assert vals[f"cases/{k}/{c}"] is None
+            else:
+                assert vals[f"cases/{k}/{c}"] == pytest.approx(float(want), abs=1e-12), (k, c)
+        assert f'data-key="cases/{k}/spot scenario">{r["spot scenario"]}<' in text
+        assert f'data-key="cases/{k}/status">{r["status"]}<' in text
+    ok = df[df["status"].isin(("optimal", "feasible"))]
+    assert vals["cases"] == len(df) == 8 and vals["with_schedule"] == len(ok) == 4
+    assert vals["best/objective"] == pytest.approx(ok["objective"].max(), abs=1e-12)
+    # a plot per varied setting, none for the scenario (it tells the lines apart)
+    assert page.charts == ["study/cells energy [MWh]", "study/grid import max [MW]"]
+    figure = text.split('data-chart="study/cells energy [MWh]"', 1)[1].split("</figure>", 1)[0]
+    assert "objective (EUR)" in figure and "cells energy [MWh]" in figure
+    assert "grid import max [MW] = 2, spot: low" in figure and "spot: high" in figure
+    assert "<img" not in text and ".png" not in text.replace("plots/", "")
+
+
+def test_the_study_report_lists_failed_cases_provenance_and_cautions(study):
+    import portfolio
+    text, page = _page(study)
+    df = pd.read_csv(study / "cases.csv", keep_default_na=False)
+    failed = df[~df["status"].isin(("optimal", "feasible"))]
+    assert len(failed) == 4 and set(failed["grid import max [MW]"]) == {0}
+    for _i, r in failed.iterrows():
+        assert f'data-key="failed/{r["case"]}/status">{r["status"]}<' in text
+        assert f'data-key="failed/{r["case"]}/message">{html.escape(r["message"] or "–")}<' in text
+    assert f'data-key="tool_version">{portfolio.__version__}<' in text
+    digest = hashlib.sha256((study.parent / "tiny.folio").read_bytes()).hexdigest()
+    assert digest in text
+    assert html.escape(C.CAUTION) in text and 'data-key="currency">EUR<' in text
+    # only report.html was added to what the study wrote
+    assert C.REPORT_FILE in os.listdir(study)
+    assert set(os.listdir(study)) <= {".portfolio-study", "cases", "cases.csv", "cases.parquet", "plots",
+                                      C.REPORT_FILE}
+
+
+def test_a_study_report_replaces_only_its_own_page(study, tmp_path):
+    folder = tmp_path / "st"
+    shutil.copytree(study, folder)
+    before = _tree(folder)
+    code, out, err = run("report", folder)                        # its own page: replaced
+    assert code == 0 and err == "" and "study of 8 cases" in out
+    assert [n for n, _b in _tree(folder)] == [n for n, _b in before]
+    (folder / C.REPORT_FILE).write_text("somebody's page")        # not ours: kept as it is
+    before = _tree(folder)
+    code, out, err = run("report", folder)
+    assert code == 2 and "did not write" in err and out == ""
+    assert _tree(folder) == before
+
+
+def test_bad_study_folders_are_refused_with_a_clear_message(study, tmp_path):
+    unfinished = tmp_path / "unfinished"
+    shutil.copytree(study, unfinished)
+    (unfinished / C.REPORT_FILE).unlink()
+    (unfinished / "cases.csv").unlink()
+    before = _tree(unfinished)
+    code, out, err = run("report", unfinished)
+    assert code == 2 and "has no cases.csv" in err and "has not finished" in err
+    assert _tree(unfinished) == before
+    damaged = tmp_path / "damaged"
+    shutil.copytree(study, damaged)
+    (damaged / C.REPORT_FILE).unlink()
+    df = pd.read_csv(damaged / "cases.csv")
+    df.drop(columns=["status"]).to_csv(damaged / "cases.csv", index=False)
+    before = _tree(damaged)
+    code, out, err = run("report", damaged)
+    assert code == 2 and "not a study's cases table" in err and "status" in err
+    assert _tree(damaged) == before
+    plain = tmp_path / "plain"
+    plain.mkdir()
+    (plain / "cases.csv").write_text("case,status\n")
+    code, out, err = run("report", plain)
+    assert code == 2 and "neither" in err and ".portfolio-study" in err and ".portfolio-output" in err
+    assert os.listdir(plain) == ["cases.csv"]
+
+
+def test_a_horizon_over_two_months_charts_money_by_month(tmp_path):
+    f = tmp_path / "turn.folio"
+    f.write_text(_long_text(4, start="2027-06-29T00:00"), encoding="utf-8")
+    out = tmp_path / "out"
+    code, _text, err = run("dispatch", f, "--out", out, "--report", "-q")
+    assert code == 0, err
+    text, page = _page(out)
+    assert {"periods/day", "periods/month"} <= set(page.charts)
+    per = pd.read_csv(out / "periods.csv")
+    months = per[(per["period"] == "month") & per["kind"].isin(("storage", "supply", "demand"))]
+    assert sorted(set(months["label"])) == ["2027-06", "2027-07"]
+    figure = text.split('data-chart="periods/month"', 1)[1].split("</figure>", 1)[0]
+    assert "2027-06" in figure and "2027-07" in figure and "net value (money)" in figure
+    summary = json.loads((out / C.SUMMARY_FILE).read_text())
+    total = sum(page.values[f"periods/month/{m}/total"] for m in ("2027-06", "2027-07"))
+    assert total == pytest.approx(summary["objective"], rel=1e-6, abs=1e-6)   # the months add up
+
+
+def test_a_study_of_scenarios_only_gets_its_objectives_as_bars(tmp_path):
+    """A cases table as `portfolio study` writes it, varying only a series: no setting to plot
+    against, so each case's objective is one bar (a failed case has none)."""
+    from portfolio.study.run import MARKER as STUDY_MARKER
+    folder = tmp_path / "sc"
+    folder.mkdir()
+    (folder / STUDY_MARKER).write_text("portfolio study of x.folio\n")
+    df = pd.DataFrame({"case": ["a1", "b2", "c3"], "spot scenario": ["low", "high", "odd"],
+                       "status": ["optimal", "optimal", "error"], "objective": [12.5, 30.25, None],
+                       "gap": [0.0, 0.0, None], "net value cells": [12.5, 30.25, None],
+                       "message": ["", "", "ValueError: planted"]})
+    df.to_csv(folder / "cases.csv", index=False)
+    code, out, err = run("report", folder)
+    assert code == 0 and "study of 3 cases, 1 without a schedule" in out, err
+    text, page = _page(folder)
+    assert page.charts == ["study/objective"]
+    figure = text.split('data-chart="study/objective"', 1)[1].split("</figure>", 1)[0]
+    assert ">low<" in figure and ">high<" in figure and ">odd<" not in figure
+    assert page.values["cases/b2/objective"] == 30.25 and page.values["cases/c3/objective"] is None
+    assert 'data-key="failed/c3/message">ValueError: planted<' in text
+    assert "Not recorded" in text and 'data-key="currency">not recorded: money<' in text

@@ -1,4 +1,4 @@
-"""``portfolio report DIR``: one self-contained HTML page of a dispatch output folder.
+"""``portfolio report DIR``: one self-contained HTML page of a dispatch output folder or a study folder.
 
 :func:`write_report` reads the folder through the results contract
 (:mod:`.folder`), draws its charts with matplotlib as inline SVG
@@ -8,7 +8,10 @@ folder stays one a later dispatch may replace), then the page is written to
 a temporary file beside it, flushed and renamed into place.  Nothing else in
 the folder is touched; a folder that is not an output folder of this
 version, or that holds files this tool did not write, is refused with
-:class:`ReportError` and nothing is written.  Never prints (docs/report.md).
+:class:`ReportError` and nothing is written.  A study folder (its marker
+``.portfolio-study``) gets the study's page (:mod:`.study`): only
+``report.html`` is written there, and only over a page this tool wrote.
+Never prints (docs/report.md).
 """
 
 from __future__ import annotations
@@ -21,9 +24,10 @@ from pathlib import Path
 from ..contract import MARKER, REPORT_FILE
 from ..files import replace_atomically
 from .folder import Folder, ReportError, check_folder, read
-from .page import render
+from .page import GENERATOR, render
+from .study import is_study, read_study, render_study
 
-__all__ = ["write_report", "ReportError", "Report", "read", "render"]
+__all__ = ["write_report", "ReportError", "Report", "read", "render", "read_study", "render_study"]
 
 
 @dataclass(frozen=True)
@@ -31,6 +35,7 @@ class Report:
     path: Path           # the page written
     status: str          # the dispatch's status, as summary.json states it
     charts: int          # charts on the page
+    note: str = ""       # what the page is of, when not a dispatch (a study: its cases)
 
 
 def _refuse_foreign(folder: Path, listed) -> None:
@@ -48,11 +53,37 @@ def _atomic_text(path: Path, text: str) -> None:
     replace_atomically(path, lambda tmp: Path(tmp).write_text(text, encoding="utf-8", newline="\n"))
 
 
+def _ours(page: Path) -> bool:
+    """Whether an existing page is one this tool wrote (its generator tag near the top)."""
+    if page.is_symlink() or not page.is_file():
+        return False
+    with open(page, "rb") as fh:
+        head = fh.read(4096)
+    return f'<meta name="generator" content="{GENERATOR}">'.encode() in head
+
+
+def _write_study_report(folder: Path) -> Report:
+    page = folder / REPORT_FILE
+    if os.path.lexists(page) and not _ours(page):
+        raise ReportError(f"{folder} holds a {REPORT_FILE} this tool did not write; refusing to replace it "
+                          f"(move it away to report this study)")
+    data = read_study(folder)
+    text, charts = render_study(data)
+    try:
+        _atomic_text(page, text)
+    except OSError as exc:
+        raise ReportError(f"cannot write {page}: {exc.strerror or exc}") from None
+    failed = int((~data.ok).sum())
+    return Report(page, "study", charts, note=f"study of {len(data.cases)} cases, {failed} without a schedule")
+
+
 def write_report(out_dir) -> Report:
     """Write ``out_dir/report.html`` for the output folder ``out_dir`` (see the module docstring)."""
     from ..writers import folder_turn
 
     folder = Path(out_dir).absolute()
+    if folder.is_dir() and not folder.is_symlink() and not (folder / MARKER).exists() and is_study(folder):
+        return _write_study_report(folder)
     check_folder(folder)                  # before taking the lock: a plain reason, nothing made
     try:
         with folder_turn(folder.parent, folder.name):   # a dispatch may not replace it meanwhile

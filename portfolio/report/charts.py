@@ -6,6 +6,10 @@ has labelled axes with units (the units are the contract's), and the
 colours are a colour-blind-safe set of our own choosing (:data:`PALETTE`),
 told apart by line style and hatching too where series overlap.
 
+A study's plots (:func:`study_lines`, :func:`bars`) are drawn again from its
+cases table in the same style, and money by day or month (:func:`money_by_period`)
+as stacked bars with the period's total.
+
 Long horizons are drawn averaged over blocks of steps, so a chart stays at
 most :data:`MAX_POINTS` points wide (a year of hours: daily means); the
 figures in the report's tables are never averaged.
@@ -24,6 +28,7 @@ from ..contract import TABLES
 
 MAX_POINTS = 720
 HEATMAP_AFTER_H = 72.0           # connection use as a day x hour map beyond three days
+PERIOD_CHARTS_AFTER_H = 72.0     # money by day (and by month) as charts beyond three days
 
 # colour-blind-safe: distinct in hue and in lightness (after Okabe and Ito's advice on
 # such sets; the values are ours)
@@ -264,19 +269,87 @@ def connection_heatmap(title: str, index, zone: str, net_export: np.ndarray,
 
 def money(title: str, rows: Sequence[Tuple[str, float]], money_unit: str, salt: str) -> str:
     """Money by asset, one bar each (gains right of zero, costs left)."""
+    return bars(title, [r[0] for r in rows], np.array([r[1] for r in rows], float),
+                f"net value over the horizon ({money_unit})", salt, width=9.0)
+
+
+def _signed_stack(ax, x, series: Sequence[Tuple[str, np.ndarray]], width) -> None:
+    """Bars stacked from zero: positive parts upwards, negative parts downwards, one colour
+    (and hatch) per series."""
+    up = np.zeros(len(x))
+    down = np.zeros(len(x))
+    hatches = iter(["", "", "", "", "///", "\\\\\\", "...", "xx"] * 4)
+    for (label, vals), colour in zip(series, PALETTE * 4):
+        v = np.nan_to_num(np.asarray(vals, float))
+        pos, neg = np.where(v > 0, v, 0.0), np.where(v < 0, v, 0.0)
+        hatch = next(hatches)
+        ax.bar(x, pos, width, bottom=up, color=colour, hatch=hatch, edgecolor="white", linewidth=0.3,
+               label=label)
+        ax.bar(x, neg, width, bottom=down, color=colour, hatch=hatch, edgecolor="white", linewidth=0.3)
+        up, down = up + pos, down + neg
+
+
+def money_by_period(title: str, labels: Sequence[str], series: Sequence[Tuple[str, np.ndarray]],
+                    money_unit: str, period: str, salt: str) -> str:
+    """Net value per period (a day or a month): each asset's part stacked (gains above zero,
+    costs below) and the period's total as a line of dots."""
     import matplotlib
     with matplotlib.rc_context(_STYLE):
-        fig, ax = _figure(0.6 + 0.32 * max(1, len(rows)))
-        labels = [r[0] for r in rows]
-        vals = np.array([r[1] for r in rows], float)
-        colours = [PALETTE[0] if v >= 0 else PALETTE[5] for v in vals]
-        hatches = ["" if v >= 0 else "///" for v in vals]
-        bars = ax.barh(range(len(rows)), vals, color=colours, edgecolor="white")
-        for b, h in zip(bars, hatches):
-            b.set_hatch(h)
-        ax.set_yticks(range(len(rows)), labels)
+        fig, ax = _figure(3.0)
+        x = np.arange(len(labels))
+        _signed_stack(ax, x, series, 0.8)
+        total = np.nansum(np.vstack([np.asarray(v, float) for _l, v in series]), axis=0) if series else x * 0.0
+        ax.plot(x, total, color=PRICE, marker="o", markersize=2.5 if len(x) > 60 else 4, linewidth=0.9,
+                label="total")
+        ax.axhline(0.0, color="#000000", linewidth=0.8)
+        step = max(1, math.ceil(len(labels) / 12))
+        ticks = list(range(0, len(labels), step))
+        ax.set_xticks(ticks, [labels[i] for i in ticks], rotation=30 if len(ticks) > 6 else 0, ha="right"
+                      if len(ticks) > 6 else "center")
+        ax.set_xlim(-0.6, len(labels) - 0.4)
+        ax.set_xlabel(period)
+        ax.set_ylabel(f"net value ({money_unit}); costs below 0")
+        ax.set_title(title)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        return to_svg(fig, salt)
+
+
+def study_lines(title: str, x_label: str, lines: Sequence[Tuple[str, np.ndarray, np.ndarray]],
+                y_label: str, salt: str) -> str:
+    """A study's plot: the objective against one varied value, one line (marker and dash
+    pattern as a second cue) per combination of the other dimensions."""
+    import matplotlib
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(3.4, 8.0)
+        styles = iter(["-", "--", ":", "-."] * 16)
+        markers = iter(["o", "s", "^", "D", "v", "P", "X", "*"] * 8)
+        for (label, xs, ys), colour in zip(lines, PALETTE * 8):
+            ax.plot(xs, ys, color=colour, linestyle=next(styles), marker=next(markers), linewidth=1.4,
+                    markersize=5, label=label)
+        if not lines:
+            ax.text(0.5, 0.5, "no case with a schedule", transform=ax.transAxes, ha="center")
+        ax.set_xlabel(x_label)
+        ax.set_ylabel(y_label)
+        ax.set_title(title)
+        if len(lines) > 1:       # below the axes: the labels name every other value, so they are long
+            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2 if len(lines) > 3 else 1)
+        return to_svg(fig, salt)
+
+
+def bars(title: str, labels: Sequence[str], values, x_label: str, salt: str, width: float = 8.0) -> str:
+    """One horizontal bar per label (values right of zero, negatives left, hatched); a
+    missing value (NaN) has no bar."""
+    import matplotlib
+    with matplotlib.rc_context(_STYLE):
+        fig, ax = _figure(0.6 + 0.32 * max(1, len(labels)), width)
+        vals = np.nan_to_num(np.asarray(values, float))
+        drawn = ax.barh(range(len(labels)), vals, color=[PALETTE[0] if v >= 0 else PALETTE[5] for v in vals],
+                        edgecolor="white")
+        for b, v in zip(drawn, vals):
+            b.set_hatch("" if v >= 0 else "///")
+        ax.set_yticks(range(len(labels)), labels)
         ax.invert_yaxis()
         ax.axvline(0.0, color="#000000", linewidth=0.8)
-        ax.set_xlabel(f"net value over the horizon ({money_unit})")
+        ax.set_xlabel(x_label)
         ax.set_title(title)
         return to_svg(fig, salt)

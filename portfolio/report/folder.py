@@ -18,6 +18,7 @@ from typing import Dict, List, Optional
 from ..contract import (ASSET_GROUPS, COLUMNS, MARKER, NETWORK_KEYS, PERIODS_TABLE, PROVENANCE_KEYS,
                         SUMMARY_FILE, WINDOWS_TABLE, table_file)
 from ..files import read_bytes
+from ..study.run import MARKER as STUDY_MARKER
 
 SCHEDULE_STATUSES = ("optimal", "feasible")
 
@@ -65,8 +66,9 @@ def check_folder(path: Path) -> List[str]:
     if not path.is_dir() or path.is_symlink():
         raise ReportError(f"{path} is not a folder; give the output folder of a dispatch")
     if not (path / MARKER).is_file():
-        raise ReportError(f"{path} is not a dispatch output folder (it has no {MARKER} file); "
-                          f"give the folder that 'portfolio dispatch --out' wrote")
+        raise ReportError(f"{path} is not a dispatch output folder or a study folder (it has neither "
+                          f"{MARKER} nor {STUDY_MARKER}); give the folder that 'portfolio dispatch --out' "
+                          f"or 'portfolio study --out' wrote")
     marker = _json(path / MARKER, "the marker")
     files = marker.get("files") if isinstance(marker, dict) else None
     if not isinstance(files, list) or not all(isinstance(f, str) for f in files):

@@ -48,7 +48,7 @@ CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:"
 e = html.escape
 
 
-def _num(x, digits: int = 2) -> str:
+def num(x, digits: int = 2) -> str:
     if x is None:
         return "–"
     if isinstance(x, float) and not np.isfinite(x):
@@ -56,20 +56,23 @@ def _num(x, digits: int = 2) -> str:
     return f"{x:,.{digits}f}"
 
 
-def _cell(key: str, value, digits: int = 2) -> str:
-    v = "" if value is None else repr(float(value))
-    return f'<td class="num" data-key="{e(key)}" data-value="{e(v)}">{_num(value, digits)}</td>'
+def cell(key: str, value, digits: int = 2, shown=None) -> str:
+    """A number's cell: ``data-value`` unrounded (empty when missing), shown rounded (or as ``shown``)."""
+    missing = value is None or (isinstance(value, float) and not np.isfinite(value))
+    v = "" if missing else repr(float(value))
+    text = e(shown) if shown is not None else num(value, digits)
+    return f'<td class="num" data-key="{e(key)}" data-value="{e(v)}">{text}</td>'
 
 
-def _kv(rows: List[Tuple[str, str]]) -> str:
+def kv(rows: List[Tuple[str, str]]) -> str:
     body = "".join(f"<tr><th>{e(k)}</th>{v}</tr>" for k, v in rows)
     return f"<table>{body}</table>"
 
 
-class _Page:
-    def __init__(self, folder: Folder):
-        self.f = folder
-        self.s = folder.summary
+class Page:
+    def __init__(self, folder):
+        self.f = folder                                   # a Folder, or a study's (report/study.py)
+        self.s = getattr(folder, "summary", None)
         self.parts: List[str] = []
         self.charts = 0
 
@@ -85,20 +88,20 @@ class _Page:
         return f"c{self.charts + 1}"
 
 
-def _headline(pg: _Page) -> None:
+def _headline(pg: Page) -> None:
     s = pg.s
     ok = s["status"] in ("optimal", "feasible")
     prov = s["provenance"]
     pg.add(f"<h1>Dispatch report: {e(str(s.get('portfolio', '')))}</h1>")
     pg.add(f'<p><span class="status {"ok" if ok else "bad"}" data-key="status">{e(s["status"])}</span> '
-           f"&nbsp; {e(str(s.get('steps')))} steps of {e(_num(s.get('step_hours'), 3))} h from "
+           f"&nbsp; {e(str(s.get('steps')))} steps of {e(num(s.get('step_hours'), 3))} h from "
            f"{e(str(s.get('start')))} ({e(str(s.get('zone')))})</p>")
     cert = s.get("certificate") or {}
     gap = s.get("mip_gap")
     gap_text = "–" if gap is None else f"{100 * gap:.4g} %"
     cur = pg.f.money_unit
-    rows = [(f"objective ({cur})", _cell("objective", s.get("objective"))),
-            (f"best bound ({cur})", _cell("best_bound", s.get("best_bound"))),
+    rows = [(f"objective ({cur})", cell("objective", s.get("objective"))),
+            (f"best bound ({cur})", cell("best_bound", s.get("best_bound"))),
             ("relative gap", f'<td class="num" data-key="mip_gap" data-value="{e(repr(gap))}">{gap_text}</td>'),
             ("certificate", f"<td>{e('schedule checked against the model: feasible' if cert.get('feasible') else 'no checked schedule')}"
                             f"{e('; bound from ' + cert['bound_source']) if cert.get('bound_source') else ''}</td>"),
@@ -106,22 +109,22 @@ def _headline(pg: _Page) -> None:
             ("currency", f'<td data-key="currency">{e(s.get("currency") or "none declared: money")}</td>')]
     w = s.get("windows")
     if isinstance(w, dict):
-        rows.append(("windows", f"<td>{e(str(w.get('count')))} windows of {e(_num(w.get('commit_h'), 1))} h "
-                                f"(+{e(_num(w.get('overlap_h'), 1))} h seen); gap against the whole "
+        rows.append(("windows", f"<td>{e(str(w.get('count')))} windows of {e(num(w.get('commit_h'), 1))} h "
+                                f"(+{e(num(w.get('overlap_h'), 1))} h seen); gap against the whole "
                                 f"horizon's LP bound</td>"))
-    pg.add("<section><h2>Headline</h2>" + _kv(rows) + "</section>")
+    pg.add("<section><h2>Headline</h2>" + kv(rows) + "</section>")
     for note in s.get("notes") or ():
         pg.add(f"<p>note: {e(str(note))}</p>")
     if s.get("message"):
         pg.add(f"<p>the solver said: {e(str(s['message']))}</p>")
 
 
-def _cautions(pg: _Page) -> None:
+def _cautions(pg: Page) -> None:
     caution = pg.s.get("caution") or CAUTION
     pg.add(f'<section class="caution"><h2>Cautions</h2><p>{e(caution)}</p></section>')
 
 
-def _relaxed(pg: _Page) -> None:
+def _relaxed(pg: Page) -> None:
     rel = pg.s.get("relaxed") or []
     if pg.f.has_schedule:
         return
@@ -133,7 +136,7 @@ def _relaxed(pg: _Page) -> None:
                 "<th>first at</th></tr>")
         body = "".join(
             f'<tr class="relaxed"><td><code>{e(str(r.get("path")))}:{e(str(r.get("line")))}:{e(str(r.get("column")))}</code></td>'
-            f"<td>{e(str(r.get('description')))}</td>{_cell(f'relaxed/{i}/amount', r.get('amount'), 4)}"
+            f"<td>{e(str(r.get('description')))}</td>{cell(f'relaxed/{i}/amount', r.get('amount'), 4)}"
             f"<td class=\"num\">{e(str(r.get('steps')))}</td><td>{e(str(r.get('first') or '–'))}</td></tr>"
             for i, r in enumerate(rel))
         pg.add("<h3>The limits that had to give for a schedule to exist (largest first)</h3>"
@@ -145,7 +148,7 @@ def _arr(df, col) -> np.ndarray:
     return df[col].to_numpy(dtype=float)
 
 
-def _sites(pg: _Page) -> None:
+def _sites(pg: Page) -> None:
     f, s = pg.f, pg.s
     net = s["network"]
     zone, dt = s.get("zone") or "UTC", float(s["step_hours"])
@@ -184,7 +187,7 @@ def _averaged(n: int) -> str:
     return f" Drawn as means over {k} steps." if k > 1 else ""
 
 
-def _storages(pg: _Page) -> None:
+def _storages(pg: Page) -> None:
     f, s = pg.f, pg.s
     if not f.names("storage"):
         return
@@ -201,7 +204,7 @@ def _storages(pg: _Page) -> None:
     pg.add("</section>")
 
 
-def _lost(pg: _Page) -> None:
+def _lost(pg: Page) -> None:
     f, s = pg.f, pg.s
     series = [(f"{n} curtailed", _arr(f.tables[n], "curtailed_mw")) for n in f.names("supply")]
     series += [(f"{k} spilled", _arr(f.tables[k], "spill_mw")) for k in f.names("storage")]
@@ -216,7 +219,7 @@ def _lost(pg: _Page) -> None:
     pg.add("</section>")
 
 
-def _connections(pg: _Page) -> None:
+def _connections(pg: Page) -> None:
     f, s = pg.f, pg.s
     names = f.names("connection")
     if not names:
@@ -255,7 +258,7 @@ _ENERGY = {
 }
 
 
-def _money(pg: _Page) -> None:
+def _money(pg: Page) -> None:
     f, s = pg.f, pg.s
     dt = float(s["step_hours"])
     cur = f.money_unit
@@ -288,13 +291,13 @@ def _money(pg: _Page) -> None:
             df, fig = f.tables[n], (s.get(group) or {}).get(n, {})
             cells = [f"<td>{e(n)}</td>"]
             if has_money:
-                cells.append(_cell(f"{group}/{n}/net_value", fig.get("net_value")))
+                cells.append(cell(f"{group}/{n}/net_value", fig.get("net_value")))
             for _label, col, key in cols:
-                cells.append(_cell(f"{group}/{n}/{key}", float(df[col].sum()) * dt, 3))
+                cells.append(cell(f"{group}/{n}/{key}", float(df[col].sum()) * dt, 3))
             if kind == "storage":
-                cells.append(_cell(f"{group}/{n}/equivalent_full_cycles", fig.get("equivalent_full_cycles"), 3))
-                cells.append(_cell(f"{group}/{n}/soc_end_mwh", float(df["soc_mwh"].iloc[-1]) if len(df) else None, 3))
-                cells += [_cell(f"{group}/{n}/{key}", fig.get(key)) for _label, key in _PRICES]
+                cells.append(cell(f"{group}/{n}/equivalent_full_cycles", fig.get("equivalent_full_cycles"), 3))
+                cells.append(cell(f"{group}/{n}/soc_end_mwh", float(df["soc_mwh"].iloc[-1]) if len(df) else None, 3))
+                cells += [cell(f"{group}/{n}/{key}", fig.get(key)) for _label, key in _PRICES]
             body.append("<tr>" + "".join(cells) + "</tr>")
         pg.add(f"<table>{head}{''.join(body)}</table>")
     if any(k in (s.get("storages") or {}).get(n, {}) for n in f.names("storage") for _l, k in _PRICES):
@@ -310,18 +313,22 @@ _PRICES = (("average charge price", "average_charge_price"),
 DAYS_SHOWN = 62          # a longer horizon's days are in periods.csv, its months on the page
 
 
-def _periods(pg: _Page) -> None:
+def _periods(pg: Page) -> None:
     """Net value and energy by month and by day (periods.csv), for horizons over a day."""
     per = pg.f.periods
     if per is None or not len(per):
         return
     cur = pg.f.money_unit
+    s = pg.s
+    long = float(s.get("steps") or 0) * float(s.get("step_hours") or 0) > C.PERIOD_CHARTS_AFTER_H
     pg.add("<section><h2>Money by day and by month</h2>")
     for length, title in (("month", "By month"), ("day", "By day")):
         rows = per[per["period"] == length]
         labels = list(dict.fromkeys(rows["label"]))
         if not labels:
             continue
+        if long and (length == "day" or len(labels) > 1):
+            _period_chart(pg, rows, [str(x) for x in labels], length, cur)
         if length == "day" and len(labels) > DAYS_SHOWN:
             pg.add(f"<p>{len(labels)} days: the daily totals are in <code>periods.csv</code>.</p>")
             continue
@@ -333,31 +340,52 @@ def _periods(pg: _Page) -> None:
         for label in labels:
             at = money[money["label"] == label]
             vals = {a: float(v) for a, v in zip(at["asset"], at["net_value"])}
-            cells = [_cell(f"periods/{length}/{label}/{a}", vals.get(a)) for a in assets]
-            cells.append(_cell(f"periods/{length}/{label}/total", sum(vals.values())))
+            cells = [cell(f"periods/{length}/{label}/{a}", vals.get(a)) for a in assets]
+            cells.append(cell(f"periods/{length}/{label}/total", sum(vals.values())))
             body.append(f"<tr><td>{e(str(label))}</td>{''.join(cells)}</tr>")
         pg.add(f"<h3>{e(title)}</h3><table>{head}{''.join(body)}</table>")
     pg.add("<p>Net value of each storage, supply and demand per period in the horizon's zone; "
            "energies, curtailment and spill per period are in <code>periods.csv</code>.</p></section>")
 
 
-def _provenance(pg: _Page) -> None:
-    p = pg.s["provenance"]
+def _period_chart(pg: Page, rows, labels: List[str], length: str, cur: str) -> None:
+    """Each storage's, supply's and demand's net value per day (or month), stacked, with the total."""
+    money = rows[rows["kind"].isin(("storage", "supply", "demand"))]
+    series = []
+    for (asset, kind), part in money.groupby(["asset", "kind"], sort=False):
+        by = dict(zip(part["label"].astype(str), part["net_value"].astype(float)))
+        series.append((f"{kind} {asset}", np.array([by.get(x, np.nan) for x in labels])))
+    svg = C.money_by_period(f"net value by {length}", labels, series, cur, f"{length} (the horizon's zone)",
+                            pg.salt())
+    pg.figure(svg, f"Net value by {length}: each storage's, supply's and demand's part stacked (gains "
+                   f"above zero, costs below), and the {length}'s total (dots), as in periods.csv.",
+              f"periods/{length}")
+
+
+def provenance_section(p: dict, first=(), command: bool = True) -> str:
+    """The provenance section: versions, start, the command (``command``), the input files
+    with their SHA-256; ``first``: rows before them."""
+    cmd = p.get("command")
+    rows = list(first) + [
+        ("portfolio version", f'<td data-key="tool_version">{e(str(p.get("tool_version")))}</td>'),
+        ("HiGHS version", f"<td>{e(str(p.get('highs_version') or 'unknown'))}</td>"),
+        ("started (UTC)", f"<td>{e(str(p.get('started_utc')))}</td>")]
+    if command:
+        rows.append(("command", f"<td><code>{e(' '.join(cmd)) if cmd else 'called from Python'}</code></td>"))
     inputs = "".join(f"<tr><td><code>{e(str(i.get('path')))}</code></td>"
                      f"<td><code>{e(str(i.get('sha256') or 'unreadable'))}</code></td></tr>"
                      for i in p.get("inputs") or ())
-    cmd = p.get("command")
-    rows = [("portfolio version", f'<td data-key="tool_version">{e(str(p["tool_version"]))}</td>'),
-            ("HiGHS version", f"<td>{e(str(p.get('highs_version') or 'unknown'))}</td>"),
-            ("started (UTC)", f"<td>{e(str(p.get('started_utc')))}</td>"),
-            ("command", f"<td><code>{e(' '.join(cmd)) if cmd else 'called from Python'}</code></td>")]
-    pg.add("<section><h2>Provenance</h2>" + _kv(rows)
-           + f"<table><tr><th>input file</th><th>SHA-256</th></tr>{inputs}</table></section>")
+    return ("<section><h2>Provenance</h2>" + kv(rows)
+            + f"<table><tr><th>input file</th><th>SHA-256</th></tr>{inputs}</table></section>")
+
+
+def _provenance(pg: Page) -> None:
+    pg.add(provenance_section(pg.s["provenance"]))
 
 
 def render(folder: Folder) -> Tuple[str, int]:
     """The page's HTML and the number of charts in it."""
-    pg = _Page(folder)
+    pg = Page(folder)
     _headline(pg)
     _cautions(pg)
     _relaxed(pg)
@@ -369,11 +397,18 @@ def render(folder: Folder) -> Tuple[str, int]:
         _money(pg)
         _periods(pg)
     _provenance(pg)
-    title = f"{folder.summary.get('portfolio', '')}: dispatch report"
-    page = ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+    return document(f"{folder.summary.get('portfolio', '')}: dispatch report", pg), pg.charts
+
+
+GENERATOR = "portfolio report"     # names a page this tool wrote (a study folder's report.html)
+
+
+def document(title: str, pg: Page) -> str:
+    """The whole page around ``pg``'s parts: inline CSS, the Content-Security-Policy, no script."""
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             f'<meta http-equiv="Content-Security-Policy" content="{CSP}">'
+            f'<meta name="generator" content="{GENERATOR}">'
             '<meta name="viewport" content="width=device-width, initial-scale=1">'
             f"<title>{e(title)}</title><style>{CSS}</style></head>\n"
             f'<body data-charts="{pg.charts}">\n' + "\n".join(pg.parts) + "\n</body></html>\n")
-    return page, pg.charts
 

@@ -45,12 +45,14 @@ FIELD_UNITS = {
     "end_value": "MWh", "loss_per_h": "% per h", "wear": "per MWh", "min_run_h": "h", "min_rest_h": "h",
     "ramp_mw_per_h": "MW per h", "spill_max": "MW", "export_max": "MW", "import_max": "MW",
     "max_mw": "MW", "in_transit": "MWh", "efficiency": "%", "prior_h": "h", "prior_net_mw": "MW",
+    "mwh_per_m3": "MWh per m3",
 }
 
 # The canonical unit of each dimension (portfolio/units.py), as a hover writes it:
 # a percentage is the fraction the model holds.
 DIM_UNITS = {"power": "MW", "energy": "MWh", "time": "h", "fraction": "", "price": "per MWh",
-             "rate": "per h", "ramp": "MW per h"}
+             "rate": "per h", "ramp": "MW per h", "volume": "m3", "flow": "m3 per h",
+             "equivalent": "MWh per m3"}
 _PERCENT = {"%", "% per h"}
 
 

@@ -44,7 +44,7 @@ class LintResult:
         return not self.errors and self.portfolio is not None
 
 
-def _tidy(items: List[Diagnostic]) -> List[Diagnostic]:
+def tidy_diagnostics(items: List[Diagnostic]) -> List[Diagnostic]:
     """Drop repeats (a preset's fault is found once per storage) and order by position."""
     seen = set()
     out = []
@@ -73,7 +73,7 @@ def lint_text(text: str, path: str = "<text>", base_dir: Union[str, Path, None] 
     finally:
         if was_enabled:
             gc.enable()
-    result.diagnostics = _tidy(sink.items)
+    result.diagnostics = tidy_diagnostics(sink.items)
     return result
 
 

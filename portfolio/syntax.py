@@ -188,7 +188,7 @@ def write_tables(path: Path) -> None:
 @lru_cache(maxsize=1)
 def keywords() -> frozenset:
     """Every word the language reserves somewhere (for messages and suggestions)."""
-    return frozenset(w for t in parser().terminals for w in _words_of(t.name))
+    return frozenset(w for t in parser().terminals for w in keywords_of(t.name))
 
 
 @lru_cache(maxsize=1)
@@ -202,7 +202,7 @@ def fixed_keywords() -> frozenset:
 @lru_cache(maxsize=1)
 def _statement_words() -> frozenset:
     """The words a statement starts with: what the parser accepts at the top of a file."""
-    return frozenset(w for n in parser().parse_interactive("").accepts() for w in _words_of(n))
+    return frozenset(w for n in parser().parse_interactive("").accepts() for w in keywords_of(n))
 
 
 # Plain words for the grammar's named tokens.
@@ -268,7 +268,7 @@ def describe_expected(names) -> str:
 _UNIT_WORDS = frozenset(["W", "kW", "MW", "GW", "Wh", "kWh", "MWh", "GWh", "h", "hr", "min", "s", "d", "%"])
 
 
-def _words_of(name: str):
+def keywords_of(name: str):
     """The keywords a terminal stands for (none for NAME, NUMBER, ...)."""
     if name not in _terminal_names():
         return []
@@ -468,7 +468,7 @@ def _report(err: UnexpectedInput, text: str, path: str, sink: Sink) -> None:
             return
         if tok.type in ("NAME", "UNIT") and "NAME" not in expected and tok.start_pos is not None:
             # a misspelt keyword, e.g. 'dischrge max 2 MW'
-            words = sorted(w for n in expected for w in _words_of(n))
+            words = sorted(w for n in expected for w in keywords_of(n))
             close = difflib.get_close_matches(str(tok.value), words, n=1, cutoff=0.75)
             if close and str(tok.value) not in words:
                 sink.add(SyntaxProblem, span, f"'{tok.value}' is not a word the language knows here; "

@@ -127,6 +127,15 @@ def test_examples(path):
     assert all(len(line) <= WIDTH or "#" in line for line in out.splitlines())
 
 
+def test_every_example_is_in_the_layout():
+    """The repository's examples are written in the canonical layout: ``fmt --check``
+    over all of them exits 0 (and names any that would change)."""
+    assert EXAMPLES
+    code, _, err = _cli(["fmt", "--check", *map(str, EXAMPLES)])
+    assert code == 0, err
+    assert f"0 would reformat, {len(EXAMPLES)} unchanged" in err
+
+
 @pytest.mark.parametrize("path", CASES, ids=lambda p: p.stem)
 def test_lint_cases(path):
     text = path.read_bytes().decode("utf-8-sig")

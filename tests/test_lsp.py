@@ -15,6 +15,7 @@ import pytest
 from lsp_client import LspClient
 from portfolio.api import lint_text
 from portfolio.fmt import format_source
+from portfolio.lsp.analysis import FIELD_UNITS, analyse, model_decls
 
 HERE = Path(__file__).parent
 CASES = HERE / "lint_cases"
@@ -214,6 +215,182 @@ def test_formatting(server):
     assert diagnostics_for(server, uri)
     assert server.request("textDocument/formatting", {"textDocument": {"uri": uri},
                                                       "options": {"tabSize": 2, "insertSpaces": True}})["result"] == []
+
+
+# The newer constructs: a currency, a pump route, cycle limits, 'charge only from', a series
+# whose gaps are held, and a study; the supply is declared before the storage it feeds.
+NEWER = """portfolio newer
+currency EUR
+horizon start 2027-03-01T00:00 length 4 h step 60 min zone "UTC"
+price spot values [30, 52, 28, 61] per MWh
+connection feeder {
+  sell at spot
+  buy at spot plus 9.5 per MWh
+  export max 12 MW
+  import max 6 MW
+}
+site yard at feeder {
+  supply sun values [0, 1, 2, 1] MW { into cells, site }
+  demand load from "profiles/load.csv" column "mw" gaps hold
+  storage cells {
+    energy 20 MWh
+    charge max 5 MW
+    discharge max 5 MW
+    charge only from sun
+    cycles max 1.5 per day max 300
+    wear 4 per MWh
+  }
+  storage upper {
+    kind reservoir
+    energy 50 MWh
+    charge max 10 MW
+    discharge max 10 MW
+  }
+  storage lower {
+    kind reservoir
+    energy 80 MWh
+    discharge max 2 MW
+  }
+  route lower pump -> upper factor 0.9
+}
+study sizes {
+  vary cells energy from 20 MWh to 40 MWh step 10 MWh
+  vary feeder export max values [8, 12] MW
+}
+"""
+LOAD_CSV = "time,mw\n2027-03-01T00:00Z,1\n2027-03-01T01:00Z,2\n2027-03-01T03:00Z,1\n"   # 02:00 missing
+
+
+@pytest.fixture(scope="module")
+def newer(server):
+    (server.root / "profiles").mkdir(exist_ok=True)
+    (server.root / "profiles" / "load.csv").write_text(LOAD_CSV)
+    path = server.root / "newer.folio"
+    uri = open_doc(server, path, NEWER)
+    got = diagnostics_for(server, uri)
+    assert [d["code"] for d in got] == [d.code for d in lint_text(NEWER, str(path)).diagnostics] == ["P416"]
+    return uri
+
+
+def hover_text(server, uri, position) -> str:
+    got = ask(server, "textDocument/hover", uri, position)
+    assert got is not None, position
+    return got["contents"]["value"]
+
+
+def test_study_names_lead_to_their_declarations(server, newer):
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "cells energy", 2))
+    assert got["range"]["start"] == at(NEWER, "cells {")
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "feeder export", 2))
+    assert got["range"]["start"] == at(NEWER, "feeder {")
+    text = hover_text(server, newer, at(NEWER, "sizes", 1))
+    assert "**study** `sizes`" in text
+    assert "vary `cells` energy: 20 MWh, 30 MWh, 40 MWh" in text
+    assert "vary `feeder` export max: 8 MW, 12 MW" in text
+
+
+def retype(server, name: str, old: str, new: str) -> tuple:
+    """Open NEWER as ``name``, then change its line ``old`` into ``new`` as an editor does
+    while typing; the new text and its URI, once the change's diagnostics are published."""
+    uri = open_doc(server, server.root / name, NEWER)
+    assert diagnostics_for(server, uri)
+    line = NEWER.split("\n").index(old)
+    _version[0] += 1
+    server.notify("textDocument/didChange", {
+        "textDocument": {"uri": uri, "version": _version[0]},
+        "contentChanges": [{"range": {"start": {"line": line, "character": 0},
+                                      "end": {"line": line, "character": len(old)}}, "text": new}]})
+    text = NEWER.replace(old + "\n", new + "\n")
+    got = server.wait_for("textDocument/publishDiagnostics",
+                          lambda p: p["uri"] == uri and p.get("version") == _version[0])["diagnostics"]
+    assert [d["code"] for d in got] == [d.code for d in lint_text(text, str(server.root / name)).diagnostics]
+    return text, uri
+
+
+def test_completion_inside_a_study(server, newer):
+    """While a line is half typed the file does not parse: the names offered are those of
+    its last version that did."""
+    text, uri = retype(server, "study_typing.folio", "  vary feeder export max values [8, 12] MW", "  vary fe")
+    assert lint_text(text, "t.folio").portfolio is None
+    names = ask(server, "textDocument/completion", uri, at(text, "vary fe", 7))
+    assert {"feeder", "cells", "upper"} <= labels(names)
+    assert {i["detail"] for i in names["items"] if i["label"] == "feeder"} == {"connection"}
+    settings = labels(ask(server, "textDocument/completion", uri, at(text, "cells energy", 6)))
+    assert {"energy", "charge", "export", "efficiency"} <= settings and "cells" not in settings
+
+
+def test_a_pump_route(server, newer):
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "lower pump", 1))
+    assert got["range"]["start"] == at(NEWER, "lower {")
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "-> upper", 4))
+    assert got["range"]["start"] == at(NEWER, "upper {")
+    text = hover_text(server, newer, at(NEWER, "pump", 1))      # the route has no name of its own
+    assert "**route**" in text and "source: `lower`" in text and "target: `upper`" in text
+    assert "factor: 0.9 MWh per MWh" in text
+    text = hover_text(server, newer, at(NEWER, "0.9", 1))
+    assert "factor = 0.9 MWh per MWh" in text
+    kinds = labels(ask(server, "textDocument/completion", newer, at(NEWER, "pump", 2)))
+    assert {"pump", "release", "spill", "transfer"} <= kinds
+
+
+def test_money_carries_the_currency(server, newer):
+    text = hover_text(server, newer, at(NEWER, "4 per MWh", 0))
+    assert "**4 EUR per MWh**" in text and "wear = 4 EUR per MWh" in text
+    text = hover_text(server, newer, at(NEWER, "9.5", 1))
+    assert "buy = `spot` plus 9.5 EUR per MWh" in text
+    assert "**currency** `EUR`" in hover_text(server, newer, at(NEWER, "EUR", 1))
+    text = hover_text(server, newer, at(NEWER, "spot values", 1))
+    assert "4 values, 28 EUR per MWh to 61 EUR per MWh" in text
+
+
+def test_cycle_limits_and_charge_sources(server, newer):
+    assert "cycles per day = 1.5 cycles per day" in hover_text(server, newer, at(NEWER, "1.5", 1))
+    assert "cycles horizon = 300 cycles" in hover_text(server, newer, at(NEWER, "300", 1))
+    assert "series `spot`: values = 4 values" in hover_text(server, newer, at(NEWER, "[30", 1))
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "from sun", 6))
+    assert got["range"]["start"] == at(NEWER, "sun values")
+    text = hover_text(server, newer, at(NEWER, "cells", 1, nth=2))
+    assert "**storage** `cells`" in text and "charge sources: `sun`" in text
+    text, uri = retype(server, "sources_typing.folio", "    charge only from sun", "    charge only from ")
+    assert "sun" in labels(ask(server, "textDocument/completion", uri, at(text, "only from \n", 10)))
+
+
+def test_a_use_before_the_declaration(server, newer):
+    """'into cells' comes before 'storage cells': the definition is the storage, not the use."""
+    got = ask(server, "textDocument/definition", newer, at(NEWER, "into cells", 6))
+    assert got["range"]["start"] == at(NEWER, "cells {")
+    refs = ask(server, "textDocument/references", newer, at(NEWER, "cells {"), context={"includeDeclaration": True})
+    assert len(refs) == NEWER.count("cells")
+
+
+def test_gaps_hold(server, newer):
+    kinds = labels(ask(server, "textDocument/completion", newer, at(NEWER, "gaps hold", 5)))
+    assert kinds >= {"hold", "interpolate"} and "storage" not in kinds
+    text = hover_text(server, newer, at(NEWER, "load from", 1))
+    assert "**demand** `load`" in text and "site: `yard`" in text
+
+
+def test_every_number_a_file_sets_has_a_unit_in_a_hover():
+    """Each model field a file sets to a number (over the examples and the lint cases that
+    check) has its unit in FIELD_UNITS, so a hover never shows a bare model number."""
+    files = sorted((HERE.parent / "examples").glob("*/*.folio")) + sorted(CASES.glob("*.folio"))
+    missing, seen = {}, 0
+    for path in files:
+        try:
+            text = path.read_text("utf-8")
+        except UnicodeDecodeError:
+            continue
+        a = analyse(text, str(path))
+        if a.model is None:
+            continue
+        for decl in model_decls(a.model):
+            for fld in decl.spans:
+                value = getattr(decl, fld, None)
+                if isinstance(value, (int, float)) and not isinstance(value, bool):
+                    seen += 1
+                    if fld not in FIELD_UNITS:
+                        missing.setdefault(f"{type(decl).__name__}.{fld}", path.name)
+    assert seen > 100 and not missing, missing
 
 
 def test_garbage_does_not_kill_the_server(server, demo):

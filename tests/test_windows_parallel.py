@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import json
 import multiprocessing
+import os
 import sys
 from concurrent.futures import Future, ProcessPoolExecutor
 from pathlib import Path
@@ -409,3 +410,41 @@ def test_water_on_its_way_at_a_window_end_is_valued(tmp_path):
     assert r.status in ("optimal", "feasible"), r.message
     assert r.objective == pytest.approx(199.0, abs=1e-6)
     _audited(p, r, tmp_path)
+
+
+def test_ctrl_c_stops_parallel_windows_cleanly(tmp_path):
+    """As tests/test_interrupts.py: SIGINT to the whole process group of a running
+    ``portfolio dispatch --windows 1d --workers 2`` (the pool's processes too) gives 130,
+    no traceback from any process, the previous output folder as it was, and no process
+    of the group left behind."""
+    import signal
+    import subprocess
+    import time
+
+    import test_interrupts as TI
+
+    out = tmp_path / "out"
+    assert main(["dispatch", str(DEMO), "--out", str(out), "--quiet"]) == 0
+    before = {q.name: q.read_bytes() for q in out.iterdir()}
+    src = TI._month_of_quarter_hours(tmp_path)
+    proc = subprocess.Popen([TI._command(), "dispatch", str(src), "--out", str(out), "--windows",
+                             "1d", "--workers", "2"], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    time.sleep(8.0)
+    os.killpg(proc.pid, signal.SIGINT)
+    try:
+        _, err = proc.communicate(timeout=TI.STOP_WITHIN + 60)
+    except subprocess.TimeoutExpired:
+        os.killpg(proc.pid, signal.SIGKILL)
+        proc.communicate()
+        pytest.fail("the command did not stop after Ctrl-C")
+    assert proc.returncode == 130, (proc.returncode, err)
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err and "interrupted" in err
+    assert {q.name: q.read_bytes() for q in out.iterdir()} == before
+    for _ in range(50):        # the pool's processes are stopped, not left to finish a window
+        left = subprocess.run(["pgrep", "-g", str(proc.pid)], capture_output=True, text=True)
+        if not left.stdout.split():
+            break
+        time.sleep(0.1)
+    assert not left.stdout.split(), left.stdout

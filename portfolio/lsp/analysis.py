@@ -23,19 +23,21 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Dict, Iterator, List, Optional, Tuple
 
+import numpy as np
 from lark import Token, Tree
 from lark.exceptions import UnexpectedInput
 
 from .. import units as U
-from ..api import _tidy
+from ..api import tidy_diagnostics
 from ..check.checker import Checker
 from ..check.tree import Node, Quantity, Reader, Word, read
 from ..diagnostics import Diagnostic, Sink
 from ..graph import check_topology, network
 from ..model import Decl as ModelDecl
-from ..model import Portfolio
+from ..model import Portfolio, ScenarioSet, Study, Varied
+from ..model import PriceExpr as ModelPrice
 from ..spans import Span
-from ..syntax import _words_of, lines_of, parse, parser, span_of
+from ..syntax import keywords_of, lines_of, parse, parser, span_of
 
 # How a model field (canonical units, docs/model.md) reads in a hover.  A
 # field missing here is shown as its plain value: a new field needs no entry.
@@ -45,6 +47,8 @@ FIELD_UNITS = {
     "end_value": "MWh", "loss_per_h": "% per h", "wear": "per MWh", "min_run_h": "h", "min_rest_h": "h",
     "ramp_mw_per_h": "MW per h", "spill_max": "MW", "export_max": "MW", "import_max": "MW",
     "max_mw": "MW", "in_transit": "MWh", "efficiency": "%", "prior_h": "h", "prior_net_mw": "MW",
+    "cycles_per_day": "cycles per day", "cycles_horizon": "cycles", "delay_steps": "steps",
+    "factor": "MWh per MWh", "stored_value": "per MWh", "transit_value": "per MWh", "cycles_drawn_mwh": "MWh",
     "mwh_per_m3": "MWh per m3",
 }
 
@@ -54,6 +58,7 @@ DIM_UNITS = {"power": "MW", "energy": "MWh", "time": "h", "fraction": "", "price
              "rate": "per h", "ramp": "MW per h", "volume": "m3", "flow": "m3 per h",
              "equivalent": "MWh per m3"}
 _PERCENT = {"%", "% per h"}
+_MONEY = "per MWh"    # a unit of money per energy: the portfolio's currency goes before it
 
 
 def number(x: float) -> str:
@@ -66,6 +71,31 @@ def with_unit(value, unit: Optional[str]) -> str:
     if unit in _PERCENT:
         return f"{number(value * 100)} {unit}"
     return f"{number(value)} {unit}" if unit else number(value)
+
+
+def money(unit: Optional[str], currency: Optional[str]) -> Optional[str]:
+    """``unit`` with the portfolio's currency before a money unit (``EUR per MWh``)."""
+    return f"{currency} {unit}" if currency and unit == _MONEY else unit
+
+
+def shown(a: "Analysis", decl, fld: str) -> str:
+    """A model field's value as a hover writes it: in its unit (FIELD_UNITS, money in the
+    portfolio's currency), a price in the model's terms, a series by its range, names as names."""
+    value = getattr(decl, fld)
+    currency = a.model.currency if a.model is not None else None
+    if isinstance(value, ModelPrice):
+        adder = with_unit(abs(value.adder) if value.series else value.adder, money(_MONEY, currency))
+        if not value.series:
+            return adder
+        return f"`{value.series}`" + ("" if value.adder == 0 else f" {'plus' if value.adder > 0 else 'minus'} {adder}")
+    if isinstance(value, np.ndarray):
+        if not value.size:
+            return "no values"
+        unit = money(_MONEY, currency) if getattr(decl, "quantity", "") == "price" else "MW"
+        return f"{value.size} values, {with_unit(float(value.min()), unit)} to {with_unit(float(value.max()), unit)}"
+    if isinstance(value, tuple) and value and all(isinstance(v, str) for v in value):
+        return ", ".join(f"`{v}`" for v in value)
+    return with_unit(value, money(FIELD_UNITS.get(fld), currency))
 
 
 @dataclass(frozen=True)
@@ -117,7 +147,7 @@ def analyse(text: str, path: str, base_dir: Optional[Path] = None) -> Analysis:
     finally:
         if was_enabled:
             gc.enable()
-    a.diagnostics = _tidy(sink.items)
+    a.diagnostics = tidy_diagnostics(sink.items)
     return a
 
 
@@ -132,10 +162,11 @@ def _walk(value) -> Iterator[Node]:
 
 
 def _index(a: Analysis, base: Path) -> None:
-    """Declarations (every node that carries a name) and the uses of each name."""
+    """Declarations (every node that carries a name and more: a node that is only its name,
+    as a storage in ``into cells, site``, is a use) and the uses of each name."""
     for node in _walk(a.nodes):
         name = getattr(node, "name", None)
-        if isinstance(name, Word) and node.key != "portfolio_decl":
+        if isinstance(name, Word) and node.key != "portfolio_decl" and name.span != node.span:
             d = Declared(name.text, node.key, name.span, node.span)
             a.declarations.append(d)
             a.declared.setdefault(d.name, d)
@@ -191,9 +222,10 @@ def hover(a: Analysis, line: int, col: int) -> Optional[Tuple[str, Span]]:
         return describe_name(a, name), span
     if a.tree is None:
         return None
-    quantity = next((t for t in reversed(_inside(a.tree, line, col)) if t.data == "quantity"), None)
+    inside = _inside(a.tree, line, col)
+    quantity = next((t for t in reversed(inside) if t.data == "quantity"), None)
     if quantity is None:
-        return None
+        return _plain_number(a, inside[-1], line, col) or _unnamed(a, line, col)
     try:
         q = Reader(a.path).transform(quantity)
     except Exception:      # a rule's shape the reader does not know: no hover rather than a wrong one
@@ -203,6 +235,19 @@ def hover(a: Analysis, line: int, col: int) -> Optional[Tuple[str, Span]]:
     return describe_quantity(a, q), q.span
 
 
+def _plain_number(a: Analysis, tree: Tree, line: int, col: int) -> Optional[Tuple[str, Span]]:
+    """A number without a unit (``factor 0.9``, ``cycles max 300``; one of a list of
+    values: the series it is part of) when the model takes a field from it."""
+    for tok in tree.scan_values(lambda t: isinstance(t, Token) and t.type == "NUMBER"):
+        span = span_of(a.path, tok)
+        if contains(span, line, col):
+            used = model_uses(a, span)
+            if not used:
+                return None
+            return "\n".join([f"`{tok}`: a plain number", "", "as the model uses it:", *(f"- {u}" for u in used)]), span
+    return None
+
+
 def describe_quantity(a: Analysis, q: Quantity) -> str:
     written = f"{q.number.text} {U.written(q.unit.unit, q.unit.per)}"
     try:
@@ -210,7 +255,7 @@ def describe_quantity(a: Analysis, q: Quantity) -> str:
         value = float(q.number.text) * f
     except (U.UnitProblem, ValueError):
         return f"`{written}`: not a quantity the language knows (see the diagnostic)"
-    unit = DIM_UNITS.get(dim.key)
+    unit = money(DIM_UNITS.get(dim.key), a.model.currency if a.model is not None else None)
     out = [f"`{written}` = **{with_unit(value, unit)}** ({dim.words})"]
     used = model_uses(a, q.span)
     if used:
@@ -220,7 +265,7 @@ def describe_quantity(a: Analysis, q: Quantity) -> str:
     return "\n".join(out)
 
 
-def _model_decls(p: Portfolio) -> Iterator[ModelDecl]:
+def model_decls(p: Portfolio) -> Iterator[ModelDecl]:
     """Every declaration of the model (each field of the portfolio that holds them)."""
     for f in dataclasses.fields(p):
         value = getattr(p, f.name)
@@ -236,7 +281,7 @@ def model_uses(a: Analysis, span: Span) -> List[str]:
     if a.model is None:
         return []
     found = []
-    for d in _model_decls(a.model):
+    for d in model_decls(a.model):
         for fld, s in d.spans.items():
             if s.path == span.path and contains(s, span.line, span.col) and contains(s, span.end_line, span.end_col):
                 found.append(((s.end_line - s.line, s.end_col - s.col if s.line == s.end_line else 0), d, fld))
@@ -247,29 +292,66 @@ def model_uses(a: Analysis, span: Span) -> List[str]:
     for size, d, fld in found:
         if size == smallest and hasattr(d, fld):
             kind = type(d).__name__.lower()
-            out.append(f"{kind} `{d.name}`: {fld.replace('_', ' ')} = {with_unit(getattr(d, fld), FIELD_UNITS.get(fld))}")
+            out.append(f"{kind} `{d.name}`: {fld.replace('_', ' ')} = {shown(a, d, fld)}")
     return out
 
 
 def describe_name(a: Analysis, name: str) -> str:
     d = a.declared[name]
-    out = [f"**{d.kind}** `{name}`, declared at line {d.span.line}"]
-    decl = None
-    if a.model is not None:
-        decl = next((m for m in _model_decls(a.model) if m.name == name and m.span.line == d.whole.line), None)
-    if decl is not None:
-        settings = [f"- {fld.replace('_', ' ')}: {with_unit(getattr(decl, fld), FIELD_UNITS.get(fld))}"
-                    for fld in decl.spans if hasattr(decl, fld)]
-        for fld in ("site", "connection", "source", "target"):
-            value = getattr(decl, fld, None)
-            if isinstance(value, str) and value:
-                settings.insert(0, f"- {fld}: `{value}`")
-        out.extend(settings[:12])
+    out = [f"**{d.kind.removesuffix('_decl')}** `{name}`, declared at line {d.span.line}"]
+    # the model's declarations made here: one of the kind declared first (a supply's own
+    # settings, then those of the series its inline values make)
+    made = [] if a.model is None else [m for m in model_decls(a.model)
+                                       if m.name == name and m.span.line == d.whole.line]
+    made.sort(key=lambda m: type(m).__name__.lower() != d.kind)
+    if made:
+        out.extend(dict.fromkeys(line for m in made for line in settings_of(a, m)))
     else:
         first = a.lines[d.whole.line - 1].strip() if d.whole.line <= len(a.lines) else ""
         if first:
             out.append(f"```\n{first}\n```")
     return "\n".join(out)
+
+
+def settings_of(a: Analysis, decl: ModelDecl) -> List[str]:
+    """The settings the file gives a declaration, a line each, in the model's units."""
+    where = [f"- {fld}: `{getattr(decl, fld)}`" for fld in _WHERE if isinstance(getattr(decl, fld, None), str)
+             and getattr(decl, fld)]
+    settings = [f"- {fld.replace('_', ' ')}: {shown(a, decl, fld)}" for fld in decl.spans
+                if hasattr(decl, fld) and fld not in _WHERE]
+    if isinstance(decl, Study):
+        settings.extend(_dimensions(a, decl))
+    return (where + settings)[:12]
+
+
+_WHERE = ("site", "connection", "source", "target")   # names of other declarations: shown first, as names
+
+
+def _unnamed(a: Analysis, line: int, col: int) -> Optional[Tuple[str, Span]]:
+    """The smallest declaration of the model around the cursor that the file gives no name
+    of its own (a route: ``route lower pump -> upper``), described as the model holds it."""
+    if a.model is None:
+        return None
+    around = [m for m in model_decls(a.model) if m.name not in a.declared
+              and m.span.path == a.path and contains(m.span, line, col)]
+    if not around:
+        return None
+    m = min(around, key=lambda m: (m.span.end_line - m.span.line, m.span.end_col - m.span.col))
+    kind = type(m).__name__.lower()
+    return "\n".join([f"**{kind}** `{m.name}`, declared at line {m.span.line}", *settings_of(a, m)]), m.span
+
+
+def _dimensions(a: Analysis, study: Study) -> List[str]:
+    """What a study varies, a line each, in the model's units."""
+    out = []
+    for dim in study.dimensions:
+        if isinstance(dim, Varied):
+            unit = money(dim.unit, a.model.currency if a.model is not None else None)
+            out.append(f"- vary `{dim.target}` {dim.setting}: {', '.join(with_unit(v, unit) for v in dim.values)}")
+        elif isinstance(dim, ScenarioSet):
+            out.append(f"- scenarios for `{dim.series}`: {', '.join(dim.names)}")
+    out.append(f"- cases: {study.cases}")
+    return out
 
 
 # ---- definition, references, symbols -----------------------------------------
@@ -332,21 +414,24 @@ def expected_at(text: str, offset: int) -> Optional[Tuple[frozenset, str]]:
     return accepts, (last.group(1) if last else "")
 
 
-def completions(a: Analysis, line: int, col: int) -> List[Tuple[str, str]]:
+def completions(a: Analysis, line: int, col: int, parsed: Optional[Analysis] = None) -> List[Tuple[str, str]]:
     """(word, what it is) pairs valid at the cursor: keywords the parser accepts there
-    and, where it accepts a name, the declared names (not where a new name is declared)."""
+    and, where it accepts a name, the declared names (not where a new name is declared).
+    While the text does not parse (a statement half typed), the names are those of
+    ``parsed``, the document's last analysis that did."""
     got = expected_at(a.text, offset_of(a.text, line, col))
     if got is None:
         return []
     accepts, before = got
     out = {}
     for terminal in sorted(accepts):
-        for w in _words_of(terminal):
+        for w in keywords_of(terminal):
             out.setdefault(w, "keyword")
-    declaring = {_declaring_word(a, d) for d in a.declarations}
+    names = a if a.tree is not None or parsed is None else parsed
+    declaring = {_declaring_word(names, d) for d in names.declarations}
     if "NAME" in accepts and before not in declaring:
-        for d in a.declarations:
-            out.setdefault(d.name, d.kind)
+        for d in names.declarations:
+            out.setdefault(d.name, d.kind.removesuffix("_decl"))
     return sorted(out.items())
 
 

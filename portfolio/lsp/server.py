@@ -78,6 +78,7 @@ class PortfolioServer(LanguageServer):
     def __init__(self) -> None:
         super().__init__("portfolio", __version__, text_document_sync_kind=T.TextDocumentSyncKind.Incremental)
         self.analyses: Dict[str, Tuple[Optional[int], A.Analysis]] = {}
+        self.parsed: Dict[str, A.Analysis] = {}    # each document's last analysis that parsed (its names)
         self.pending: Dict[str, asyncio.Task] = {}
         self.worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="portfolio-lint")
 
@@ -92,8 +93,13 @@ class PortfolioServer(LanguageServer):
         if got is not None and got[0] == doc.version:
             return got[1]
         a = analyse_document(doc.source, uri)
-        self.analyses[uri] = (doc.version, a)
+        self.keep(uri, doc.version, a)
         return a
+
+    def keep(self, uri: str, version: Optional[int], a: A.Analysis) -> None:
+        self.analyses[uri] = (version, a)
+        if a.tree is not None:
+            self.parsed[uri] = a
 
     async def relint(self, uri: str, delay: float) -> None:
         old = self.pending.pop(uri, None)
@@ -115,7 +121,7 @@ class PortfolioServer(LanguageServer):
                 a = await asyncio.get_running_loop().run_in_executor(self.worker, analyse_document, text, uri)
             if self.workspace.get_text_document(uri).version != version:
                 return          # changed meanwhile: the next run publishes
-            self.analyses[uri] = (version, a)
+            self.keep(uri, version, a)
             self.text_document_publish_diagnostics(
                 T.PublishDiagnosticsParams(uri=uri, version=version, diagnostics=to_diagnostics(a)))
         except asyncio.CancelledError:
@@ -181,6 +187,7 @@ def build() -> PortfolioServer:
     def did_close(ls: PortfolioServer, params: T.DidCloseTextDocumentParams):
         uri = params.text_document.uri
         ls.analyses.pop(uri, None)
+        ls.parsed.pop(uri, None)
         task = ls.pending.pop(uri, None)
         if task is not None:
             task.cancel()
@@ -212,7 +219,8 @@ def build() -> PortfolioServer:
     def completion(ls: PortfolioServer, params: T.CompletionParams):
         a = ls.analysis(params.text_document.uri)
         items = []
-        for word, what in A.completions(a, *from_position(a, params.position)):
+        parsed = ls.parsed.get(params.text_document.uri)
+        for word, what in A.completions(a, *from_position(a, params.position), parsed):
             kind = T.CompletionItemKind.Keyword if what == "keyword" else T.CompletionItemKind.Reference
             items.append(T.CompletionItem(label=word, kind=kind, detail=what))
         return T.CompletionList(is_incomplete=False, items=items)

@@ -12,6 +12,7 @@ window.
 from __future__ import annotations
 
 import time
+from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from typing import Callable, List, Optional, Union
 
@@ -28,7 +29,7 @@ from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
 from ..solve.matrix import values_by_family
 from .bound import relax
 from .cut import window_model
-from .spec import END_MODES, END_VALUE, OPEN, Foresight, Windows, plan
+from .spec import END_VALUE, OPEN, Foresight, Windows, plan
 from .task import WindowOutcome, WindowTask, solve_window
 
 Spec = Union[Windows, Foresight]
@@ -191,7 +192,9 @@ def _parallel(run: _Run, executor):
     try:
         tasks = [run.task(i + 1, start, commit, length, guess=i > 0)
                  for i, (start, commit, length) in enumerate(run.pieces)]
-        futures = [executor.submit(run.runner, task) for task in tasks]
+        with _children_ignore_ctrl_c(own):
+            futures = [executor.submit(run.runner, tasks[0])]
+        futures += [executor.submit(run.runner, task) for task in tasks[1:]]
         for i, (start, commit, length) in enumerate(run.pieces):
             out = futures[i].result()
             if i > 0 and not _same(run, tasks[i], out):
@@ -244,6 +247,24 @@ def same_matrix(a, b, rtol: float = 1e-12) -> bool:
              (np.array([a.offset]), np.array([b.offset]))]
     return all(np.allclose(x, y, rtol=rtol, atol=rtol, equal_nan=False) or
                np.array_equal(x, y) for x, y in pairs)
+
+
+@contextmanager
+def _children_ignore_ctrl_c(own: bool):
+    """While the pool starts its processes (at the first task), Ctrl-C is ignored here, so
+    that they are born ignoring it (an ignored signal survives exec, and Python installs
+    no handler of its own over it): a Ctrl-C then reaches only this process, which stops
+    the pool, and no half-started child prints a traceback."""
+    import signal
+    import threading
+    if not own or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    before = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, before)
 
 
 def _quiet() -> None:

@@ -55,6 +55,11 @@ TABLES: Mapping[str, Tuple[Column, ...]] = {
         Column("routed_out_mw", "MW", "leaving into routes of every kind, source's stored MWh per step / step hours"),
         Column("supply_in_mw", "MW", "the store's own supply (a river's natural inflow), stored MWh per step / step hours; 0 without one"),
         Column("pump_mw", "MW", "power drawn to pump water up into the store from a lower one (its charge when a pump route feeds it); 0 without one"),
+        # a store declared in volume ('energy equivalent'): the same quantities as water; empty for a store declared in MWh
+        Column("content_m3", "m3", "content at the END of the step as water: soc_mwh / energy equivalent; empty for a store declared in MWh"),
+        Column("discharge_m3_per_s", "m3/s", "water through the turbine: discharge_mw / discharge efficiency / energy equivalent / 3600; empty for a store declared in MWh"),
+        Column("spill_m3_per_s", "m3/s", "water spilled: spill_mw / energy equivalent / 3600; empty for a store declared in MWh"),
+        Column("supply_in_m3_per_s", "m3/s", "the store's own supply as water: supply_in_mw / energy equivalent / 3600; empty for a store declared in MWh"),
     ),
     "supply": (
         Column("available_mw", "MW", "the supply's profile: used + curtailed"),

@@ -184,6 +184,8 @@ StudyEmptyRange = _kind("P314", ERROR, "a study's range or list of values (or of
 StudyValueOutOfRange = _kind("P315", ERROR, "a value a study gives a setting is outside what that setting allows (or a study has too many cases)", "StudyValueOutOfRange")
 StudyUnpaired = _kind("P316", ERROR, "a study's cases are 'paired' but its lists of values and scenarios differ in length", "StudyUnpaired")
 UnknownCurrency = _kind("P317", ERROR, "a currency is not an ISO 4217 code (three capital letters of a listed currency)", "UnknownCurrency")
+VolumeWithoutEquivalent = _kind("P318", ERROR, "a water volume or flow is given where an energy or power is meant, on a store with no 'energy equivalent'", "VolumeWithoutEquivalent")
+EfficiencyCountedTwice = _kind("P319", WARNING, "a store declared in volume has a discharge efficiency below 100 %, which counts the plant's losses twice", "EfficiencyCountedTwice")
 
 # --- P4xx: time series --------------------------------------------------------
 SeriesFileMissing = _kind("P401", ERROR, "a series file cannot be found or read", "SeriesFileMissing")

@@ -146,6 +146,9 @@ class Storage(Decl):
     site: str = ""
     kind: str = "other"
     energy: float = 0.0                  # MWh capacity
+    # 'energy equivalent X per m3': MWh of content per m3 of water (a reservoir declared in
+    # volume; its volumes and flows were converted with it by the checker).  None: declared in MWh.
+    mwh_per_m3: Optional[float] = None
     charge_max: float = 0.0              # MW, all charging: from the site and direct supplies (0: cannot charge)
     discharge_max: float = 0.0           # MW
     charge_min: float = 0.0              # MW whenever charging (needs a binary)

@@ -38,6 +38,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 import pandas as pd
 
+from . import units as U
 from .compile import expressions as E
 from .contract import ASSET_GROUPS, ASSET_KEYS, COLUMNS, ROUTE_KEYS, STORAGE_KEYS, frame
 
@@ -141,10 +142,24 @@ def _storage_tables(acc: E.Values, p, flows: _Flows, tables, index) -> None:
             "routed_out_mw": clean(flows.sent[k] / dt),
             "supply_in_mw": clean(p.profile(p.storages[k].supply)),
             "pump_mw": c if flows.pumped[k] else np.zeros(len(c)),
+            **_water_columns(p.storages[k], d, clean(acc(E.SOC, k)), clean(acc(E.SPILL, k)),
+                             clean(p.profile(p.storages[k].supply))),
         }, index)
     for r in p.routes:
         tables[r.name] = frame("route", {"flow_mw": clean(flows.route_flow[r.name]),
                                          "arriving_mw": clean(flows.route_arrive[r.name])}, index)
+
+
+def _water_columns(s, d, soc, spill, supply) -> dict:
+    """A store declared in volume: content in m3 and flows in m3/s beside its MWh and MW (by its
+    energy equivalent, MWh per m3; docs/outputs.md); NaN (empty) for a store declared in MWh."""
+    eq = s.mwh_per_m3
+    if eq is None:
+        empty = np.full(len(soc), np.nan)
+        return {"content_m3": empty, "discharge_m3_per_s": empty, "spill_m3_per_s": empty,
+                "supply_in_m3_per_s": empty}
+    return {"content_m3": U.water_m3(soc, eq), "discharge_m3_per_s": U.water_m3_per_s(d / s.eta_discharge, eq),
+            "spill_m3_per_s": U.water_m3_per_s(spill, eq), "supply_in_m3_per_s": U.water_m3_per_s(supply, eq)}
 
 
 def _supply_and_demand_tables(acc: E.Values, p, topo, flows: _Flows, tables, index) -> None:

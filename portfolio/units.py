@@ -55,8 +55,13 @@ FRACTION = Dim("fraction", "dimensionless", "a percentage", "95%")
 PRICE = Dim("price", "1/MWh", "a price per energy", "9.5 per MWh")
 RATE = Dim("rate", "1/h", "a percentage per time", "0.05% per h")
 RAMP = Dim("ramp", "MW/h", "a power per time", "10 MW per min")
+# Water, for reservoirs declared in volume: converted to MWh and MW by the store's energy
+# equivalent (MWh per m3) in the checker (check/quantities.py); the model never holds them.
+VOLUME = Dim("volume", "m3", "a volume of water", "120 hm3")
+FLOW = Dim("flow", "m3/h", "a flow of water", "40 m3 per s")
+EQUIVALENT = Dim("equivalent", "MWh/m3", "an energy per volume", "0.25 kWh per m3")
 
-ALL = (POWER, ENERGY, TIME, FRACTION, PRICE, RATE, RAMP)
+ALL = (POWER, ENERGY, TIME, FRACTION, PRICE, RATE, RAMP, VOLUME, FLOW, EQUIVALENT)
 _BY_KEY = {d.key: d for d in ALL}
 _OTHER_KIND = "a quantity of another kind"
 
@@ -66,12 +71,26 @@ _OTHER_KIND = "a quantity of another kind"
 # stays sound.  A value beyond is a typing error (lint P313, P411 for a
 # series).  Durations, fractions and rates have their own range checks.
 PLAUSIBLE = {POWER: (1e6, "MW"), ENERGY: (1e9, "MWh"), PRICE: (1e8, "per MWh"),
-             RAMP: (1e7, "MW per h")}
+             RAMP: (1e7, "MW per h"), VOLUME: (1e13, "m3"), FLOW: (1e9, "m3 per h"),
+             EQUIVALENT: (0.01, "MWh per m3")}   # 10 kWh per m3 is a head of some 4 km
 FACTOR_PLAUSIBLE = 1e3     # a route's factor (a plain number)
 
 # The words offered when a unit is not understood ("did you mean"), in the
 # order they are offered; tests/test_units.py checks each is in units.txt.
-SUGGESTED = ("MW", "kW", "GW", "MWh", "kWh", "GWh", "%", "h", "min", "s", "d")
+SUGGESTED = ("MW", "kW", "GW", "MWh", "kWh", "GWh", "%", "h", "min", "s", "d", "m3", "hm3")
+
+
+SECONDS_PER_HOUR = 3600.0
+
+
+def water_m3(mwh, mwh_per_m3: float):
+    """Content in MWh as water in m3, by a store's energy equivalent (the checker's inverse)."""
+    return mwh / mwh_per_m3
+
+
+def water_m3_per_s(mw, mwh_per_m3: float):
+    """A flow of content in MW (MWh per h) as water in m3 per s."""
+    return mw / (mwh_per_m3 * SECONDS_PER_HOUR)
 
 
 class UnitProblem(Exception):

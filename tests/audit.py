@@ -52,7 +52,8 @@ MODE_TOL = 1e-6          # the output contract's tolerance for the mode column
 # portfolio.schedule: if the writer's columns drift from the documented contract, the audit fails.
 COLUMNS = {
     "storage": ["charge_mw", "discharge_mw", "soc_mwh", "spill_mw", "mode",
-                "routed_in_mw", "routed_out_mw", "supply_in_mw", "pump_mw"],
+                "routed_in_mw", "routed_out_mw", "supply_in_mw", "pump_mw",
+                "content_m3", "discharge_m3_per_s", "spill_m3_per_s", "supply_in_m3_per_s"],
     "supply": ["available_mw", "used_mw", "curtailed_mw"],
     "demand": ["demand_mw"],
     "site": ["import_mw", "export_mw"],
@@ -61,6 +62,10 @@ COLUMNS = {
 }
 ASSET_KEYS = ("net_value", "energy_in_mwh", "energy_out_mwh", "equivalent_full_cycles",
               "curtailed_mwh", "spilled_mwh")
+
+
+# a store's water columns (empty for a store declared in MWh; check_water)
+WATER = ("content_m3", "discharge_m3_per_s", "spill_m3_per_s", "supply_in_m3_per_s")
 
 
 class _Audit:
@@ -147,6 +152,9 @@ class _Audit:
             if c == "mode":
                 continue
             vals = pd.to_numeric(df[c], errors="coerce")
+            if c in WATER and (vals.isna().all() or self.p.storages[name].mwh_per_m3 is None):
+                df[c] = vals.astype(float)          # empty for a store in MWh: check_water says
+                continue
             if vals.isna().any():
                 self.bad(f"{name}: column {c} has a value that is not a number")
                 return None
@@ -237,8 +245,12 @@ class _Audit:
                     if list(w) != list(self.tables[n]["mode"]):
                         self.bad(f"schedule.csv: {n}.mode differs from {n}.csv")
                     continue
-                self.close("schedule.csv", f"{n}.{c} vs {n}.csv",
-                           pd.to_numeric(w, errors="coerce").to_numpy(dtype=float), self.col(n, c))
+                got = pd.to_numeric(w, errors="coerce").to_numpy(dtype=float)
+                if c in WATER and np.isnan(self.col(n, c)).all():     # a store declared in MWh
+                    if not np.isnan(got).all():
+                        self.bad(f"schedule.csv: {n}.{c} is given, {n}.csv leaves it empty")
+                    continue
+                self.close("schedule.csv", f"{n}.{c} vs {n}.csv", got, self.col(n, c))
 
     # storages ---------------------------------------------------------------
     def check_storage_limits(self, s) -> None:
@@ -258,6 +270,7 @@ class _Audit:
         self.close(n, "supply_in_mw vs the store's own supply profile", self.col(n, "supply_in_mw"),
                    self.p.profile(s.supply) if s.supply else np.zeros(self.T))
         self.check_cycles(s, d)
+        self.check_water(s, c, d, soc, q)
         self.at_least(n, "soc below soc min", soc, s.soc_min)
         self.at_most(n, "soc above soc max", soc, s.soc_max)
         if self.T:
@@ -277,6 +290,25 @@ class _Audit:
             self.at_most(n, "ramp from the output before the horizon to the first step above the ramp limit",
                          abs(first - s.prior_net_mw), s.ramp_mw_per_h * self.dt,
                          scale=max(abs(first), abs(s.prior_net_mw)))
+
+    def check_water(self, s, c, d, soc, q) -> None:
+        """A store declared in volume gives its content in m3 and its flows in m3/s beside MWh and
+        MW: content_m3 = soc_mwh / e, a flow = MW / e / 3600 (e = energy equivalent, MWh per m3;
+        the turbine's water is the content drawn, discharge / discharge efficiency).  A store
+        declared in MWh leaves them empty."""
+        n, e = s.name, s.mwh_per_m3
+        if e is None:
+            for col in WATER:
+                if not np.isnan(self.col(n, col)).all():
+                    self.bad(f"{n}: {col} is given for a store declared in MWh")
+            return
+        nat = self.col(n, "supply_in_mw")
+        for col, want_mwh, coef in (("content_m3", soc, 1.0), ("discharge_m3_per_s", d / s.eta_discharge / 3600.0, 1.0 / s.eta_discharge),
+                                    ("spill_m3_per_s", q / 3600.0, 1.0), ("supply_in_m3_per_s", nat / 3600.0, 1.0)):
+            got = self.col(n, col)
+            # the MWh/MW column is rounded in the CSV too: its rounding, scaled to water, and the water column's own
+            self.close(n, f"{col} vs its MWh column / energy equivalent", got, want_mwh / e,
+                       rounding=ROUNDING * (1.0 + coef / e))
 
     def check_cycles(self, s, d) -> None:
         """docs/model.md: per local calendar day (a part day pro rata) and over the horizon."""

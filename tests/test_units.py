@@ -86,7 +86,8 @@ def test_the_language_guide_lists_the_vocabulary_by_dimension():
 
     ureg = U.registry()
     doc = (Path(__file__).resolve().parents[1] / "docs" / "language.md").read_text(encoding="utf-8")
-    rows = {"power": U.POWER, "energy": U.ENERGY, "duration": U.TIME, "percentage": U.FRACTION}
+    rows = {"power": U.POWER, "energy": U.ENERGY, "duration": U.TIME, "percentage": U.FRACTION,
+            "volume": U.VOLUME}
     listed = set()
     for label, dim in rows.items():
         row = re.search(rf"^\| {label} \| ([^|]*) \|", doc, re.M)

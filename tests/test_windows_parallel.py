@@ -72,7 +72,7 @@ def test_parallel_windows_give_the_in_order_schedule(family, seed, pool, tmp_pat
         other = together.tables[name]
         for col in table.columns:
             if np.issubdtype(table[col].dtype, np.number):
-                assert np.allclose(table[col].to_numpy(), other[col].to_numpy(), atol=1e-7), \
+                assert np.allclose(table[col].to_numpy(), other[col].to_numpy(), atol=1e-7, equal_nan=True), \
                     (name, col)
     w = together.summary["windows"]
     assert w["workers"] == 2 and w["max_violation"] <= 1e-6
@@ -167,7 +167,7 @@ def test_foresight_never_reads_beyond_its_sight(family, seed, end):
                 x = table[col].to_numpy()[:commit]
                 y = b.tables[name][col].to_numpy()[:commit]
                 assert np.allclose(x, y, atol=1e-9, equal_nan=True), (name, col)
-    assert any(not np.allclose(np.asarray(a.tables[n][c])[seen:], np.asarray(b.tables[n][c])[seen:])
+    assert any(not np.allclose(np.asarray(a.tables[n][c])[seen:], np.asarray(b.tables[n][c])[seen:], equal_nan=True)
                for n in a.tables for c in a.tables[n].columns
                if np.issubdtype(a.tables[n][c].dtype, np.number)), "the perturbation changed nothing"
 

@@ -14,12 +14,12 @@ from typing import Dict, Optional, Tuple
 
 from .. import model as M
 from .. import units as U
-from ..diagnostics import (DuplicateSetting, LimitInconsistent, MissingSetting, OutOfRange, RuleTooLong,
-                           SocInconsistent, UnusedSetting, WrongDimension)
+from ..diagnostics import (DuplicateSetting, EfficiencyCountedTwice, LimitInconsistent, MissingSetting,
+                           OutOfRange, RuleTooLong, SocInconsistent, UnusedSetting, WrongDimension)
 from ..spans import Span
 from .context import Context
 from .names import listed_once, suggest
-from .quantities import fmt
+from .quantities import Water, fmt
 from .sources import series_spec
 from .state import check_carried_state, steps_rounded_up
 from .tree import Block, Quantity, said
@@ -112,9 +112,10 @@ class StorageBuilder:
         self.sink = ck.sink
         self.spans: Dict[str, Span] = {}
         self.vals: dict = {}
+        self.water = Water(name, None)    # set by energy_equivalent(), read before any volume
 
     def q(self, key, dims, what):
-        return self.ck.units.quantity(self.s[key].value, dims, f"{what} of '{self.name}'")
+        return self.ck.units.quantity(self.s[key].value, dims, f"{what} of '{self.name}'", self.water)
 
     def sp(self, key) -> Span:
         return self.s[key].span
@@ -122,6 +123,7 @@ class StorageBuilder:
     def build(self) -> Optional[M.Storage]:
         before = len(self.sink.errors)
         self.kind()
+        self.energy_equivalent()
         energy = self.energy()
         if energy is None:
             return None
@@ -183,12 +185,14 @@ class StorageBuilder:
             if lim.max is None:      # 'off'
                 v[f"{key}_max"] = 0.0
                 continue
-            mx = ck.units.power(lim.max, f"the {key} max of '{nm}'")
+            # a turbine's flow may be given in m3 per s; a pump's limit is its power (MW drawn)
+            water = self.water if key == "discharge" else None
+            mx = ck.units.power(lim.max, f"the {key} max of '{nm}'", water=water)
             if mx is None:
                 continue
             v[f"{key}_max"] = mx
             if lim.min is not None:
-                mn = ck.units.power(lim.min, f"the {key} min of '{nm}'")
+                mn = ck.units.power(lim.min, f"the {key} min of '{nm}'", water=water)
                 self.spans[f"{key}_min"] = lim.min.span
                 if mn is not None:
                     if mn > mx:
@@ -205,11 +209,50 @@ class StorageBuilder:
             got = units.quantity(node.value, (U.FRACTION,), f"the round-trip efficiency of '{self.name}'")
             if got and self.fraction_ok(got[1], node.value, "round-trip efficiency"):
                 v["eta_charge"] = v["eta_discharge"] = math.sqrt(got[1])
+            self.efficiency_counted_twice(node)
             return
         for q, key in ((node.value.first, "eta_charge"), (node.value.second, "eta_discharge")):
             got = units.quantity(q, (U.FRACTION,), f"the {key[4:]} efficiency of '{self.name}'")
             if got and self.fraction_ok(got[1], q, f"{key[4:]} efficiency"):
                 v[key] = got[1]
+        self.efficiency_counted_twice(node)
+
+    def efficiency_counted_twice(self, node) -> None:
+        """A store declared in volume counts its content as the energy its plant delivers per m3
+        (the equivalent includes head and turbine): a discharge efficiency below 100 % on top
+        takes the turbine's losses off twice (docs/model.md, "Reservoir content")."""
+        eta, eq = self.vals.get("eta_discharge"), self.water.mwh_per_m3
+        if eq is None or eta is None or eta >= 1:
+            return
+        pct = fmt(eta * 100)
+        at_site = fmt(eq * eta * 1000)
+        self.sink.add(EfficiencyCountedTwice, node.span,
+                      f"'{self.name}' is declared in volume: its energy equivalent ({fmt(eq * 1000)} kWh per m3) "
+                      f"is already the energy its plant delivers, so a discharge efficiency of {pct} % counts "
+                      "the plant's losses twice",
+                      f"note: if {fmt(eq * 1000)} kWh per m3 is the water's energy before the turbine, "
+                      f"write 'energy equivalent {at_site} kWh per m3' instead",
+                      "fix: make the discharge efficiency 100 % (a pump's losses go in the charge efficiency)")
+
+    def energy_equivalent(self) -> None:
+        """'energy equivalent X per m3': the MWh of content one m3 of water is worth (what the
+        plant delivers per m3 released, from its head and efficiency).  Read first: every
+        volume and flow in the store's settings is converted with it."""
+        if "energy_equivalent" not in self.s:
+            return
+        self.spans["mwh_per_m3"] = self.sp("energy_equivalent")
+        got = self.ck.units.quantity(self.s["energy_equivalent"].value, (U.EQUIVALENT,),
+                                     f"the energy equivalent of '{self.name}'")
+        if got is None:
+            self.water = Water(self.name, float("nan"))   # reported: its volumes are not reported again
+            return
+        if got[1] <= 0:
+            self.sink.add(OutOfRange, self.s["energy_equivalent"].value.span,
+                          f"the energy equivalent of '{self.name}' must be above zero, found {fmt(got[1])} MWh per m3")
+            self.water = Water(self.name, float("nan"))
+            return
+        self.vals["mwh_per_m3"] = got[1]
+        self.water = Water(self.name, got[1])
 
     def state_of_charge(self, energy: float) -> None:
         """A percentage means a share of the energy capacity."""
@@ -327,7 +370,7 @@ class StorageBuilder:
         self.vals["spill_allowed"] = allowed.text == "allowed"
         if mx is not None:
             self.spans["spill_max"] = mx.span
-            self.vals["spill_max"] = self.ck.units.power(mx, f"the spill max of '{self.name}'")
+            self.vals["spill_max"] = self.ck.units.power(mx, f"the spill max of '{self.name}'", water=self.water)
             if not self.vals["spill_allowed"]:
                 self.sink.add(UnusedSetting, mx.span, "a spill max has no effect when spill is forbidden")
 
@@ -336,7 +379,7 @@ class StorageBuilder:
             return
         node = self.s["supply"]
         self.spans["supply"] = node.span
-        series_spec(self.ck.units, self.ck.specs, node.name, node.other, "power", node.span)
+        series_spec(self.ck.units, self.ck.specs, node.name, node.other, "power", node.span, self.water)
         if node.settings:
             self.sink.add(UnusedSetting, node.settings[0].span,
                           "a supply inside a storage always flows into that storage; 'into' and 'curtail' do not apply here "
@@ -443,7 +486,7 @@ class StorageBuilder:
         return True
 
     def energy_or_share(self, qnode: Quantity, energy: float, what: str) -> Optional[float]:
-        got = self.ck.units.quantity(qnode, (U.ENERGY, U.FRACTION), f"{what} of '{self.name}'")
+        got = self.ck.units.quantity(qnode, (U.ENERGY, U.FRACTION), f"{what} of '{self.name}'", self.water)
         if got is None:
             return None
         dim, val = got

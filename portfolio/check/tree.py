@@ -218,7 +218,7 @@ def _fit(children, i, pattern, j):
 
 # -- the reader --------------------------------------------------------------------------
 
-QUANTITY_SETTINGS = ("h_length", "h_step", "export_max", "import_max", "energy", "round_trip", "loss", "wear",
+QUANTITY_SETTINGS = ("h_length", "h_step", "export_max", "import_max", "energy", "energy_equivalent", "round_trip", "loss", "wear",
                      "min_run", "min_rest", "ramp", "soc_min", "soc_max", "soc_start", "delay", "route_max",
                      "route_efficiency", "in_transit")
 WORD_SETTINGS = {"h_start": "TIMESTAMP", "h_end": "TIMESTAMP", "h_zone": "STRING", "time_column": "STRING",
@@ -474,6 +474,7 @@ _WORDS = {"h_start": "start", "h_end": "end", "h_length": "length", "h_step": "s
           "soc_end": "soc end", "time_column": "time column", "csv_unit": "unit", "route_max": "max",
           "route_efficiency": "efficiency", "in_transit": "in transit", "direction_exclusive": "direction exclusive",
           "charge_from": "charge only from", "cycles": "cycles max",
+          "energy_equivalent": "energy equivalent",
           "vary_energy": "energy", "vary_charge_max": "charge max", "vary_discharge_max": "discharge max",
           "vary_round_trip": "efficiency round trip", "vary_eta_charge": "efficiency charge",
           "vary_eta_discharge": "efficiency discharge", "vary_export_max": "export max",

@@ -49,12 +49,14 @@ FIELD_UNITS = {
     "max_mw": "MW", "in_transit": "MWh", "efficiency": "%", "prior_h": "h", "prior_net_mw": "MW",
     "cycles_per_day": "cycles per day", "cycles_horizon": "cycles", "delay_steps": "steps",
     "factor": "MWh per MWh", "stored_value": "per MWh", "transit_value": "per MWh", "cycles_drawn_mwh": "MWh",
+    "mwh_per_m3": "MWh per m3",
 }
 
 # The canonical unit of each dimension (portfolio/units.py), as a hover writes it:
 # a percentage is the fraction the model holds.
 DIM_UNITS = {"power": "MW", "energy": "MWh", "time": "h", "fraction": "", "price": "per MWh",
-             "rate": "per h", "ramp": "MW per h"}
+             "rate": "per h", "ramp": "MW per h", "volume": "m3", "flow": "m3 per h",
+             "equivalent": "MWh per m3"}
 _PERCENT = {"%", "% per h"}
 _MONEY = "per MWh"    # a unit of money per energy: the portfolio's currency goes before it
 

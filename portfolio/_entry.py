@@ -18,7 +18,17 @@ def _interrupted_at_start_up(signum, frame):   # pragma: no cover - timing-depen
         os._exit(130)
 
 
-signal.signal(signal.SIGINT, _interrupted_at_start_up)
+def _started_by_multiprocessing() -> bool:
+    """True in a process that ``multiprocessing`` started by spawning this script again (a
+    study's Dask worker, a process of the window pool): only its spawning code imports
+    ``multiprocessing.spawn`` before this module; the command itself never does."""
+    return "multiprocessing.spawn" in sys.modules
+
+
+# A terminal's Ctrl-C reaches the whole process group: the command handles it (exit 130,
+# one line) and stops its own workers; a worker that is this script again ignores it, or
+# each would print the line too.
+signal.signal(signal.SIGINT, signal.SIG_IGN if _started_by_multiprocessing() else _interrupted_at_start_up)
 
 
 def run() -> None:

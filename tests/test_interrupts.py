@@ -3,11 +3,16 @@ group of a running ``portfolio dispatch`` (its SIGINT handler at the default,
 as a shell leaves it).  What must hold: exit code 130 with one line on stderr
 and no traceback; a prompt stop (HiGHS is asked to stop at its next callback,
 not left to finish a phase that would run for a minute); the previous output
-folder untouched; nothing half-written beside it.
+folder untouched; nothing half-written beside it.  For ``portfolio study``
+(its local Dask cluster's workers are in the same process group and share
+its stderr, so the output ends only when they are gone, and anything they
+print is seen): the same one line, the finished cases kept whole, and a
+re-run that resumes.
 """
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import shutil
@@ -92,10 +97,20 @@ def previous(tmp_path):
 
 
 def _interrupt(argv, after: float):
-    p = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                         start_new_session=True,
-                         preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    p = _start(argv)
     time.sleep(after)
+    return _ctrl_c(p)
+
+
+def _start(argv) -> subprocess.Popen:
+    """The command in a process group of its own, its SIGINT handler at the default."""
+    return subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+
+
+def _ctrl_c(p: subprocess.Popen):
+    """SIGINT to ``p``'s whole process group, as a terminal sends it: (code, out, err, seconds to stop)."""
     sent = time.monotonic()
     os.killpg(p.pid, signal.SIGINT)
     try:
@@ -185,3 +200,47 @@ def test_an_error_without_a_ctrl_c_is_not_taken_for_one():
             "cli.run()\n")
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
     assert p.returncode == 1 and "a real fault" in p.stderr, (p.returncode, p.stderr)
+
+
+def _study_file(folder: Path) -> Path:
+    """The benchmark's study (tests/bench/bench_study.py), 60 cases of five storages over
+    a week: each case a small MILP, the whole study some tens of seconds on two cores."""
+    from bench_study import text
+    path = folder / "sweep.folio"
+    path.write_text(text(60, hours=168))
+    return path
+
+
+def test_ctrl_c_during_a_study_keeps_finished_cases_and_a_rerun_resumes(tmp_path):
+    """Ctrl-C as a terminal sends it: SIGINT to the whole process group, which holds the
+    tool, the local cluster's nannies and its workers.  The tool exits 130 with one line and
+    no traceback (nor any from the workers: they ignore SIGINT and are closed by the tool);
+    every case file present is whole; a re-run solves only the cases not yet written."""
+    from portfolio.study.run import CASE_FILE, CASES_DIR
+    src = _study_file(tmp_path)
+    out = tmp_path / "study"
+    argv = [_command(), "study", str(src), "--out", str(out), "--workers", "2", "-q"]
+    p = _start(argv)
+    deadline = time.monotonic() + 180          # not a performance target: a hung start fails
+    while time.monotonic() < deadline and p.poll() is None:
+        if (out / CASES_DIR).is_dir() and len(list((out / CASES_DIR).glob(f"*/{CASE_FILE}"))) >= 2:
+            break
+        time.sleep(0.05)
+    if p.poll() is not None:
+        p.communicate()
+        pytest.skip("the study finished before it could be interrupted")
+    code, _, err, _ = _ctrl_c(p)
+    assert code == 130, (code, err)
+    assert err == "portfolio: interrupted\n", err
+    kept = sorted((out / CASES_DIR).glob(f"*/{CASE_FILE}"))
+    assert kept
+    for f in kept:
+        row = json.loads(f.read_text())
+        assert row["status"] == "optimal" and f.parent.name == row["case"]
+    assert [f for f in out.rglob(".*.tmp")] == []
+    assert not (out / "cases.csv").exists()      # the table is written only by a finished run
+    total = 60
+    assert len(kept) < total
+    again = subprocess.run(argv, capture_output=True, text=True, timeout=600)
+    assert again.returncode == 0, again.stderr
+    assert f"{total - len(kept)} solved now, {len(kept)} done before" in again.stdout

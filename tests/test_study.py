@@ -247,3 +247,61 @@ class _Sink:
 
     def flush(self):
         pass
+
+
+def test_a_long_case_with_binary_rules_goes_by_windows_as_dispatch_does(tmp_path):
+    # 752 h (above 31 days) with exclusive modes: LoadedPortfolio.dispatch() goes by windows
+    # by default (portfolio/windows/spec.py, by_default), and so must the case; its row carries
+    # the stitched gap, the LP bound and the number of windows.  The one case is the file's own
+    # model (energy 4 MWh, the low prices, the connection as declared).
+    text = _text([2 * v for v in PRICES], energy="energy values [4] MWh", repeat=94)
+    text = text.replace("vary grid export max from 1 MW to 2 MW step 1 MW", "")
+    text = "\n".join(line for line in text.splitlines() if "scenario high" not in line)
+    p = _load(tmp_path, text)
+    reference = p.dispatch(threads=1)
+    assert reference.summary["windows"]["count"] > 1
+    from portfolio.study import run_serial, table
+    study = p.model.studies["sizes"]
+    rows = run_serial(p.model, study, OPTIONS)
+    assert len(rows) == 1 and rows[0]["status"] == reference.status
+    assert rows[0]["windows"] == reference.summary["windows"]["count"]
+    assert math.isclose(rows[0]["objective"], reference.objective, rel_tol=1e-9)
+    assert math.isclose(rows[0]["bound"], reference.best_bound, rel_tol=1e-9)
+    assert math.isclose(rows[0]["gap"], reference.mip_gap, rel_tol=0, abs_tol=1e-12)
+    df = table(study, cases(study), rows)
+    assert list(df[["windows"]].iloc[0]) == [reference.summary["windows"]["count"]]
+    assert math.isclose(df["bound"].iloc[0], reference.best_bound, rel_tol=1e-9)
+
+
+def test_a_short_case_is_one_milp_with_its_bound(tmp_path):
+    p = _load(tmp_path, _text([2 * v for v in PRICES]))
+    from portfolio.study import run_serial
+    rows = run_serial(p.model, p.model.studies["sizes"], OPTIONS)
+    assert all(r["windows"] == 0 for r in rows)
+    assert all(r["bound"] is not None and r["bound"] >= r["objective"] - 1e-6 for r in rows)
+
+
+def test_a_task_lost_with_its_worker_is_solved_again_on_a_rerun(tmp_path):
+    # a case whose task raised on the worker (not the case's own failure, which solve_case
+    # records itself) is recorded as an error marked lost; the next run does not take it as done
+    from distributed import Client
+
+    from portfolio.study.run import _lost, finished, local_cluster, plan, record
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    study = p.studies["sizes"]
+    first = plan(p, study, OPTIONS)[0]
+    with local_cluster(1) as cluster, Client(cluster) as client:
+        fut = client.submit(_raise, 1, pure=False)
+        from distributed import wait
+        wait([fut])
+        row = _lost(fut, None)
+    assert row["status"] == "error" and "a worker went away" in row["message"] and row["lost"]
+    record(tmp_path / "out", first, row)
+    assert finished(tmp_path / "out", first, False) is None
+    done = dict(row, status="infeasible", lost=False)
+    record(tmp_path / "out", first, done)
+    assert finished(tmp_path / "out", first, False)["status"] == "infeasible"
+
+
+def _raise(x):
+    raise RuntimeError("a worker went away")

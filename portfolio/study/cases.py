@@ -25,7 +25,7 @@ import numpy as np
 
 from .. import model as M
 
-KEY_VERSION = "study-case-1"     # change when what a case computes changes
+KEY_VERSION = "study-case-2"     # change when what a case computes changes
 _SKIPPED = ("span", "spans", "studies", "path", "source", "origin")
 
 

@@ -3,7 +3,9 @@ varied setting (objective against its value, one line per scenario; PNG and SVG)
 
 One row per case, in case order: the case id, the varied values (units in the
 column names; a percentage in %), the scenario of each varied series, the
-status, objective, MIP gap, net value of every storage and supply, equivalent
+status, objective, MIP gap and best bound (a case dispatched by windows: the
+stitched schedule's gap to the whole horizon's LP bound), the number of windows
+(0: one MILP), net value of every storage and supply, equivalent
 full cycles of every storage, curtailed energy, the times and the worker
 that ran it, and the message of a case that failed.  Files are written
 atomically (:func:`portfolio.files.replace_atomically`).
@@ -46,7 +48,8 @@ def table(study: M.Study, cases, rows: List[dict]) -> pd.DataFrame:
                 rec[value_column(d)] = v * 100 if d.unit == "%" else v
             else:
                 rec[scenario_column(d)] = next(scenarios)[1]
-        rec.update(status=r.get("status"), objective=r.get("objective"), gap=r.get("gap"))
+        rec.update(status=r.get("status"), objective=r.get("objective"), gap=r.get("gap"), bound=r.get("bound"),
+                   windows=r.get("windows") or 0)
         assets = r.get("assets") or {}
         for group, names in (("storages", storages), ("supplies", supplies)):
             for n in names:

@@ -35,6 +35,7 @@ CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
 ID_LENGTH = 16             # hex digits of the case key naming its folder
+PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
 
@@ -75,13 +76,13 @@ def plan(p: M.Portfolio, study: M.Study, options) -> List[Planned]:
 def solve_case(p: M.Portfolio, study: M.Study, case: Case, options, schedule_dir: Optional[str] = None) -> dict:
     """The task: dispatch one case and return its row (plain data).  Never raises for a
     case that fails: its status is ``error`` and its message says why."""
-    from ..dispatch import dispatch
     t0 = time.perf_counter()
-    row = {"status": "error", "objective": None, "gap": None, "message": "", "assets": {},
-           "build_s": None, "solve_s": None, "worker": _worker()}
+    row = {"status": "error", "objective": None, "gap": None, "bound": None, "windows": 0, "message": "",
+           "assets": {}, "build_s": None, "solve_s": None, "worker": _worker()}
     try:
-        result = dispatch(apply(p, study, case), options)
-        row.update(status=result.status, objective=result.objective, gap=result.mip_gap,
+        result = _dispatch(apply(p, study, case), options)
+        row.update(status=result.status, objective=result.objective, gap=result.mip_gap, bound=result.best_bound,
+                   windows=(result.summary.get("windows") or {}).get("count") or 0,
                    message=result.message or "", build_s=result.build_seconds, solve_s=result.solve_seconds,
                    assets=_assets(result.summary))
         if schedule_dir is not None and result.has_schedule:
@@ -90,6 +91,21 @@ def solve_case(p: M.Portfolio, study: M.Study, case: Case, options, schedule_dir
         row["message"] = f"{type(e).__name__}: {e}"
     row["wall_s"] = time.perf_counter() - t0
     return row
+
+
+def _dispatch(m: M.Portfolio, options):
+    """One case's dispatch, as ``LoadedPortfolio.dispatch`` does it by default: by windows (a day
+    seeing a day more, one after another on the case's worker) when
+    :func:`portfolio.windows.by_default` says so (a horizon above 31 days with binary rules),
+    else one MILP.  Then the row's ``gap`` and ``bound`` are the stitched schedule's against the
+    whole horizon's LP relaxation, and ``windows`` counts the windows."""
+    from ..windows import by_default
+    spec = by_default(m)
+    if spec is not None:
+        from ..windows import dispatch_windows
+        return dispatch_windows(m, spec, options)
+    from ..dispatch import dispatch
+    return dispatch(m, options)
 
 
 def _assets(summary: dict) -> dict:
@@ -121,8 +137,8 @@ def finished(out_dir: Path, planned: Planned, schedules: bool) -> Optional[dict]
         stored = json.loads((folder / CASE_FILE).read_text())
     except (OSError, ValueError):
         return None
-    if stored.get("key") != planned.key:
-        return None
+    if stored.get("key") != planned.key or stored.get("lost"):
+        return None            # changed inputs, or a task that never ran to its end (a worker lost)
     if schedules and stored.get("status") in ("optimal", "feasible") and not (folder / SCHEDULE_DIR).is_dir():
         return None
     return stored
@@ -198,29 +214,46 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
             sent = _size(shared) + _size(study)
             pf = client.scatter(shared, broadcast=True)
             sf = client.scatter(study, broadcast=True)
-            futures = {}
-            for pl in todo:
-                sched = str(case_dir(out_dir, pl) / SCHEDULE_DIR) if schedules else None
-                fut = client.submit(solve_case, pf, sf, pl.case, options, sched, key=f"case-{pl.key}",
-                                    pure=False, retries=0)
-                futures[fut] = pl
+            by_key: Dict[str, List[Planned]] = {}
+            for pl in todo:                    # cases with the same inputs are solved once
+                by_key.setdefault(f"case-{pl.key}", []).append(pl)
+            keys = list(by_key)
+            sched = [str(case_dir(out_dir, by_key[k][0]) / SCHEDULE_DIR) if schedules else None for k in keys]
+            n = len(keys)
+            # one message for every task (client.map), and the rows gathered as tasks finish
+            # (as_completed with_results): Dask's own cost per task is then a few milliseconds
+            # (docs/performance.md, "Studies")
+            futures = client.map(solve_case, [pf] * n, [sf] * n, [by_key[k][0].case for k in keys],
+                                 [options] * n, sched, key=keys, pure=False, retries=0)
             from distributed import as_completed
-            for fut in as_completed(futures):
-                pl = futures.pop(fut)
-                try:
-                    row = fut.result()
-                except Exception as e:         # the task itself died (a worker lost, ...)
-                    row = {"status": "error", "message": f"{type(e).__name__}: {e}", "assets": {},
-                           "objective": None, "gap": None, "worker": ""}
-                rows[pl.case.index] = record(out_dir, pl, row)
-                done += 1
-                failed += row["status"] not in ("optimal", "feasible")
+            for fut, got in as_completed(futures, with_results=True, raise_errors=False):
+                row = got if fut.status == "finished" and isinstance(got, dict) else _lost(fut, got)
+                for pl in by_key.pop(fut.key):
+                    rows[pl.case.index] = record(out_dir, pl, row)
+                    done += 1
+                    failed += row["status"] not in ("optimal", "feasible")
                 tell(done, failed, skipped, total)
         finally:
             if own is not None:
                 _stop(client, own)
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
+
+
+def _lost(fut, got) -> dict:
+    """The row of a task that did not return one (a worker lost, the task cancelled, ...):
+    recorded, but marked ``lost`` so that a re-run solves the case again."""
+    if isinstance(got, tuple) and len(got) == 3 and isinstance(got[1], BaseException):
+        got = got[1]                   # Dask's (type, error, traceback) of a task that raised
+    e = got if isinstance(got, BaseException) else None
+    if e is None:
+        try:
+            e = fut.exception()
+        except BaseException as x:     # cancelled: its own error says so
+            e = x
+    what = f"{type(e).__name__}: {e}" if e is not None else f"the task ended as '{fut.status}'"
+    return {"status": "error", "message": what, "assets": {}, "objective": None, "gap": None, "bound": None,
+            "windows": 0, "worker": "", "lost": True}
 
 
 def _size(x) -> int:
@@ -232,19 +265,28 @@ def _size(x) -> int:
 def _start(scheduler: Optional[str], workers: Optional[int]):
     """(what to stop afterwards, a client): a client of ``scheduler``, or of a local
     cluster of processes on 127.0.0.1 (one a core, one thread each, no dashboard)."""
-    import logging
-
-    from distributed import Client, LocalCluster
+    from distributed import Client
     if scheduler:
         try:
             client = Client(scheduler, timeout=30)
         except (OSError, TimeoutError) as e:
             raise StudyError(f"cannot reach the Dask scheduler at {scheduler}: {e}") from None
         return (), client
-    n = workers or os.cpu_count() or 1
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
-                           host="127.0.0.1", silence_logs=logging.CRITICAL)
+    cluster = local_cluster(workers or os.cpu_count() or 1)
     return (cluster,), Client(cluster)
+
+
+def local_cluster(workers: int):
+    """The local cluster a study starts: ``workers`` processes of one thread on 127.0.0.1, the
+    scheduler's HTTP server (no dashboard) on a free port of 127.0.0.1 (a fixed port in use would
+    make Dask warn on stderr), the workers preloaded with :mod:`portfolio.study.worker` (they
+    ignore Ctrl-C: the process that started them closes them) and their logs silenced."""
+    import logging
+
+    from distributed import LocalCluster
+    return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+                        dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
+                        silence_logs=logging.CRITICAL, preload=[PRELOAD])
 
 
 def _stop(client, own) -> None:

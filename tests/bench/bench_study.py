@@ -1,0 +1,186 @@
+"""Benchmark: a study on the local Dask cluster against a serial loop of dispatch (not collected by pytest).
+
+    python tests/bench/bench_study.py [--cases 200] [--workers 2] [--rounds 1]
+
+A study of small cases (an hourly day, five storages on two sites behind one
+connection, exclusive modes on two of them so each case is a small MILP):
+``--cases`` cases from one storage's energy, the connection's export limit and
+four price scenarios.  Side by side in one process, in this order:
+
+* **serial**: a loop of :func:`portfolio.dispatch.dispatch` over the case
+  models (:func:`portfolio.study.apply`), in this process, no Dask, no files;
+* **study**: :func:`portfolio.study.run` into a fresh folder, which starts a
+  ``LocalCluster`` of ``--workers`` processes, runs every case, writes every
+  case's row, the tables and no plots, and stops the cluster: the wall time a
+  user waits for;
+* **study, cluster up**: the same on a cluster started beforehand (the
+  cluster's start and stop left out): Dask's per-task cost alone.
+
+Then the traffic: the bytes scattered once (the model and the study, to each
+worker), the bytes of one task as submitted (its function, its case, the
+options and two references to the scattered data, pickled as Dask pickles
+them), what a task would weigh if it carried the model itself, and the
+scheduler's count of bytes moved between workers and of the scattered keys'
+copies (one per worker).  The figures go to docs/performance.md ("Studies").
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+sys.path[:0] = [os.path.dirname(os.path.dirname(HERE))]
+
+import portfolio  # noqa: E402
+from portfolio.dispatch import dispatch  # noqa: E402
+from portfolio.solve import SolveOptions  # noqa: E402
+from portfolio.study import apply, cases, run  # noqa: E402
+from portfolio.study.run import local_cluster, solve_case  # noqa: E402
+
+
+def text(n_cases: int, hours: int = 24, seed: int = 5) -> str:
+    """The study's file: 5 storages, ``hours`` hourly steps (a day), cases = energies x export
+    limits x 4 scenarios."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(hours)
+    base = 50 + 20 * np.sin(2 * np.pi * (t - 7) / 24)
+
+    def prices(k):
+        v = base * (0.8 + 0.15 * k) + rng.normal(0, 6, hours)
+        return "[" + ", ".join(f"{x:.2f}" for x in v) + "]"
+
+    scenarios = 4
+    limits = 5
+    energies = max(1, n_cases // (scenarios * limits))
+    lines = ["portfolio bench_study",
+             f'horizon start 2027-06-01T00:00 length {hours} h step 1 h zone "UTC"',
+             f"price spot values {prices(0)} per MWh",
+             "connection grid { export max 12 MW import max 12 MW sell at spot buy at spot plus 2 per MWh }"]
+    for s in range(2):
+        lines.append(f"site s{s} at grid {{ export max 8 MW import max 8 MW")
+        for k in range(3 if s == 0 else 2):
+            j = 3 * s + k
+            modes = " modes exclusive" if j in (0, 3) else ""
+            lines.append(f"  storage b{j} {{ kind battery energy {6 + j} MWh charge max 3 MW discharge max 3 MW "
+                         f"efficiency round trip 88% soc start 50% end at least start{modes} }}")
+        lines.append("}")
+    energy = ", ".join(str(4 + k) for k in range(energies))
+    export = ", ".join(str(6 + 2 * k) for k in range(limits))
+    lines.append("study sweep {")
+    lines.append(f"  vary b0 energy values [{energy}] MWh")
+    lines.append(f"  vary grid export max values [{export}] MW")
+    for k in range(scenarios):
+        lines.append(f"  scenario p{k} for spot values {prices(k)} per MWh")
+    lines.append("}")
+    return "\n".join(lines) + "\n"
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--cases", type=int, default=200)
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--rounds", type=int, default=2, help="serial and study runs, alternating")
+    args = ap.parse_args()
+    tmp = Path(tempfile.mkdtemp(prefix="bench-study-"))
+    try:
+        src = tmp / "bench_study.folio"
+        src.write_text(text(args.cases))
+        p = portfolio.load(src).model
+        study = p.studies["sweep"]
+        every = cases(study)
+        options = SolveOptions(threads=1)
+        print(f"{len(every)} cases: 5 storages (2 with exclusive modes) x 24 h; {args.workers} workers; "
+              f"{os.cpu_count()} cores; load average {os.getloadavg()[0]:.2f} at the start")
+        dispatch(apply(p, study, every[0]), options)             # warm-up (imports, first solve)
+        rounds = []
+        for r in range(args.rounds):
+            rounds.append(_round(p, study, every, options, tmp / f"round{r}", args.workers))
+            f = rounds[-1]
+            print(f"round {r + 1}: serial {f['serial']:.2f} s ({f['serial'] / len(every) * 1e3:.0f} ms a case, "
+                  f"CPU {f['serial_cpu']:.2f} s) | study {f['study']:.2f} s (ratio {f['study'] / f['serial']:.2f}) | "
+                  f"cluster up: start {f['up']:.2f} s, study {f['warm']:.2f} s (ratio {f['warm'] / f['serial']:.2f}), "
+                  f"CPU: tool+scheduler {f['client_cpu']:.2f} s, workers {f['worker_cpu']:.2f} s | "
+                  f"tasks' own wall {f['task_wall']:.2f} s summed | same objectives {f['same']} | "
+                  f"load {os.getloadavg()[0]:.2f}")
+        med = {k: float(np.median([f[k] for f in rounds])) for k in rounds[0] if k not in ("same", "seen", "transfers")}
+        cpu = med["client_cpu"] + med["worker_cpu"]
+        print(f"median of {len(rounds)}: ratio with the cluster's start and stop {med['study'] / med['serial']:.2f}, "
+              f"cluster up {med['warm'] / med['serial']:.2f}; CPU of the study's processes / serial CPU "
+              f"{cpu / med['serial_cpu']:.2f} (on {args.workers} idle cores the cluster-up ratio could reach about "
+              f"{cpu / args.workers / med['serial_cpu']:.2f})")
+
+        from distributed.protocol.pickle import dumps
+        got = rounds[-1]
+        per_task = len(dumps((solve_case, "portfolio-key", "study-key", every[-1], options, None)))
+        carrying = len(dumps((solve_case, apply(p, study, every[-1]), every[-1], options, None)))
+        print(f"scattered once: {got['sent']} B (model + study) to each of {args.workers} workers; "
+              f"one task as submitted: {per_task} B; a task carrying its model: {carrying} B")
+        print(f"scheduler, mid-run: workers holding each scattered key {got['seen'].get('copies')} "
+              f"(of {got['seen'].get('workers')} workers); keys fetched from another worker: {got['transfers']}")
+        print(f"load average {os.getloadavg()[0]:.2f} at the end")
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _round(p, study, every, options, folder: Path, workers: int) -> dict:
+    """Serial loop, study with its own cluster, study on a cluster already up: times and checks."""
+    from distributed import Client
+    out = {}
+    c0, t0 = time.process_time(), time.perf_counter()
+    serial = [dispatch(apply(p, study, c), options).objective for c in every]
+    out["serial"], out["serial_cpu"] = time.perf_counter() - t0, time.process_time() - c0
+
+    t0 = time.perf_counter()
+    got = run(p, "sweep", folder / "study", options, workers=workers, plots=False)
+    out["study"] = time.perf_counter() - t0
+    out["same"] = bool(np.allclose(got.frame["objective"].to_numpy(float), np.array(serial, float),
+                                   rtol=0, atol=1e-6))
+    out["sent"] = got.sent_bytes
+    out["task_wall"] = float(got.frame["wall [s]"].sum())
+
+    t0 = time.perf_counter()
+    cluster = local_cluster(workers)
+    client = Client(cluster)
+    out["up"] = time.perf_counter() - t0
+    seen = {}
+
+    def look(done, failed, skipped, total):
+        if done == 1:      # the scattered data is held while the cases run
+            seen.update(client.run_on_scheduler(_copies))
+
+    before = client.run(time.process_time)
+    c0, t0 = time.process_time(), time.perf_counter()
+    warm = run(p, "sweep", folder / "warm", options, client=client, plots=False, progress=look)
+    out["warm"], out["client_cpu"] = time.perf_counter() - t0, time.process_time() - c0
+    after = client.run(time.process_time)
+    out["worker_cpu"] = sum(after[w] - before[w] for w in after)
+    out["same"] = out["same"] and warm.frame["objective"].equals(got.frame["objective"])
+    out["transfers"] = sum(client.run(_transfers).values())
+    out["seen"] = seen
+    client.close()
+    cluster.close()
+    return out
+
+
+def _copies(dask_scheduler=None):
+    """On the scheduler: how many workers hold each scattered key (the keys not named case-...)."""
+    s = dask_scheduler
+    held = [len(ts.who_has or ()) for key, ts in s.tasks.items() if not str(key).startswith("case-")]
+    return {"copies": sorted(held), "workers": len(s.workers)}
+
+
+def _transfers(dask_worker=None):
+    """On a worker: how many keys it fetched from another worker (0 when the data was broadcast)."""
+    return dask_worker.state.transfer_incoming_count_total
+
+
+if __name__ == "__main__":
+    main()

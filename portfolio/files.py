@@ -99,6 +99,15 @@ def outside(base_dir: Union[str, Path], written: str) -> Union[str, None]:
     return None
 
 
+def fsync_path(path: Union[str, Path]) -> None:
+    """Flush a file's or a folder's data to disk (a folder: its entries)."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
 def replace_atomically(path: Union[str, Path], write, mode: Optional[int] = None) -> None:
     """Make ``path`` by ``write(tmp)`` into a temporary file beside it, flushed to disk
     and renamed over it: a reader sees the old file or the new one, never half of one.
@@ -109,11 +118,7 @@ def replace_atomically(path: Union[str, Path], write, mode: Optional[int] = None
     os.close(fd)
     try:
         write(tmp)
-        fd = os.open(tmp, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+        fsync_path(tmp)
         if mode is None:
             mask = os.umask(0)
             os.umask(mask)

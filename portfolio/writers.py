@@ -42,6 +42,7 @@ import pandas as pd
 
 from .contract import (FORMATS, MARGINAL_TABLE, MARKER, PERIODS_TABLE, RESERVED_NAMES, SUMMARY_FILE,
                        WIDE, WINDOWS_TABLE, table_file)
+from .files import fsync_path
 
 
 class OutputFolderError(Exception):
@@ -189,18 +190,9 @@ def _write_all(result, folder: Path, formats) -> List[str]:
     (folder / MARKER).write_text(json.dumps({"written_by": "portfolio", "files": written}) + "\n",
                                  encoding="utf-8")
     for name in written + [MARKER]:
-        _fsync(folder / name)
-    _fsync(folder)
+        fsync_path(folder / name)
+    fsync_path(folder)
     return written
-
-
-def _fsync(path: Path) -> None:
-    """Flush a file's or a folder's data to disk (a folder: its entries)."""
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
 
 
 _ACL_KEYS = ("system.posix_acl_access", "system.posix_acl_default")
@@ -334,7 +326,7 @@ def _replace(result, out: Path, parent: Path, formats) -> None:
             shutil.rmtree(old, ignore_errors=True)
         else:
             os.rename(tmp, out)
-        _fsync(parent)
+        fsync_path(parent)
     except OSError as exc:
         shutil.rmtree(tmp, ignore_errors=True)
         raise OutputFolderError(f"writing {out} failed: {exc.strerror or exc}") from exc

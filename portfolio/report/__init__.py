@@ -22,7 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..contract import MARKER, REPORT_FILE
-from ..files import replace_atomically
+from ..files import fsync_path, replace_atomically
 from .folder import Folder, ReportError, check_folder, read
 from .page import GENERATOR, render
 from .study import is_study, read_study, render_study
@@ -96,11 +96,7 @@ def write_report(out_dir) -> Report:
                 marker["files"] = listed + [REPORT_FILE]
                 _atomic_text(folder / MARKER, json.dumps(marker) + "\n")
             _atomic_text(folder / REPORT_FILE, page)
-            fd = os.open(folder, os.O_RDONLY)
-            try:
-                os.fsync(fd)
-            finally:
-                os.close(fd)
+            fsync_path(folder)
     except OSError as exc:
         raise ReportError(f"cannot write {folder / REPORT_FILE}: {exc.strerror or exc}") from None
     return Report(folder / REPORT_FILE, str(data.summary["status"]), charts)

@@ -44,7 +44,7 @@ import gc
 import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
-from typing import Dict, Hashable, List, Optional, Tuple
+from typing import Dict, Hashable, List, Optional, Sequence, Tuple
 
 import numpy as np
 
@@ -67,7 +67,7 @@ class Built:
     relax: bool
     steps: int
     step_hours: float
-    var_keys: Dict[str, List[tuple]]
+    var_keys: Dict[str, Sequence]           # family -> its keys (*asset, t) (arrays.Keys)
     var_blocks: Dict[str, Dict[Hashable, int]]
     binary_vars: List[str]
     origins: Dict[str, List[Origin]]
@@ -192,14 +192,18 @@ def _variables(ctx: Ctx) -> None:
 
 
 def build(p: Portfolio, variant: str = "tight", relax: bool = False,
-          topology: Optional[Topology] = None) -> Built:
+          topology: Optional[Topology] = None, layout_only: bool = False) -> Built:
     """Compile ``p``.  ``relax=True`` adds a slack to every limit and rule and
     minimises their total (used to explain an infeasible portfolio).
-    ``topology``: the index of ``p``'s network graph, when the caller has it."""
+    ``topology``: the index of ``p``'s network graph, when the caller has it.
+    ``layout_only=True``: the variables, their places, the expressions and the
+    objective, but no row and no bound (a matrix of no rows, every column
+    unbounded above): enough to read and tabulate a schedule of ``p`` and to
+    price it, not to solve or check one."""
     t0 = time.perf_counter()
     with _gc_paused():
         topo = topology if topology is not None else network(p).topology()
-        ctx = Ctx(p, variant=variant, relax=relax, topology=topo)
+        ctx = Ctx(p, variant=variant, relax=relax, topology=topo, layout_only=layout_only)
         _variables(ctx)
         for module in FAMILIES:
             module.build(ctx)

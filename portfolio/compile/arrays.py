@@ -4,10 +4,51 @@ builders :meth:`portfolio.compile.context.Ctx.finish` fills while making it."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Dict, List, Tuple
+from typing import Dict, Hashable, Iterator, List, Sequence, Tuple
 
 import numpy as np
 import scipy.sparse as sp
+
+
+class Keys(Sequence):
+    """The index keys ``(*asset, t)`` of a variable family, asset-major, made when read.
+
+    A family of 20 stores over 35,040 steps has 700,800 keys; a list of tuples
+    costs about 100 bytes each, this costs nothing until a key is read (Pyomo,
+    a diagnostic naming a column)."""
+
+    def __init__(self, assets: Sequence[Hashable], steps: int):
+        self.assets = list(assets)
+        self.steps = int(steps)
+
+    def __len__(self) -> int:
+        return len(self.assets) * self.steps
+
+    def _key(self, i: int) -> tuple:
+        a = self.assets[i // self.steps]
+        return (a if isinstance(a, tuple) else (a,)) + (i % self.steps,)
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return [self._key(j) for j in range(*i.indices(len(self)))]
+        n = len(self)
+        if i < 0:
+            i += n
+        if not 0 <= i < n:
+            raise IndexError(i)
+        return self._key(i)
+
+    def __iter__(self) -> Iterator[tuple]:
+        for a in self.assets:
+            at = a if isinstance(a, tuple) else (a,)
+            for t in range(self.steps):
+                yield at + (t,)
+
+    def __eq__(self, other) -> bool:
+        return list(self) == list(other)
+
+    def __repr__(self) -> str:
+        return f"Keys({len(self.assets)} assets x {self.steps} steps)"
 
 
 @dataclass
@@ -41,7 +82,7 @@ class Matrix:
     offset: float
     maximize: bool
     var_ranges: Dict[str, Tuple[int, int]]
-    var_index: Dict[str, list]        # family -> Pyomo index keys, in column order
+    var_index: Dict[str, Sequence]    # family -> Pyomo index keys, in column order (Keys or a list)
     binary: Dict[str, bool]
     blocks: List[RowBlock]
 

@@ -33,7 +33,7 @@ from ..graph import network
 from ..model import Portfolio
 from ..spans import Span
 from ..topology import Topology
-from .arrays import Matrix, _cat, _Columns, _Rows
+from .arrays import Keys, Matrix, _cat, _Columns, _Rows
 
 INF = math.inf
 
@@ -92,7 +92,7 @@ class Ctx:
     """Shared state while one Portfolio is compiled."""
 
     def __init__(self, p: Portfolio, variant: str = "tight", relax: bool = False,
-                 topology: Optional[Topology] = None):
+                 topology: Optional[Topology] = None, layout_only: bool = False):
         if variant not in ("tight", "plain"):
             raise ValueError(f"unknown formulation variant {variant!r} (use 'tight' or 'plain')")
         self.p = p
@@ -100,11 +100,14 @@ class Ctx:
         self.topo = topology if topology is not None else network(p).topology()
         self.variant = variant
         self.relax = relax
+        # layout only: variables, their places and the objective, but no row and no bound is kept
+        # (what reading a long stitched schedule needs, without the memory of its rows)
+        self.layout_only = layout_only
         self.T = int(p.horizon.steps)
         self.dt = float(p.horizon.step_hours)
         self.steps = range(self.T)
         self.n_cols = 0
-        self.var_keys: Dict[str, List[tuple]] = {}
+        self.var_keys: Dict[str, Keys] = {}
         self.var_blocks: Dict[str, Dict[Hashable, int]] = {}   # asset key -> first position
         self._var_start: Dict[str, int] = {}                    # family -> first column
         self._col_of: Dict[str, Dict[Hashable, int]] = {}       # asset -> column of step 0
@@ -132,12 +135,8 @@ class Ctx:
             raise RuntimeError(f"variable family {name} defined twice")
         if name in self.families or name in RESERVED:
             raise RuntimeError(f"variable family {name} clashes with a model component")
-        keys: List[tuple] = []
-        blocks: Dict[Hashable, int] = {}
-        for a in assets:
-            at = a if isinstance(a, tuple) else (a,)
-            blocks[a] = len(keys)
-            keys.extend(at + (t,) for t in self.steps)
+        keys = Keys(assets, self.T)
+        blocks: Dict[Hashable, int] = {a: i * self.T for i, a in enumerate(keys.assets)}
         self.var_keys[name] = keys
         self.var_blocks[name] = blocks
         if not keys:
@@ -184,6 +183,8 @@ class Ctx:
         ``terms`` are ``(coef, column)`` pairs (columns from :meth:`v`); pairs
         with a zero coefficient or a ``None`` column are dropped.
         """
+        if self.layout_only:
+            return
         fam = self.families.get(family) or self.family(family, "rows", relaxable)
         if lo is None and hi is None:
             raise RuntimeError(f"row {family}{key} has no bound")
@@ -202,7 +203,7 @@ class Ctx:
               origin: Optional[Origin] = None) -> None:
         """A bound on one variable entry (a relaxable row in relax mode)."""
         col = self.v(var, asset, t)
-        if col is None:
+        if col is None or self.layout_only:
             return
         fam = self.families.get(family) or self.family(family, "bounds", True, var)
         if fam.var != var:
@@ -214,7 +215,7 @@ class Ctx:
         """An upper bound that every schedule can meet once written canonically
         (see :mod:`portfolio.reach`): applied in both modes, never relaxed, no origin."""
         col = self.v(var, asset, t)
-        if col is not None:
+        if col is not None and not self.layout_only:
             self._implied.append((col, float(hi)))
 
     def origin_only(self, family: str, origin: Origin, kind: str = "rows") -> None:

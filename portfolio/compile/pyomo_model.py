@@ -31,7 +31,7 @@ def to_pyomo(mx: Matrix, name: str, values: Optional[np.ndarray] = None):
     m = pe.ConcreteModel(name=name)
     datas = []
     for vname, (start, stop) in mx.var_ranges.items():
-        var = pe.Var(mx.var_index[vname], dense=True,
+        var = pe.Var(list(mx.var_index[vname]), dense=True,
                      domain=pe.Binary if mx.binary[vname] else pe.NonNegativeReals)
         setattr(m, vname, var)
         vds = list(var.values())

@@ -103,6 +103,11 @@ def build_parser() -> argparse.ArgumentParser:
                         "commits --commit of it; see docs/windows.md")
     d.add_argument("--commit", metavar="DURATION", default=None,
                    help="with --foresight: the hours each window keeps (default 1d)")
+    d.add_argument("--bound", choices=("auto", "whole", "split"), default=None,
+                   help="with --windows/--foresight: where the bound comes from: the whole "
+                        "horizon's LP ('whole'), or pieces that never hold the whole horizon at once "
+                        "('split', for horizons too long for memory); 'auto' (default) splits above "
+                        "200,000 storage-steps; see docs/windows.md")
     d.add_argument("--whole", action="store_true",
                    help="one MILP over the whole horizon, even where windows are the default "
                         "(above 31 days with binary rules; docs/windows.md)")
@@ -327,12 +332,20 @@ def cmd_dispatch(args, out, err) -> int:
     if spec is None and not args.whole and not args.marginal_values:
         from .windows import AUTO_DAYS, binary_rules, by_default
         spec = by_default(r.portfolio)
+        if spec is not None and args.bound is not None:
+            from dataclasses import replace
+            spec = replace(spec, bound=args.bound)
         if spec is not None:
             rules = binary_rules(r.portfolio)
             default = (f"dispatched by windows, the default for a horizon longer than "
                        f"{AUTO_DAYS:g} days with binary rules ({rules[0]}"
                        f"{f' and {len(rules) - 1} more' if len(rules) > 1 else ''}); "
                        f"--whole for one MILP")
+    if spec is None and args.bound is not None:
+        print(printable("portfolio: error: --bound goes with windows (--windows, --foresight, or a "
+                        "horizon longer than 31 days with binary rules), and this dispatch is one "
+                        "MILP; nothing was dispatched or written"), file=err)
+        return EXIT_USAGE
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
     if problem is None and args.parquet:
@@ -417,7 +430,10 @@ def cmd_dispatch(args, out, err) -> int:
 
 
 def _windows_spec(args, horizon):
-    """(spec or None, problem or None) from --windows, --window-end, --workers, --foresight, --commit."""
+    """(spec or None, problem or None) from --windows, --window-end, --workers, --foresight, --commit
+    and --bound (which also applies to the windows a long horizon takes by default)."""
+    from dataclasses import replace
+
     from .windows import WindowsError, foresight, parse, plan
     windows = args.windows is not None
     sighted = args.foresight is not None
@@ -443,6 +459,8 @@ def _windows_spec(args, horizon):
             workers = args.workers or 1
             end = args.window_end or ("pin" if workers > 1 else "value")
             spec = parse(args.windows, end, workers)
+        if args.bound is not None:
+            spec = replace(spec, bound=args.bound)
         plan(spec, horizon.steps, horizon.step_hours)
     except WindowsError as e:
         return None, str(e)

@@ -131,7 +131,8 @@ NETWORK_KEYS = ("sites", "connections", "storages")
 OPTIONAL_SUMMARY_KEYS = ("message",          # present only when there is something to say
                          "windows",          # dispatch by windows only (docs/windows.md)
                          "marginal_values")  # when asked for (docs/marginal-values.md)
-WINDOW_KEYS = ("commit_h", "overlap_h", "end", "foresight_h", "workers", "count", "lp_bound",
+WINDOW_KEYS = ("commit_h", "overlap_h", "end", "foresight_h", "workers", "count", "bound_method",
+               "lp_bound",
                "lp_seconds", "stitched_objective", "gap", "ratio_to_bound", "resolved",
                "max_violation", "worst", "seconds", "windows")
 WINDOWS_TABLE = "windows"          # the per-window table's file: windows.<format>

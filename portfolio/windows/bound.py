@@ -31,7 +31,7 @@ from typing import Dict, Optional
 
 import numpy as np
 
-from ..solve import SolveOptions, new_highs, to_highs_lp
+from ..solve import SolveOptions, new_highs
 from ..solve.certify import dual_bound
 from ..solve.highs import Abandoned
 
@@ -57,30 +57,11 @@ class Relaxed:
 
 def relax(built, options: Optional[SolveOptions] = None, seconds: Optional[float] = None) -> Relaxed:
     """Solve the LP relaxation of ``built`` (a compiled :class:`~portfolio.compile.Built`)."""
-    import highspy
-
     t0 = time.perf_counter()
-    options = options or SolveOptions()
     mx = built.matrix
-    lp, _ = to_highs_lp(built)
-    h = new_highs(options, seconds)
-    h.passModel(lp)
-    ints = np.nonzero(mx.integer)[0].astype(np.int32)
-    if ints.size:
-        h.changeColsIntegrality(len(ints), ints,
-                                np.full(len(ints), highspy.HighsVarType.kContinuous))
-    h.setOptionValue("simplex_dual_edge_weight_strategy", 1)   # as warmstart.find: faster here
-    try:
-        h.run()
-    except Abandoned:
-        return Relaxed("abandoned at its time limit", None, time.perf_counter() - t0)
-    status = h.modelStatusToString(h.getModelStatus())
-    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+    status, x, y = solve_relaxation(mx, options, seconds)
+    if x is None:
         return Relaxed(status, None, time.perf_counter() - t0)
-    sol = h.getSolution()
-    x = np.asarray(sol.col_value, dtype=float)
-    y = np.asarray(sol.row_dual, dtype=float)
-    del h
     bound = dual_bound(mx, y)
     out = Relaxed(status, bound, 0.0, x=x)
     sense = 1.0 if mx.maximize else -1.0      # money per unit of rhs (the models maximise)
@@ -99,6 +80,30 @@ def relax(built, options: Optional[SolveOptions] = None, seconds: Optional[float
         out.start_value[k] = float(a * yk[0]) if T else 0.0
     out.seconds = time.perf_counter() - t0
     return out
+
+
+def solve_relaxation(mx, options: Optional[SolveOptions] = None, seconds: Optional[float] = None):
+    """The LP relaxation of the matrix ``mx`` (every integer column continuous): (HiGHS's
+    status in its words, column values, row duals), the values None unless it is optimal.
+    Nothing is believed yet: a bound follows only from :func:`dual_bound` of the duals."""
+    import highspy
+
+    from ..solve.highs import make_lp
+    options = options or SolveOptions()
+    lp = make_lp(mx.A, mx.cost, mx.col_lower, mx.col_upper, mx.row_lower, mx.row_upper,
+                 mx.offset, mx.maximize, np.zeros(mx.num_col, dtype=bool))
+    h = new_highs(options, seconds)
+    h.passModel(lp)
+    h.setOptionValue("simplex_dual_edge_weight_strategy", 1)   # as warmstart.find: faster here
+    try:
+        h.run()
+    except Abandoned:
+        return "abandoned at its time limit", None, None
+    status = h.modelStatusToString(h.getModelStatus())
+    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+        return status, None, None
+    sol = h.getSolution()
+    return (status, np.asarray(sol.col_value, dtype=float), np.asarray(sol.row_dual, dtype=float))
 
 
 def _balance_rows(mx, storages, T: int) -> Dict[str, np.ndarray]:

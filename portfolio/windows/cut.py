@@ -62,9 +62,7 @@ def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, 
     h = p.horizon
     T = h.steps
     stop = start + length
-    begin = (pd.Timestamp(h.start).tz_convert("UTC")
-             + pd.Timedelta(hours=start * h.step_hours)).tz_convert(h.zone)
-    series = {n: replace(s, values=np.asarray(s.values)[start:stop]) for n, s in p.series.items()}
+    horizon, series = sliced(p, start, length)
     acc = E.Values(full, values)
     arriving = _arriving(p, full, acc, start, length) if start > 0 else {}
     storages = {}
@@ -83,8 +81,17 @@ def window_model(p: Portfolio, full, values: Dict[str, np.ndarray], start: int, 
     if stop < T:
         routes = tuple(replace(r, transit_value=_transit_value(end, r, relaxed, stop))
                        for r in routes)
-    return replace(p, horizon=replace(h, start=begin, steps=length), series=series,
-                   storages=storages, routes=routes)
+    return replace(p, horizon=horizon, series=series, storages=storages, routes=routes)
+
+
+def sliced(p: Portfolio, start: int, length: int):
+    """(horizon, series) of the steps ``start .. start + length - 1`` of ``p``."""
+    h = p.horizon
+    begin = (pd.Timestamp(h.start).tz_convert("UTC")
+             + pd.Timedelta(hours=start * h.step_hours)).tz_convert(h.zone)
+    series = {n: replace(s, values=np.asarray(s.values)[start:start + length])
+              for n, s in p.series.items()}
+    return replace(h, start=begin, steps=length), series
 
 
 def _end(end, s: Storage, k: str, stop: int, relaxed, dt: float, after: int, soc0: float,

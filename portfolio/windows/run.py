@@ -27,9 +27,11 @@ from ..model import Portfolio
 from ..solve import ERROR, FEASIBLE, INFEASIBLE, OPTIMAL, Solution, SolveOptions
 from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
 from ..solve.matrix import values_by_family
-from .bound import relax
+from ..compile import expressions as E
+from .bound import Relaxed, relax
 from .cut import window_model
-from .spec import END_VALUE, OPEN, Foresight, Windows, plan
+from .spec import (BOUND_SPLIT, END_VALUE, OPEN, SPLIT_NEEDS, Foresight, Windows, WindowsError,
+                   bound_method, plan)
 from .task import WindowOutcome, WindowTask, solve_window
 
 Spec = Union[Windows, Foresight]
@@ -69,10 +71,20 @@ def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchR
     pieces = plan(spec, T, dt)
     sighted = isinstance(spec, Foresight)
     t0 = time.perf_counter()
-    full = build(p, variant=options.variant)
-    relaxed = relax(full, replace(options, time_limit=None))   # the bound and end values need it whole
-    head = _head(spec, pieces, relaxed)
-    if not relaxed.solved:
+    method = bound_method(spec, p)
+    split = method == BOUND_SPLIT
+    if split and not sighted and (spec.workers > 1 or executor is not None):
+        raise WindowsError(SPLIT_NEEDS, "windows in parallel start from the whole horizon's LP "
+                                        "state of charge, which the bound by pieces ('split') never "
+                                        "solves: use the bound 'whole' with --workers")
+    # split: the whole portfolio only as a layout (no rows) to carry state and tabulate with
+    full = build(p, variant=options.variant, layout_only=split)
+    if split:
+        relaxed = _guide(p, pieces, options) if not sighted else Relaxed("not needed", None, 0.0)
+    else:
+        relaxed = relax(full, replace(options, time_limit=None))   # bound and end values: whole
+    head = _head(spec, pieces, relaxed, method)
+    if not split and not relaxed.solved:
         infeasible = "nfeasible" in relaxed.status
         return _failed(p, full, options, INFEASIBLE if infeasible else ERROR,
                        f"the whole horizon's LP relaxation gave no bound ({relaxed.status})"
@@ -87,7 +99,61 @@ def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchR
         failure = _in_order(run)
     if failure is not None:
         return failure
+    if split:
+        _split_bound(run, head)
     return _stitched(p, full, x, options, head, run.outcomes, t0, run.resolved)
+
+
+def _guide(p: Portfolio, pieces, options: SolveOptions) -> Relaxed:
+    """The value of stored energy at every step where a window ends or commits, by passes
+    over pieces (:func:`.split.guide_values`): the windows' end values when the whole
+    horizon's LP is not solved."""
+    from .split import guide_values
+    T = p.horizon.steps
+    seams = sorted({b for start, commit, length in pieces for b in (start + commit, start + length)
+                    if 0 < b < T})
+    cuts = _pieces(seams, T)
+    t0 = time.perf_counter()
+    sv = guide_values(p, cuts, options=replace(options, time_limit=None))
+    out = Relaxed("seam values by pieces", None, 0.0)
+    for k in p.storages:
+        val = np.full(T, np.nan)
+        got = np.asarray(sv.values.get(k, np.zeros(len(seams))), dtype=float)
+        val[np.asarray(seams, dtype=np.int64) - 1] = np.where(np.isfinite(got), got, 0.0)
+        out.value[k] = val
+    out.seconds = time.perf_counter() - t0
+    return out
+
+
+def _pieces(seams, T: int) -> list:
+    edges = [0] + list(seams) + [T]
+    return [(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
+
+
+def _split_bound(run: _Run, head: dict) -> None:
+    """The bound by pieces of the committed windows (:func:`.split.split_bound`), its seam
+    prices from a backward pass whose LPs start from the stitched schedule (its levels, runs,
+    water on the way); into ``head``."""
+    from .split import seam_values, split_bound
+    t0 = time.perf_counter()
+    p, T = run.p, run.p.horizon.steps
+    cuts = [(o.start, o.start + o.commit) for o in run.outcomes]
+    quiet = replace(run.options, time_limit=None)
+
+    def model_of(start, stop, prices):
+        valued = Relaxed("seam prices", None, 0.0)
+        for k in p.storages:
+            valued.value[k] = np.zeros(T)
+            if prices is not None:
+                valued.value[k][stop - 1] = prices[k]
+        return window_model(p, run.full, run.values, start, stop - start, END_VALUE, valued)
+
+    sv = seam_values(p, cuts, options=quiet, model_of=model_of)
+    sb = split_bound(p, cuts, sv.values, options=quiet)
+    head["lp_bound"] = sb.bound
+    head["lp_seconds"] = float(head["lp_seconds"]) + time.perf_counter() - t0
+    if sb.bound is None:
+        head["bound_note"] = sb.reason
 
 
 @dataclass
@@ -153,7 +219,8 @@ class _Run:
             return _failed(self.p, self.full, self.options, status,
                            f"window {i + 1} of {n} (from {when}) gave {out.status}"
                            + (f": {out.message}" if out.message else "") + why,
-                           _head(self.spec, self.pieces, self.relaxed), self.outcomes, self.t0)
+                           _head(self.spec, self.pieces, self.relaxed,
+                                 bound_method(self.spec, self.p)), self.outcomes, self.t0)
         _place(self.full, self.x, out, out.start)
         if self.progress is not None:
             self.progress(i + 1, n, time.perf_counter() - self.t0,
@@ -161,12 +228,12 @@ class _Run:
         return None
 
 
-def _head(spec, pieces, relaxed) -> dict:
+def _head(spec, pieces, relaxed, method: str) -> dict:
     sighted = isinstance(spec, Foresight)
     return {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": str(spec.end),
             "foresight_h": float(spec.foresight_h) if sighted else None,
             "workers": 1 if sighted else spec.workers, "count": len(pieces),
-            "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
+            "bound_method": method, "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
 
 
 def _lp_values(run: _Run) -> dict:
@@ -411,9 +478,17 @@ def _failed(p, full, options, status, message, head, outcomes, t0) -> DispatchRe
 
 
 def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchResult:
-    """Check the stitched schedule against the WHOLE portfolio's matrix, then tabulate it."""
+    """Check the stitched schedule against the WHOLE portfolio's matrix (with a bound by pieces:
+    each committed piece against its own model, carried-in state read from the stitched
+    schedule, :func:`check_pieces`), then tabulate it."""
     mx = full.matrix
-    viol, where = check_vector(mx, x)
+    split = head["bound_method"] == BOUND_SPLIT
+    bound_note = head.pop("bound_note", "")
+    if split:
+        viol, where = check_pieces(p, full, x, [(o.start, o.commit) for o in outcomes],
+                                   options.variant)
+    else:
+        viol, where = check_vector(mx, x)
     obj = objective(mx, x)
     bound = head["lp_bound"]
     if bound is not None and bound < obj - OBJ_TOL * max(1.0, abs(obj)):
@@ -422,15 +497,21 @@ def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchRe
     ratio = obj / bound if bound is not None and bound > 0 else None
     figures = {"stitched_objective": obj, "gap": g, "ratio_to_bound": ratio, "resolved": resolved,
                "max_violation": viol, "worst": where}
+    what = ("the whole horizon's LP relaxation" if not split else
+            "the LP relaxations of the committed pieces with their seams priced (a bound by "
+            "pieces, docs/windows.md; weaker than the whole horizon's LP)")
     if head["foresight_h"] is not None:
         notes = [f"limited foresight: each of {len(outcomes)} windows committed "
                  f"{head['commit_h']:g} h seeing {head['foresight_h']:g} h, its end "
-                 f"'{head['end']}'; the bound is the whole horizon's LP relaxation (perfect "
-                 f"foresight), which no window read"]
+                 f"'{head['end']}'; the bound is {what} (perfect foresight), which no window read"]
     else:
         notes = [f"dispatched in {len(outcomes)} windows of {head['commit_h']:g} h, each seeing "
-                 f"{head['overlap_h']:g} h more ({head['workers']} at once); the bound is the "
-                 f"whole horizon's LP relaxation"]
+                 f"{head['overlap_h']:g} h more ({head['workers']} at once); the bound is {what}"]
+    if split:
+        notes.append("checked piece by piece: each committed piece against its own model, with "
+                     "the state carried in from the stitched schedule before it")
+    if bound_note:
+        notes.append(f"no bound: {bound_note}")
     if viol > TOL:
         message = (f"the stitched schedule breaks the whole portfolio's model ({where}, by "
                    f"{viol:.3g}); this is a fault of the decomposition, please report it")
@@ -443,10 +524,42 @@ def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchRe
                        solve_seconds=sum(o.seconds for o in outcomes) + head["lp_seconds"],
                        highs_status="windows",
                        certificate={"feasible": True, "max_violation": viol,
-                                    "bound_source": "LP relaxation" if bound is not None else "",
+                                    "bound_source": ("" if bound is None else "LP relaxation"
+                                                     if not split else "LP relaxation by pieces"),
                                     "failures": []})
         full.load_solution(x)
         result = make_result(p, full, sol, status, options, [], "", notes, 0.0)
     result.summary["windows"] = _summary(p, head, outcomes, t0, **figures)
     result.windows = _table(p, outcomes)
     return result
+
+
+def check_pieces(p: Portfolio, full, x: np.ndarray, pieces, variant: str = "tight"):
+    """(worst violation, where) of the schedule ``x`` of the whole portfolio (``full`` may be a
+    layout) checked piece by piece: each ``(start, steps)`` compiled as a window of its own
+    with the state carried in from ``x`` before it (its end free, the last keeping the
+    portfolio's own end), and its slice of ``x`` checked against that matrix.  Every row of
+    the whole model lies in one piece or crosses a seam as carried-in state, so this is the
+    whole check without the whole matrix."""
+    values = values_by_family(full, x)
+    worst, where = 0.0, ""
+    for start, steps in pieces:
+        piece = build(window_model(p, full, values, start, steps, OPEN, None), variant=variant)
+        v, w = check_vector(piece.matrix, _slice(full, piece, x, start, steps))
+        if v > worst:
+            worst, where = v, f"piece from step {start}: {w}"
+    return worst, where
+
+
+def _slice(full, piece, x: np.ndarray, start: int, steps: int) -> np.ndarray:
+    """A piece's columns read from the whole portfolio's vector (what :func:`_place` writes)."""
+    xw = np.zeros(piece.matrix.num_col)
+    for name, (first_w, _) in piece.matrix.var_ranges.items():
+        if name not in full.matrix.var_ranges:
+            raise RuntimeError(f"a piece has a variable family {name!r} the whole horizon does not")
+        first = full.matrix.var_ranges[name][0]
+        blocks = full.var_blocks[name]
+        for asset, at_w in piece.var_blocks[name].items():
+            at = first + blocks[asset] + start
+            xw[first_w + at_w:first_w + at_w + steps] = x[at:at + steps]
+    return xw

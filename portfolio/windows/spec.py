@@ -31,6 +31,13 @@ OPEN = "open"            # (a fallback only) nothing, and no floor either: cut.r
 
 DAY_H = 24.0
 
+# where the bound (and, for perfect foresight, the value of what windows leave in store) comes from
+BOUND_WHOLE = "whole"    # the whole horizon's LP relaxation, solved once (exact, memory ~ the horizon)
+BOUND_SPLIT = "split"    # by pieces (portfolio/windows/split.py): never the whole horizon at once
+BOUND_AUTO = "auto"      # split above SPLIT_ABOVE storage-steps, else whole
+BOUND_METHODS = (BOUND_AUTO, BOUND_WHOLE, BOUND_SPLIT)
+SPLIT_ABOVE = 200_000    # storages x steps: 10 x 8,760 h stays whole, 20 x 35,040 quarter-hours splits
+
 # codes (stable; docs/windows.md)
 NOT_WHOLE = "W001"       # a duration is not a whole number of steps
 TOO_LONG = "W002"        # commit longer than the horizon
@@ -39,6 +46,7 @@ UNREADABLE = "W004"      # a duration text cannot be read
 BAD_END = "W005"         # unknown end-of-window rule
 SHORT_SIGHT = "W006"     # foresight shorter than the commit length, or longer than the horizon
 PIN_OVERLAP = "W007"     # pinned ends with an overlap, or parallel windows without pinned ends
+SPLIT_NEEDS = "W008"     # an unknown bound method, or one by pieces with ends that need the LP's soc
 CODES = {
     NOT_WHOLE: "a window length is not a whole number of steps",
     TOO_LONG: "the commit length is longer than the horizon",
@@ -48,6 +56,9 @@ CODES = {
              "foresight, 'hold', 'free' or a money value per MWh)",
     SHORT_SIGHT: "the foresight is shorter than the commit length, or longer than the horizon",
     PIN_OVERLAP: "windows in parallel need pinned ends, and pinned windows take no overlap",
+    SPLIT_NEEDS: "the bound is not one of 'whole', 'split', 'auto', or it is 'split' (by pieces, no "
+                 "state of charge to aim at) with ends 'target' or 'pin' (and windows in parallel), "
+                 "which need the whole horizon's LP ('whole')",
 }
 
 
@@ -70,6 +81,7 @@ class Windows:
     overlap_h: Optional[float] = None
     end: str = END_VALUE
     workers: int = 1          # windows solved at once (processes); above 1 needs ``end="pin"``
+    bound: str = BOUND_AUTO   # BOUND_WHOLE, BOUND_SPLIT or BOUND_AUTO (:func:`bound_method`)
 
     @property
     def overlap(self) -> float:
@@ -90,6 +102,7 @@ class Foresight:
     foresight_h: float = 2 * DAY_H
     commit_h: float = DAY_H
     end: Union[str, float] = HOLD
+    bound: str = BOUND_AUTO   # the perfect-foresight bound it is compared with (:func:`bound_method`)
 
     @property
     def overlap(self) -> float:
@@ -129,7 +142,29 @@ def plan(spec, steps: int, step_hours: float) -> List[Tuple[int, int, int]]:
     return out
 
 
+def _check_bound(spec) -> None:
+    if spec.bound not in BOUND_METHODS:
+        raise WindowsError(SPLIT_NEEDS, f"unknown bound {spec.bound!r} (use 'whole', 'split' or 'auto')")
+    if spec.bound == BOUND_SPLIT and isinstance(spec, Windows) and spec.end in (END_TARGET, END_PIN):
+        raise WindowsError(SPLIT_NEEDS, f"ends '{spec.end}' aim at the whole horizon's LP state of "
+                                        f"charge, which the bound by pieces ('split') never solves: "
+                                        f"use ends 'value' with it, or the bound 'whole'")
+
+
+def bound_method(spec, p) -> str:
+    """BOUND_WHOLE or BOUND_SPLIT for ``spec`` on ``p``: as asked, or with ``auto`` split when the
+    horizon has more than :data:`SPLIT_ABOVE` storage-steps (and the ends do not need the whole
+    LP's state of charge)."""
+    if spec.bound != BOUND_AUTO:
+        return spec.bound
+    if isinstance(spec, Windows) and spec.end in (END_TARGET, END_PIN):
+        return BOUND_WHOLE
+    size = max(1, len(p.storages)) * p.horizon.steps
+    return BOUND_SPLIT if size > SPLIT_ABOVE else BOUND_WHOLE
+
+
 def _check_windows(spec: Windows) -> None:
+    _check_bound(spec)
     if spec.end not in END_MODES:
         raise WindowsError(BAD_END, f"unknown end-of-window rule {spec.end!r} (use 'value', 'target' "
                                     f"or 'pin')")
@@ -147,6 +182,7 @@ def _check_windows(spec: Windows) -> None:
 
 
 def _check_foresight(spec: Foresight, steps: int, step_hours: float) -> None:
+    _check_bound(spec)
     end = spec.end
     if isinstance(end, bool) or not (end in (HOLD, FREE) or (
             isinstance(end, (int, float)) and math.isfinite(end))):

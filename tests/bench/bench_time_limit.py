@@ -26,9 +26,12 @@ from portfolio.dispatch import dispatch  # noqa: E402
 from portfolio.solve import SolveOptions  # noqa: E402
 
 
-def portfolio(n: int, hours: int, seed: int = 3):
+def portfolio(n: int, hours: int, seed: int = 3, step_minutes: int = 60):
+    """The fleet over ``hours`` steps of ``step_minutes`` (60: hours; 15: quarter-hours, the
+    price a function of the hour of day as before plus noise per step)."""
     rng = np.random.default_rng(seed)
-    t = np.arange(hours)
+    dt = step_minutes / 60.0
+    t = np.arange(hours) * dt
     price = (50 + 18 * np.sin(2 * np.pi * (t - 7) / 24) + 8 * np.sin(2 * np.pi * t / (24 * 7))
              + 10 * np.sin(2 * np.pi * t / (24 * 365)) + rng.normal(0, 7, hours))
     stores = [F.storage(f"b{j}", site=f"site{j % 3}", energy=8.0 + j % 3, power=4.0,
@@ -38,7 +41,7 @@ def portfolio(n: int, hours: int, seed: int = 3):
     sites = [F.site(f"site{i}", import_max=10.0, export_max=10.0) for i in range(3)]
     conn = F.connection(sell=F.price("p"), buy=F.price("p", adder=3.0), export_max=25.0,
                         import_max=25.0)
-    return F.portfolio(hours, storages=stores, sites=sites, connections=[conn],
+    return F.portfolio(hours, step_hours=dt, storages=stores, sites=sites, connections=[conn],
                        series_list=[F.series("p", np.round(price, 2), "price")])
 
 

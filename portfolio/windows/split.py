@@ -112,13 +112,22 @@ def piece_model(p: Portfolio, start: int, stop: int, end_value: Optional[Dict[st
     return replace(p, horizon=horizon, series=series, storages=storages, routes=routes)
 
 
+def without_rules(p: Portfolio) -> Portfolio:
+    """``p`` without its binary rules (exclusive modes, minimum run and rest, minimum
+    output): a plain LP, many times faster to solve than the relaxation with them, for
+    prices only (any prices give a valid bound)."""
+    return replace(p, storages={k: replace(s, exclusive=False, min_run_h=0.0, min_rest_h=0.0,
+                                           charge_min=0.0, discharge_min=0.0)
+                                for k, s in p.storages.items()})
+
+
 def _finite(v: float) -> float:
     return float(v) if math.isfinite(v) else 0.0
 
 
 def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str, np.ndarray]] = None,
                 options: Optional[SolveOptions] = None,
-                seconds: Optional[float] = None, model_of=None) -> SeamValues:
+                seconds: Optional[float] = None, model_of=None, rules: bool = False) -> SeamValues:
     """The price of stored energy at each seam by a backward pass (module docstring).
 
     The price at the seam between pieces j and j+1 is the dual of the balance row there in
@@ -129,7 +138,10 @@ def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str
     LP; ``model_of(start, stop, prices)``: the portfolio of those steps with its end
     valued at ``prices`` (None: the horizon's own end), for a caller that knows more of
     what comes in at ``start`` than a level (a schedule before it: ``run._split_bound``);
-    ``states`` is then not read.  No whole-horizon model is built.
+    ``states`` is then not read.  ``rules``: keep the binary rules in these LPs (their
+    relaxation); by default they are left out (:func:`without_rules`: the prices are
+    guidance, and with minimum runs of many steps the LPs with them take ten times as
+    long).  No whole-horizon model is built.
     """
     t0 = time.perf_counter()
     T = p.horizon.steps
@@ -151,6 +163,8 @@ def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str
                           else s.soc_start) for k, s in p.storages.items()}
             model = piece_model(p, start, stop, end_value=after, soc_start=at,
                                 transit=_transit(p, after) if after is not None else None)
+        if not rules:
+            model = without_rules(model)
         rel = relax(build(model, variant=variant), options, seconds)
         statuses.append(rel.status)
         if rel.solved:
@@ -179,15 +193,15 @@ def guide_values(p: Portfolio, pieces: Sequence[Piece], options: Optional[SolveO
 
 def _forward(p: Portfolio, pieces: Sequence[Piece], values: Dict[str, np.ndarray], options,
              seconds, statuses: List[str]) -> Dict[str, np.ndarray]:
-    """Per storage its level at each seam along piece LPs solved in order (where a piece
-    gives no schedule, the level it started from)."""
+    """Per storage its level at each seam along piece LPs (without the binary rules) solved
+    in order (where a piece gives no schedule, the level it started from)."""
     n = len(pieces)
     states = {k: np.zeros(max(n - 1, 0)) for k in p.storages}
     at = {k: s.soc_start for k, s in p.storages.items()}
     for j, (start, stop) in enumerate(pieces[:-1]):
         prices = {k: _finite(values[k][j]) for k in p.storages}
-        model = piece_model(p, start, stop, end_value=prices, soc_start=at,
-                            transit=_transit(p, prices))
+        model = without_rules(piece_model(p, start, stop, end_value=prices, soc_start=at,
+                                          transit=_transit(p, prices)))
         rel = relax(build(model, variant=(options or SolveOptions()).variant), options, seconds)
         statuses.append(rel.status)
         for k in p.storages:

@@ -20,6 +20,7 @@ callback.
 from __future__ import annotations
 
 import json
+import math
 import os
 import time
 from dataclasses import dataclass, replace
@@ -35,6 +36,10 @@ CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
 ID_LENGTH = 16             # hex digits of the case key naming its folder
+MAX_CHUNK = 16             # cases a task at most when the runner chooses (chunk_sizes)
+GUIDED = 2                 # a task takes 1/(GUIDED x workers) of the cases left
+START_METHOD = "forkserver"  # how our local cluster's workers start (local_cluster)
+FORKSERVER_PRELOAD = ("distributed", "portfolio.study.worker", "portfolio.dispatch", "portfolio.windows")
 PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
@@ -117,11 +122,8 @@ def _assets(summary: dict) -> dict:
 
 
 def _worker() -> str:
-    try:
-        from distributed import get_worker
-        return get_worker().address
-    except (ImportError, ValueError):
-        return "in-process"
+    w = _current_worker()
+    return w.address if w is not None else "in-process"
 
 
 # ---- the folder ----------------------------------------------------------------------
@@ -184,10 +186,11 @@ def run_serial(p: M.Portfolio, study: M.Study, options) -> List[dict]:
 
 def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, scheduler: Optional[str] = None,
               workers: Optional[int] = None, schedules: bool = False,
-              progress: Optional[Progress] = None) -> Dict[str, object]:
+              progress: Optional[Progress] = None, chunk: Optional[int] = None) -> Dict[str, object]:
     """Run the cases not yet done into ``out_dir``; returns ``{"rows": [...], "solved": n,
     "skipped": n, "failed": n, "sent_bytes": n}`` (rows in case order, done before or now)."""
     out_dir = Path(out_dir)
+    chunk_sizes(1, 1, chunk)          # a bad chunk is refused before anything starts
     problem = check_folder(out_dir, p)
     if problem:
         raise StudyError(problem)
@@ -212,32 +215,154 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
         try:
             shared = replace(p, studies={})       # the study goes on its own: scenario series
             sent = _size(shared) + _size(study)
-            pf = client.scatter(shared, broadcast=True)
-            sf = client.scatter(study, broadcast=True)
             by_key: Dict[str, List[Planned]] = {}
             for pl in todo:                    # cases with the same inputs are solved once
-                by_key.setdefault(f"case-{pl.key}", []).append(pl)
-            keys = list(by_key)
-            sched = [str(case_dir(out_dir, by_key[k][0]) / SCHEDULE_DIR) if schedules else None for k in keys]
-            n = len(keys)
-            # one message for every task (client.map), and the rows gathered as tasks finish
-            # (as_completed with_results): Dask's own cost per task is then a few milliseconds
-            # (docs/performance.md, "Studies")
-            futures = client.map(solve_case, [pf] * n, [sf] * n, [by_key[k][0].case for k in keys],
-                                 [options] * n, sched, key=keys, pure=False, retries=0)
-            from distributed import as_completed
-            for fut, got in as_completed(futures, with_results=True, raise_errors=False):
-                row = got if fut.status == "finished" and isinstance(got, dict) else _lost(fut, got)
-                for pl in by_key.pop(fut.key):
+                by_key.setdefault(pl.key, []).append(pl)
+
+            def arrived(key: str, row: dict) -> None:
+                nonlocal done, failed
+                same = by_key.pop(key, ())         # none: seen before (its event, then its chunk's end)
+                for pl in same:
                     rows[pl.case.index] = record(out_dir, pl, row)
                     done += 1
                     failed += row["status"] not in ("optimal", "feasible")
-                tell(done, failed, skipped, total)
+                if same:
+                    tell(done, failed, skipped, total)
+
+            _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
+                        chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
         finally:
             if own is not None:
                 _stop(client, own)
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
+
+
+def chunk_sizes(n: int, workers: int, chunk: Optional[int] = None) -> List[int]:
+    """How many cases each task takes, in the order the tasks are submitted.
+
+    ``chunk`` given: that many a task (the last takes the rest).  None: guided sizes, each
+    task a ``GUIDED``-th of the cases left divided by the workers, at most ``MAX_CHUNK``, so
+    the tasks come large first and single cases last: Dask's cost per task (a few ms) is paid
+    a few times a worker rather than once a case, and the last tasks, short, keep every worker
+    busy to the end (Dask starts tasks in the order they were submitted)."""
+    if n <= 0:
+        return []
+    if chunk is not None:
+        if not isinstance(chunk, int) or chunk < 1:
+            raise StudyError(f"chunk must be a whole number of cases from 1 up, got {chunk!r}")
+        return [chunk] * (n // chunk) + ([n % chunk] if n % chunk else [])
+    sizes, left = [], n
+    while left:
+        k = min(MAX_CHUNK, left, max(1, math.ceil(left / (GUIDED * max(1, workers)))))
+        sizes.append(k)
+        left -= k
+    return sizes
+
+
+def _threads(client, workers: Optional[int]) -> int:
+    """The cases that can run at once on ``client``'s cluster (its workers' threads)."""
+    try:
+        info = client.scheduler_info()
+        return max(1, sum(int(w.get("nthreads", 1)) for w in info.get("workers", {}).values()))
+    except Exception:          # a scheduler that does not say: the workers asked for, else one
+        return workers or 1
+
+
+def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, List[Planned]], options,
+                out_dir: Optional[Path], sizes: List[int], arrived: Callable[[str, dict], None]) -> None:
+    """Send the cases of ``by_key`` to ``client`` in tasks of ``sizes`` cases and call
+    ``arrived(key, row)`` in this thread as each case finishes.
+
+    A chunk's task (:func:`solve_chunk`) sends each case's row as an event on a topic of
+    this run as soon as the case is done (``Worker.log_event``; the scheduler forwards it
+    to this client, which subscribed before submitting), and returns every row at its
+    end: a row whose event was late or lost arrives then.  A task that returns no rows (a
+    worker lost) makes a ``lost`` row for each of its cases not yet arrived."""
+    import queue
+    import uuid
+
+    keys = list(by_key)
+    groups, at = [], 0
+    for k in sizes:
+        groups.append(keys[at:at + k])
+        at += k
+    pf = client.scatter(shared, broadcast=True)
+    sf = client.scatter(study, broadcast=True)
+    topic = f"portfolio-study-{uuid.uuid4().hex}"
+    inbox: "queue.SimpleQueue" = queue.SimpleQueue()
+    client.subscribe_topic(topic, lambda event: inbox.put(("row", event[1])))
+    try:
+        n = len(groups)
+        cases_of = [[(k, by_key[k][0].case) for k in g] for g in groups]
+        sched = [[str(case_dir(out_dir, by_key[k][0]) / SCHEDULE_DIR) if out_dir is not None else None for k in g]
+                 for g in groups]
+        names = [f"cases-{g[0][:ID_LENGTH]}-{len(g)}" for g in groups]
+        # one message for every task (client.map); rows back as events; docs/performance.md
+        futures = client.map(solve_chunk, [pf] * n, [sf] * n, cases_of, [options] * n, sched, [topic] * n,
+                             key=names, pure=False, retries=0)
+        members = dict(zip(names, groups))
+        for fut in futures:
+            fut.add_done_callback(lambda f: inbox.put(("end", f)))
+        while members:
+            try:
+                what, x = inbox.get(timeout=0.5)   # a timeout so that a Ctrl-C is seen here
+            except queue.Empty:
+                continue
+            if what == "row":
+                arrived(*x)
+                continue
+            got = None
+            if x.status == "finished":
+                try:
+                    got = x.result()
+                except Exception as e:    # it went away between its end and this gather
+                    got = e
+            if isinstance(got, list):
+                for key, row in got:
+                    arrived(key, row)
+            else:
+                lost = _lost(x, got)
+                for key in members[x.key]:
+                    arrived(key, lost)
+            del members[x.key]
+    finally:
+        try:
+            client.unsubscribe_topic(topic)
+        except Exception:        # the client already closed (a Ctrl-C on its way)
+            pass
+
+
+def solve_chunk(p: M.Portfolio, study: M.Study, keyed: List[tuple], options, schedule_dirs: List[Optional[str]],
+                topic: Optional[str] = None) -> List[tuple]:
+    """A task of several cases: ``[(key, row), ...]`` of :func:`solve_case`, one after the
+    other; each row also goes out as an event on ``topic`` as soon as its case is done, so
+    that the client records it then rather than at the chunk's end."""
+    out = []
+    worker = _current_worker() if topic else None
+    for (key, case), folder in zip(keyed, schedule_dirs):
+        row = _plain(solve_case(p, study, case, options, folder))
+        out.append((key, row))
+        if worker is not None:
+            try:
+                worker.log_event(topic, (key, row))
+            except Exception:     # the chunk's return carries the row all the same
+                pass
+    return out
+
+
+def _plain(row: dict) -> dict:
+    """``row`` as JSON data (numbers from numpy become floats): what an event may carry and
+    what case.json stores."""
+    return json.loads(json.dumps(row, default=float))
+
+
+def _current_worker():
+    try:
+        from distributed import get_worker
+        return get_worker()
+    except (ImportError, ValueError):
+        return None
 
 
 def _lost(fut, got) -> dict:
@@ -276,17 +401,39 @@ def _start(scheduler: Optional[str], workers: Optional[int]):
     return (cluster,), Client(cluster)
 
 
-def local_cluster(workers: int):
+def local_cluster(workers: int, method: Optional[str] = None):
     """The local cluster a study starts: ``workers`` processes of one thread on 127.0.0.1, the
     scheduler's HTTP server (no dashboard) on a free port of 127.0.0.1 (a fixed port in use would
     make Dask warn on stderr), the workers preloaded with :mod:`portfolio.study.worker` (they
-    ignore Ctrl-C: the process that started them closes them) and their logs silenced."""
+    ignore Ctrl-C: the process that started them closes them) and their logs silenced.
+
+    ``method`` (default :data:`START_METHOD`) is how the worker processes start
+    (Dask's ``distributed.worker.multiprocessing-method``): ``forkserver`` forks them from a
+    fresh single-threaded server process that imported Dask and the dispatch pipeline once
+    (:data:`FORKSERVER_PRELOAD`), where ``spawn`` has each worker start an interpreter and
+    import all of it again, and ``fork`` copies this process, threads held locks and all
+    (docs/performance.md, "Studies on Dask")."""
     import logging
 
+    import dask
     from distributed import LocalCluster
-    return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
-                        dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
-                        silence_logs=logging.CRITICAL, preload=[PRELOAD])
+    method = method or START_METHOD
+    if method not in ("forkserver", "spawn", "fork"):
+        raise StudyError(f"unknown start method '{method}' (forkserver, spawn or fork)")
+    with dask.config.set({"distributed.worker.multiprocessing-method": method}):
+        if method == "forkserver":
+            _preload_forkserver()
+        return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+                            dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
+                            silence_logs=logging.CRITICAL, preload=[PRELOAD])
+
+
+def _preload_forkserver() -> None:
+    """Have multiprocessing's fork server (started once a process, at its first use) import
+    what a worker needs, so that each worker forked from it starts with it imported."""
+    from distributed.utils import get_mp_context
+    ctx = get_mp_context()       # Dask's own preload list is set here, once; ours replaces it
+    ctx.set_forkserver_preload(list(FORKSERVER_PRELOAD))
 
 
 def _stop(client, own) -> None:

@@ -88,7 +88,11 @@ def main():
     ap.add_argument("--cases", type=int, default=200)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--rounds", type=int, default=2, help="serial and study runs, alternating")
+    ap.add_argument("--method", choices=("forkserver", "spawn", "fork"), default=None,
+                    help="how the local cluster's workers start (default: the runner's, START_METHOD)")
     args = ap.parse_args()
+    if args.method:
+        sys.modules["portfolio.study.run"].START_METHOD = args.method   # the module (portfolio.study.run is a function)
     tmp = Path(tempfile.mkdtemp(prefix="bench-study-"))
     try:
         src = tmp / "bench_study.folio"
@@ -108,6 +112,7 @@ def main():
                   f"CPU {f['serial_cpu']:.2f} s) | study {f['study']:.2f} s (ratio {f['study'] / f['serial']:.2f}) | "
                   f"cluster up: start {f['up']:.2f} s, study {f['warm']:.2f} s (ratio {f['warm'] / f['serial']:.2f}), "
                   f"CPU: tool+scheduler {f['client_cpu']:.2f} s, workers {f['worker_cpu']:.2f} s | "
+                  f"cluster up, one case a task {f['single']:.2f} s (ratio {f['single'] / f['serial']:.2f}) | "
                   f"tasks' own wall {f['task_wall']:.2f} s summed | same objectives {f['same']} | "
                   f"load {os.getloadavg()[0]:.2f}")
         med = {k: float(np.median([f[k] for f in rounds])) for k in rounds[0] if k not in ("same", "seen", "transfers")}
@@ -138,6 +143,7 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     serial = [dispatch(apply(p, study, c), options).objective for c in every]
     out["serial"], out["serial_cpu"] = time.perf_counter() - t0, time.process_time() - c0
 
+    _stop_forkserver()             # each study with its own cluster pays the fork server's start
     t0 = time.perf_counter()
     got = run(p, "sweep", folder / "study", options, workers=workers, plots=False)
     out["study"] = time.perf_counter() - t0
@@ -163,6 +169,10 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     after = client.run(time.process_time)
     out["worker_cpu"] = sum(after[w] - before[w] for w in after)
     out["same"] = out["same"] and warm.frame["objective"].equals(got.frame["objective"])
+    t0 = time.perf_counter()
+    single = run(p, "sweep", folder / "single", options, client=client, plots=False, chunk=1)
+    out["single"] = time.perf_counter() - t0
+    out["same"] = out["same"] and single.frame["objective"].equals(got.frame["objective"])
     out["transfers"] = sum(client.run(_transfers).values())
     out["seen"] = seen
     client.close()
@@ -170,10 +180,19 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     return out
 
 
+def _stop_forkserver() -> None:
+    """Stop multiprocessing's fork server if one runs (started by the last study), so that
+    the next study starts its own, as a command run by a user does."""
+    from multiprocessing import forkserver
+    server = getattr(forkserver, "_forkserver", None)
+    if server is not None and hasattr(server, "_stop"):
+        server._stop()
+
+
 def _copies(dask_scheduler=None):
-    """On the scheduler: how many workers hold each scattered key (the keys not named case-...)."""
+    """On the scheduler: how many workers hold each scattered key (the keys not named cases-...)."""
     s = dask_scheduler
-    held = [len(ts.who_has or ()) for key, ts in s.tasks.items() if not str(key).startswith("case-")]
+    held = [len(ts.who_has or ()) for key, ts in s.tasks.items() if not str(key).startswith("cases-")]
     return {"copies": sorted(held), "workers": len(s.workers)}
 
 

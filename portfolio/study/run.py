@@ -40,6 +40,11 @@ MAX_CHUNK = 16             # cases a task at most when the runner chooses (chunk
 GUIDED = 2                 # a task takes 1/(GUIDED x workers) of the cases left
 START_METHOD = "forkserver"  # how our local cluster's workers start (local_cluster)
 FORKSERVER_PRELOAD = ("distributed", "portfolio.study.worker", "portfolio.dispatch", "portfolio.windows")
+# Dask's background work in our local cluster's processes, slowed where nothing reads it (no
+# dashboard): the statistical profiler that samples each task every 10 ms, the event loop's
+# 20 ms tick and the 500 ms system monitor (docs/performance.md, "Studies on Dask")
+QUIET = {"distributed.worker.profile.enabled": False, "distributed.admin.tick.interval": "1s",
+         "distributed.admin.system-monitor.interval": "2s"}
 PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
@@ -196,6 +201,8 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
         raise StudyError(problem)
     (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
     _mark(out_dir, p)
+    if client is None and scheduler is None:
+        warm()                       # our workers' fork server imports while the cases are planned
     planned = plan(p, study, options)
     rows: Dict[int, dict] = {}
     todo = []
@@ -420,20 +427,30 @@ def local_cluster(workers: int, method: Optional[str] = None):
     method = method or START_METHOD
     if method not in ("forkserver", "spawn", "fork"):
         raise StudyError(f"unknown start method '{method}' (forkserver, spawn or fork)")
-    with dask.config.set({"distributed.worker.multiprocessing-method": method}):
+    with dask.config.set({"distributed.worker.multiprocessing-method": method, **QUIET}):
         if method == "forkserver":
-            _preload_forkserver()
+            warm(method)
         return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
                             dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
                             silence_logs=logging.CRITICAL, preload=[PRELOAD])
 
 
-def _preload_forkserver() -> None:
-    """Have multiprocessing's fork server (started once a process, at its first use) import
-    what a worker needs, so that each worker forked from it starts with it imported."""
+def warm(method: Optional[str] = None) -> None:
+    """Start multiprocessing's fork server now (once a process), importing what a worker
+    needs, so that each worker forked from it later starts with it imported; called before
+    the cases are planned, the server's imports run meanwhile.  Nothing for other methods."""
+    if (method or START_METHOD) != "forkserver":
+        return
+    import multiprocessing
+    from multiprocessing import forkserver
+
+    import dask
     from distributed.utils import get_mp_context
-    ctx = get_mp_context()       # Dask's own preload list is set here, once; ours replaces it
+    with dask.config.set({"distributed.worker.multiprocessing-method": "forkserver"}):
+        ctx = get_mp_context()   # Dask's own preload list is set here, once; ours replaces it
     ctx.set_forkserver_preload(list(FORKSERVER_PRELOAD))
+    if multiprocessing.parent_process() is None:     # not from inside a worker
+        forkserver.ensure_running()
 
 
 def _stop(client, own) -> None:

@@ -124,7 +124,8 @@ def test_local_cluster_gives_the_serial_table(tmp_path):
     assert np.allclose(df["objective"], want, rtol=0, atol=1e-9)
     assert list(df["cells energy [MWh]"]) == [2, 2, 2, 2, 4, 4, 4, 4]
     assert list(df["spot scenario"]) == ["low", "high"] * 4
-    assert df["worker"].str.startswith("tcp://127.0.0.1:").all()
+    # this process solves cases while its cluster starts (all 8, as small as these): the rest, the workers
+    assert (df["worker"].str.startswith("tcp://127.0.0.1:") | (df["worker"] == "in-process")).all()
     # net value per asset adds up to the objective (no wear, no demand): the columns are the case's own
     assert np.allclose(df["net value cells"], df["objective"], atol=1e-6)
     back = pd.read_csv(tmp_path / "out" / "cases.csv")
@@ -151,6 +152,7 @@ def test_any_chunk_size_and_start_method_gives_the_serial_table(tmp_path, chunk,
                   progress=lambda done, failed, skipped, total: seen.append(done))
     assert np.allclose(got.frame["objective"], want, rtol=0, atol=1e-9)
     assert list(got.frame["spot scenario"]) == ["low", "high"] * 4
+    assert got.frame["worker"].str.startswith("tcp://127.0.0.1:").all()     # a client given: all on it
     assert seen == list(range(9))        # told once a case, whatever the chunk
     ids = sorted(f.parent.name for f in (tmp_path / "out" / CASES_DIR).glob(f"*/{CASE_FILE}"))
     assert ids == sorted(got.frame["case"])

@@ -36,6 +36,7 @@ CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
 ID_LENGTH = 16             # hex digits of the case key naming its folder
+SMALL_CASE = 2000          # steps x storages of a case this process solves while its cluster starts
 MAX_CHUNK = 16             # cases a task at most when the runner chooses (chunk_sizes)
 GUIDED = 2                 # a task takes 1/(GUIDED x workers) of the cases left
 START_METHOD = "forkserver"  # how our local cluster's workers start (local_cluster)
@@ -218,31 +219,90 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     tell = progress or (lambda *a: None)
     tell(0, 0, skipped, total)
     if todo:
-        own, client = (None, client) if client is not None else _start(scheduler, workers)
+        by_key: Dict[str, List[Planned]] = {}
+        for pl in todo:                        # cases with the same inputs are solved once
+            by_key.setdefault(pl.key, []).append(pl)
+
+        def arrived(key: str, row: dict) -> None:
+            nonlocal done, failed
+            same = by_key.pop(key, ())         # none: seen before (its event, then its chunk's end)
+            for pl in same:
+                rows[pl.case.index] = record(out_dir, pl, row)
+                done += 1
+                failed += row["status"] not in ("optimal", "feasible")
+            if same:
+                tell(done, failed, skipped, total)
+
+        starting = _Starting(scheduler, workers) if client is None else None
         try:
+            if starting is not None:
+                if scheduler is None and small(p):
+                    _meanwhile(starting, p, study, by_key, options, out_dir if schedules else None, arrived)
+                client = starting.client()
             shared = replace(p, studies={})       # the study goes on its own: scenario series
             sent = _size(shared) + _size(study)
-            by_key: Dict[str, List[Planned]] = {}
-            for pl in todo:                    # cases with the same inputs are solved once
-                by_key.setdefault(pl.key, []).append(pl)
-
-            def arrived(key: str, row: dict) -> None:
-                nonlocal done, failed
-                same = by_key.pop(key, ())         # none: seen before (its event, then its chunk's end)
-                for pl in same:
-                    rows[pl.case.index] = record(out_dir, pl, row)
-                    done += 1
-                    failed += row["status"] not in ("optimal", "feasible")
-                if same:
-                    tell(done, failed, skipped, total)
-
-            _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
-                        chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
+            if by_key:
+                _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
+                            chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
         finally:
-            if own is not None:
-                _stop(client, own)
+            if starting is not None:
+                starting.stop()
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
+
+
+def small(p: M.Portfolio) -> bool:
+    """Whether ``p``'s cases are small enough for this process to solve some while its local
+    cluster starts: one MILP each (no windows), at most :data:`SMALL_CASE` steps x storages."""
+    from ..windows import by_default
+    return by_default(p) is None and p.horizon.steps * max(1, len(p.storages)) <= SMALL_CASE
+
+
+class _Starting:
+    """A cluster starting (:func:`_start`) in a thread of its own, so that this process
+    can solve cases meanwhile."""
+
+    def __init__(self, scheduler: Optional[str], workers: Optional[int]):
+        import threading
+        self._got: tuple = ()
+        self._error: Optional[BaseException] = None
+        self._thread = threading.Thread(target=self._run, args=(scheduler, workers), daemon=True,
+                                        name="portfolio-study-start")
+        self._thread.start()
+
+    def _run(self, scheduler, workers) -> None:
+        try:
+            self._got = _start(scheduler, workers)
+        except BaseException as e:     # handed to the thread that waits for the client
+            self._error = e
+
+    def ready(self) -> bool:
+        return not self._thread.is_alive()
+
+    def client(self):
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+        return self._got[1]
+
+    def stop(self) -> None:
+        """Close what was started (once it has started: a start is not cut short)."""
+        self._thread.join()
+        if self._got:
+            _stop(self._got[1], self._got[0])
+
+
+def _meanwhile(starting: _Starting, p: M.Portfolio, study: M.Study, by_key: Dict[str, List[Planned]], options,
+               out_dir: Optional[Path], arrived: Callable[[str, dict], None]) -> None:
+    """Solve cases in this process, the last ones first (those the chunks would give out
+    last, alone), one at a time until the cluster is up: the start's second or so is then
+    not lost to the study (docs/studies.md).  A row is recorded as :func:`solve_chunk`'s."""
+    for key in reversed(list(by_key)):
+        if starting.ready():
+            return
+        pl = by_key[key][0]
+        folder = str(case_dir(out_dir, pl) / SCHEDULE_DIR) if out_dir is not None else None
+        arrived(key, _plain(solve_case(p, study, pl.case, options, folder)))
 
 
 def chunk_sizes(n: int, workers: int, chunk: Optional[int] = None) -> List[int]:
@@ -450,7 +510,14 @@ def warm(method: Optional[str] = None) -> None:
         ctx = get_mp_context()   # Dask's own preload list is set here, once; ours replaces it
     ctx.set_forkserver_preload(list(FORKSERVER_PRELOAD))
     if multiprocessing.parent_process() is None:     # not from inside a worker
-        forkserver.ensure_running()
+        # born ignoring SIGINT (it survives exec; Python installs no handler over it): a
+        # terminal's Ctrl-C reaches the whole process group, and the server, busy with its
+        # imports for a second, would print a traceback; the workers forked from it ignore
+        # it from their first instruction too.  This process ignores it only while the
+        # server forks and execs (the windows' pool does the same).
+        from ..windows.run import _children_ignore_ctrl_c
+        with _children_ignore_ctrl_c(True):
+            forkserver.ensure_running()
 
 
 def _stop(client, own) -> None:

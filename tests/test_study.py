@@ -201,6 +201,47 @@ def test_a_chunk_writes_each_case_as_it_finishes(tmp_path):
     assert np.allclose(df["objective"], _serial_objectives(loaded.model), rtol=0, atol=1e-9)
 
 
+def test_a_worker_lost_mid_chunk_loses_only_the_case_it_was_solving(tmp_path):
+    """One task of all 8 cases; the worker's process dies (os._exit) in the 3rd case.  With
+    Dask told not to run a task again after a death (allowed-failures 0), the chunk is lost:
+    cases 1-2 have their rows already, case 3 is recorded lost (a re-run solves it), and
+    cases 4-8, never started, go out again on the worker the nanny restarts."""
+    import dask
+    from distributed import Client
+
+    from portfolio.study.run import finished, local_cluster, plan
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    out = tmp_path / "out"
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        with local_cluster(1) as cluster, Client(cluster) as client:
+            client.run(_die_in_case, 3)
+            df = run(loaded.model, "sizes", out, OPTIONS, client=client, chunk=8, plots=False).frame
+    assert list(df["status"]) == ["optimal"] * 2 + ["error"] + ["optimal"] * 5
+    assert df["objective"].isna().tolist() == [False] * 2 + [True] + [False] * 5
+    want = _serial_objectives(loaded.model)
+    ok = df["status"] == "optimal"
+    assert np.allclose(df["objective"][ok], np.array(want)[ok.to_numpy()], rtol=0, atol=1e-9)
+    assert df["worker"][0] != df["worker"][3]          # the rest ran on the restarted worker
+    planned = plan(loaded.model, loaded.model.studies["sizes"], OPTIONS)
+    assert finished(out, planned[2], False) is None   # lost: a re-run solves it again
+    assert finished(out, planned[3], False)["status"] == "optimal"
+
+
+def _die_in_case(n):
+    """On a worker: its ``n``-th case, once solved, ends the worker's process."""
+    runner = sys.modules["portfolio.study.run"]
+    original, calls = runner.solve_case, [0]
+
+    def dying(*args, **kw):
+        calls[0] += 1
+        row = original(*args, **kw)      # solved first: the row before it has left meanwhile
+        if calls[0] == n:                # (one left the instant before a death could be lost
+            os._exit(1)                  # and that case taken for the running one)
+        return row
+
+    runner.solve_case = dying
+
+
 def _hold_case(n):
     """On a worker: the study's ``n``-th case (counted on this worker) waits for :func:`_let_go`."""
     import threading

@@ -2,19 +2,24 @@
 
 :func:`run_study` runs every case of a study on a Dask cluster: a
 ``distributed.LocalCluster`` (processes, one worker a core, no dashboard,
-127.0.0.1 only) that it starts and stops, an existing scheduler's address,
+127.0.0.1 only, the workers forked from a fork server that imported the
+pipeline once) that it starts and stops, an existing scheduler's address,
 or a ``distributed.Client`` the caller holds.  The checked model goes to the
-workers once (``client.scatter(..., broadcast=True)``); a task carries only
-its case (a few numbers and names).  Each finished case is written as it
-arrives, atomically (``DIR/cases/<case id>/case.json``, and with schedules
-its output folder beside it), so a killed study loses no finished case; a
-re-run skips every case whose key (:func:`portfolio.study.cases.case_key`)
-is unchanged.  A case that fails (infeasible, an error) is recorded with its
-status and message and the others go on.
+workers once (``client.scatter(..., broadcast=True)``); a task carries a
+chunk of cases (:func:`chunk_sizes`: large first, single cases last), each a
+few numbers and names, and sends each case's row back as soon as the case is
+done (an event the client subscribed to) as well as all of them at its end.
+Each finished case is written as it arrives, atomically
+(``DIR/cases/<case id>/case.json``, and with schedules its output folder
+beside it), so a killed study loses no finished case; a re-run skips every
+case whose key (:func:`portfolio.study.cases.case_key`) is unchanged.  A case
+that fails (infeasible, an error) is recorded with its status and message
+and the others go on, those of its chunk too.  While its own local cluster
+starts, this process solves small cases itself (:func:`small`).
 
-:func:`solve_case` is the task; a serial loop over it (:func:`run_serial`)
-gives the same rows without Dask.  Nothing here prints: progress goes to a
-callback.
+:func:`solve_case` is a case; :func:`solve_chunk` the task; a serial loop over
+the cases (:func:`run_serial`) gives the same rows without Dask.  Nothing
+here prints: progress goes to a callback.
 """
 
 from __future__ import annotations
@@ -301,8 +306,7 @@ def _meanwhile(starting: _Starting, p: M.Portfolio, study: M.Study, by_key: Dict
         if starting.ready():
             return
         pl = by_key[key][0]
-        folder = str(case_dir(out_dir, pl) / SCHEDULE_DIR) if out_dir is not None else None
-        arrived(key, _plain(solve_case(p, study, pl.case, options, folder)))
+        arrived(key, _plain(solve_case(p, study, pl.case, options, _schedule(out_dir, pl))))
 
 
 def chunk_sizes(n: int, workers: int, chunk: Optional[int] = None) -> List[int]:
@@ -345,7 +349,8 @@ def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, L
     this run as soon as the case is done (``Worker.log_event``; the scheduler forwards it
     to this client, which subscribed before submitting), and returns every row at its
     end: a row whose event was late or lost arrives then.  A task that returns no rows (a
-    worker lost) makes a ``lost`` row for each of its cases not yet arrived."""
+    worker lost) makes a ``lost`` row for the case it was solving, and its cases not yet
+    started go out again in a task of their own."""
     import queue
     import uuid
 
@@ -362,13 +367,13 @@ def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, L
     try:
         n = len(groups)
         cases_of = [[(k, by_key[k][0].case) for k in g] for g in groups]
-        sched = [[str(case_dir(out_dir, by_key[k][0]) / SCHEDULE_DIR) if out_dir is not None else None for k in g]
-                 for g in groups]
+        sched = [[_schedule(out_dir, by_key[k][0]) for k in g] for g in groups]
         names = [f"cases-{g[0][:ID_LENGTH]}-{len(g)}" for g in groups]
         # one message for every task (client.map); rows back as events; docs/performance.md
         futures = client.map(solve_chunk, [pf] * n, [sf] * n, cases_of, [options] * n, sched, [topic] * n,
                              key=names, pure=False, retries=0)
         members = dict(zip(names, groups))
+        attempts: Dict[str, int] = {}
         for fut in futures:
             fut.add_done_callback(lambda f: inbox.put(("end", f)))
         while members:
@@ -389,15 +394,48 @@ def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, L
                 for key, row in got:
                     arrived(key, row)
             else:
-                lost = _lost(x, got)
-                for key in members[x.key]:
-                    arrived(key, lost)
+                # its cases run in order and each row comes back as it ends: when its worker
+                # died under it (KilledWorker), the first case without a row was running (it
+                # is recorded lost, and a re-run solves it again); the others go out once more
+                # in a task of their own, with the model scattered again (a lost worker may
+                # have held the only copy).  A task that fails twice otherwise: all recorded lost.
+                left = [k for k in members[x.key] if k in by_key]
+                killed = type(got).__name__ == "KilledWorker" or _killed(x)
+                if left and killed:
+                    arrived(left[0], _lost(x, got))
+                rest = [k for k in (left[1:] if killed else left) if k in by_key]
+                tries = attempts.get(x.key, 0) + (not killed)
+                if rest and x.status != "cancelled" and tries < 2:
+                    pf = client.scatter(shared, broadcast=True)
+                    sf = client.scatter(study, broadcast=True)
+                    again = client.submit(solve_chunk, pf, sf, [(k, by_key[k][0].case) for k in rest], options,
+                                          [_schedule(out_dir, by_key[k][0]) for k in rest], topic,
+                                          key=f"cases-{rest[0][:ID_LENGTH]}-{len(rest)}-{uuid.uuid4().hex[:8]}",
+                                          pure=False, retries=0)
+                    members[again.key], attempts[again.key] = rest, tries
+                    again.add_done_callback(lambda f: inbox.put(("end", f)))
+                else:
+                    for key in rest:
+                        arrived(key, _lost(x, got))
             del members[x.key]
     finally:
         try:
             client.unsubscribe_topic(topic)
         except Exception:        # the client already closed (a Ctrl-C on its way)
             pass
+
+
+def _killed(fut) -> bool:
+    """Whether ``fut`` erred because its worker died under it (Dask's KilledWorker)."""
+    try:
+        return type(fut.exception(timeout=5)).__name__ == "KilledWorker"
+    except Exception:        # cancelled, or the client gone
+        return False
+
+
+def _schedule(out_dir: Optional[Path], planned: Planned) -> Optional[str]:
+    """Where a case's schedule folder goes (None: no schedules asked for)."""
+    return str(case_dir(out_dir, planned) / SCHEDULE_DIR) if out_dir is not None else None
 
 
 def solve_chunk(p: M.Portfolio, study: M.Study, keyed: List[tuple], options, schedule_dirs: List[Optional[str]],
@@ -478,15 +516,16 @@ def local_cluster(workers: int, method: Optional[str] = None):
     (Dask's ``distributed.worker.multiprocessing-method``): ``forkserver`` forks them from a
     fresh single-threaded server process that imported Dask and the dispatch pipeline once
     (:data:`FORKSERVER_PRELOAD`), where ``spawn`` has each worker start an interpreter and
-    import all of it again, and ``fork`` copies this process, threads held locks and all
-    (docs/performance.md, "Studies on Dask")."""
+    import all of it again.  ``fork`` (copying this process, its threads' held locks and
+    all) is refused: it started workers in 0.2 s but hung a study whose process was solving
+    cases while its cluster started (docs/performance.md, "Studies on Dask")."""
     import logging
 
     import dask
     from distributed import LocalCluster
     method = method or START_METHOD
-    if method not in ("forkserver", "spawn", "fork"):
-        raise StudyError(f"unknown start method '{method}' (forkserver, spawn or fork)")
+    if method not in ("forkserver", "spawn"):      # fork: see the docstring
+        raise StudyError(f"unknown start method '{method}' (forkserver or spawn)")
     with dask.config.set({"distributed.worker.multiprocessing-method": method, **QUIET}):
         if method == "forkserver":
             warm(method)

@@ -21,8 +21,8 @@ four price scenarios.  Side by side in one process, in this order:
   serial loop: the floor any engine meets on this machine;
 * **study, cluster up, one case a task** (``chunk=1``): what the chunks save.
 
-``--method`` picks how the local cluster's workers start (forkserver, spawn or
-fork; default the runner's ``START_METHOD``).
+``--method`` picks how the local cluster's workers start (forkserver or spawn;
+default the runner's ``START_METHOD``).
 
 Then the traffic: the bytes scattered once (the model and the study, to each
 worker), the bytes of one task as submitted (its function, its case, the
@@ -96,7 +96,7 @@ def main():
     ap.add_argument("--cases", type=int, default=200)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--rounds", type=int, default=2, help="serial and study runs, alternating")
-    ap.add_argument("--method", choices=("forkserver", "spawn", "fork"), default=None,
+    ap.add_argument("--method", choices=("forkserver", "spawn"), default=None,
                     help="how the local cluster's workers start (default: the runner's, START_METHOD)")
     args = ap.parse_args()
     if args.method:

@@ -118,13 +118,14 @@ def test_case_key_follows_inputs_not_layout(tmp_path):
 def test_local_cluster_gives_the_serial_table(tmp_path):
     loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
     want = _serial_objectives(loaded.model)
-    got = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=2)
+    got = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=2)   # chunks the runner chooses
     df = got.frame
     assert list(df["status"]) == ["optimal"] * 8
     assert np.allclose(df["objective"], want, rtol=0, atol=1e-9)
     assert list(df["cells energy [MWh]"]) == [2, 2, 2, 2, 4, 4, 4, 4]
     assert list(df["spot scenario"]) == ["low", "high"] * 4
-    assert df["worker"].str.startswith("tcp://127.0.0.1:").all()
+    # this process solves cases while its cluster starts (all 8, as small as these): the rest, the workers
+    assert (df["worker"].str.startswith("tcp://127.0.0.1:") | (df["worker"] == "in-process")).all()
     # net value per asset adds up to the objective (no wear, no demand): the columns are the case's own
     assert np.allclose(df["net value cells"], df["objective"], atol=1e-6)
     back = pd.read_csv(tmp_path / "out" / "cases.csv")
@@ -136,11 +137,140 @@ def test_local_cluster_gives_the_serial_table(tmp_path):
     assert np.allclose(again.frame["objective"], want, atol=1e-9)
 
 
-def test_api_returns_a_dataframe_and_a_failing_case_does_not_stop_the_others(tmp_path):
+@pytest.mark.parametrize("chunk, method", [(1, "forkserver"), (3, "spawn"), (8, "forkserver")])
+def test_any_chunk_size_and_start_method_gives_the_serial_table(tmp_path, chunk, method):
+    # one case a task, tasks of 3 (the last of 2) and one task of all 8: same rows, same order,
+    # each case written with its own key; and a cluster whose workers are spawned, not forked
+    # from the fork server, gives the same table
+    from portfolio.study.run import local_cluster
+    from distributed import Client
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    want = _serial_objectives(loaded.model)
+    seen = []
+    with local_cluster(2, method) as cluster, Client(cluster) as client:
+        got = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, client=client, chunk=chunk, plots=False,
+                  progress=lambda done, failed, skipped, total: seen.append(done))
+    assert np.allclose(got.frame["objective"], want, rtol=0, atol=1e-9)
+    assert list(got.frame["spot scenario"]) == ["low", "high"] * 4
+    assert got.frame["worker"].str.startswith("tcp://127.0.0.1:").all()     # a client given: all on it
+    assert seen == list(range(9))        # told once a case, whatever the chunk
+    ids = sorted(f.parent.name for f in (tmp_path / "out" / CASES_DIR).glob(f"*/{CASE_FILE}"))
+    assert ids == sorted(got.frame["case"])
+
+
+def test_chunk_sizes_cover_every_case_large_first(tmp_path):
+    from portfolio.study import StudyError, chunk_sizes
+    from portfolio.study.run import MAX_CHUNK
+    for n, workers in ((1, 2), (8, 2), (200, 2), (1000, 3), (5, 16)):
+        sizes = chunk_sizes(n, workers)
+        assert sum(sizes) == n and min(sizes) >= 1 and max(sizes) <= MAX_CHUNK
+        assert sizes == sorted(sizes, reverse=True)      # single cases last: the workers end together
+        assert sizes[-1] == 1
+    assert len(chunk_sizes(200, 2)) < 200 / 4            # Dask's per-task cost paid far fewer times
+    assert chunk_sizes(10, 2, 3) == [3, 3, 3, 1] and chunk_sizes(3, 2, 1) == [1, 1, 1]
+    for bad in (0, -1, 2.5, "4"):
+        with pytest.raises(StudyError, match="chunk"):
+            chunk_sizes(10, 2, bad)
+    p = _load(tmp_path, _text(PRICES)).model
+    with pytest.raises(StudyError, match="chunk"):      # refused before any folder or cluster
+        run(p, "sizes", tmp_path / "out", OPTIONS, chunk=0)
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_chunk_writes_each_case_as_it_finishes(tmp_path):
+    """One task of all 8 cases on one worker whose 8th case waits until the client lets it go
+    (or a minute, a safety net): the client must have written the first 7 cases, told
+    progress 7 times, before it lets the 8th go, so rows cannot be landing at the chunk's end."""
+    from distributed import Client
+
+    from portfolio.study.run import local_cluster
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    out = tmp_path / "out"
+    on_disk = {}
+    with local_cluster(1) as cluster, Client(cluster) as client:
+        client.run(_hold_case, 8)
+
+        def progress(done, failed, skipped, total):
+            if done == 7:
+                on_disk[done] = len(list((out / CASES_DIR).glob(f"*/{CASE_FILE}")))
+                client.run(_let_go)
+
+        df = run(loaded.model, "sizes", out, OPTIONS, client=client, chunk=8, plots=False, progress=progress).frame
+    assert on_disk == {7: 7}
+    assert list(df["message"]) == [""] * 7 + ["let go"]
+    assert np.allclose(df["objective"], _serial_objectives(loaded.model), rtol=0, atol=1e-9)
+
+
+def test_a_worker_lost_mid_chunk_loses_only_the_case_it_was_solving(tmp_path):
+    """One task of all 8 cases; the worker's process dies (os._exit) in the 3rd case.  With
+    Dask told not to run a task again after a death (allowed-failures 0), the chunk is lost:
+    cases 1-2 have their rows already, case 3 is recorded lost (a re-run solves it), and
+    cases 4-8, never started, go out again on the worker the nanny restarts."""
+    import dask
+    from distributed import Client
+
+    from portfolio.study.run import finished, local_cluster, plan
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    out = tmp_path / "out"
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        with local_cluster(1) as cluster, Client(cluster) as client:
+            client.run(_die_in_case, 3)
+            df = run(loaded.model, "sizes", out, OPTIONS, client=client, chunk=8, plots=False).frame
+    assert list(df["status"]) == ["optimal"] * 2 + ["error"] + ["optimal"] * 5
+    assert df["objective"].isna().tolist() == [False] * 2 + [True] + [False] * 5
+    want = _serial_objectives(loaded.model)
+    ok = df["status"] == "optimal"
+    assert np.allclose(df["objective"][ok], np.array(want)[ok.to_numpy()], rtol=0, atol=1e-9)
+    assert df["worker"][0] != df["worker"][3]          # the rest ran on the restarted worker
+    planned = plan(loaded.model, loaded.model.studies["sizes"], OPTIONS)
+    assert finished(out, planned[2], False) is None   # lost: a re-run solves it again
+    assert finished(out, planned[3], False)["status"] == "optimal"
+
+
+def _die_in_case(n):
+    """On a worker: its ``n``-th case, once solved, ends the worker's process."""
+    runner = sys.modules["portfolio.study.run"]
+    original, calls = runner.solve_case, [0]
+
+    def dying(*args, **kw):
+        calls[0] += 1
+        row = original(*args, **kw)      # solved first: the row before it has left meanwhile
+        if calls[0] == n:                # (one left the instant before a death could be lost
+            os._exit(1)                  # and that case taken for the running one)
+        return row
+
+    runner.solve_case = dying
+
+
+def _hold_case(n):
+    """On a worker: the study's ``n``-th case (counted on this worker) waits for :func:`_let_go`."""
+    import threading
+    runner = sys.modules["portfolio.study.run"]
+    original, gate, calls = runner.solve_case, threading.Event(), [0]
+
+    def held(*args, **kw):
+        calls[0] += 1
+        if calls[0] != n:
+            return original(*args, **kw)
+        let_go = gate.wait(60)
+        return dict(original(*args, **kw), message="let go" if let_go else "not let go")
+
+    runner.solve_case, runner._gate = held, gate
+
+
+def _let_go():
+    sys.modules["portfolio.study.run"]._gate.set()
+
+
+@pytest.mark.parametrize("chunk", [None, 8])
+def test_api_returns_a_dataframe_and_a_failing_case_does_not_stop_the_others(tmp_path, chunk):
     # without import the store cannot reach its end rule (it must end fuller than it starts)
     text = _text([2 * v for v in PRICES], energy="energy values [4] MWh  vary grid import max values [2, 0] MW")
     loaded = _load(tmp_path, text.replace("end at least start", "end at least 90%"))
-    df = loaded.study("sizes", out=tmp_path / "out")
+    if chunk is None:
+        df = loaded.study("sizes", out=tmp_path / "out")
+    else:              # one task of all 8 cases: its infeasible cases do not sink the optimal ones
+        df = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=1, chunk=chunk, plots=False).frame
     assert isinstance(df, pd.DataFrame) and len(df) == 8
     assert set(df[df["grid import max [MW]"] == 0]["status"]) == {"infeasible"}
     assert set(df[df["grid import max [MW]"] == 2]["status"]) == {"optimal"}
@@ -196,21 +326,7 @@ def test_a_killed_study_loses_no_case_and_resumes(tmp_path):
     path.write_text(text)
     out = tmp_path / "out"
     cmd = [exe, "study", str(path), "--out", str(out), "--workers", "1", "-q"]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, start_new_session=True)
-    deadline = time.monotonic() + 120      # not a performance target: a hung start fails the test
-    done = []
-    while time.monotonic() < deadline and proc.poll() is None:
-        done = list((out / CASES_DIR).glob(f"*/{CASE_FILE}")) if (out / CASES_DIR).is_dir() else []
-        if len(done) >= 3:
-            break
-        time.sleep(0.05)
-    if proc.poll() is not None:
-        _, err = proc.communicate()
-        assert proc.returncode == 0, err.decode()
-        pytest.skip("the study finished before it could be killed")
-    os.killpg(proc.pid, signal.SIGKILL)
-    proc.wait()
-    before = {f.parent.name: f.stat().st_mtime_ns for f in (out / CASES_DIR).glob(f"*/{CASE_FILE}")}
+    before = _kill_once_written(cmd, out, 3)
     assert len(before) >= 3
     total = 30 * 2 * 2
     assert len(before) < total
@@ -223,6 +339,57 @@ def test_a_killed_study_loses_no_case_and_resumes(tmp_path):
     whole = run(portfolio.load(path).model, "sizes", tmp_path / "whole", OPTIONS, workers=2).frame
     assert list(resumed["case"]) == list(whole["case"])
     assert np.allclose(resumed["objective"], whole["objective"], rtol=0, atol=1e-9)
+
+
+def _kill_once_written(cmd, out, n):
+    """Start ``cmd`` (a study into ``out``) in its own process group, SIGKILL the group once
+    ``n`` cases are on disk; the cases on disk then ({id: mtime})."""
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, start_new_session=True)
+    deadline = time.monotonic() + 120      # not a performance target: a hung start fails the test
+    while time.monotonic() < deadline and proc.poll() is None:
+        if (out / CASES_DIR).is_dir() and len(list((out / CASES_DIR).glob(f"*/{CASE_FILE}"))) >= n:
+            break
+        time.sleep(0.05)
+    if proc.poll() is not None:
+        _, err = proc.communicate()
+        assert proc.returncode == 0, err.decode()
+        pytest.skip("the study finished before it could be killed")
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    return {f.parent.name: f.stat().st_mtime_ns for f in (out / CASES_DIR).glob(f"*/{CASE_FILE}")}
+
+
+_KILLED_STUDY = """
+import sys
+import portfolio
+from portfolio.solve import SolveOptions
+from portfolio.study import run
+run(portfolio.load(sys.argv[1]).model, "sizes", sys.argv[2], SolveOptions(threads=1), workers=1,
+    chunk=int(sys.argv[3]), plots=False)
+"""
+
+
+@pytest.mark.slow
+def test_a_killed_chunked_study_keeps_each_case_as_it_finished_and_resumes(tmp_path):
+    """One Dask task holds every case (a chunk of all 120): SIGKILL the study (its worker too)
+    once a few cases are on disk.  A re-run keeps those, solves only the others, and its
+    table equals a serial loop's."""
+    from portfolio.study import run_serial
+    text = _text([2 * v for v in PRICES], energy="energy from 1 MWh to 30 MWh step 1 MWh", repeat=24)
+    path = tmp_path / "tiny.folio"
+    path.write_text(text)
+    out = tmp_path / "out"
+    total = 30 * 2 * 2
+    before = _kill_once_written([sys.executable, "-c", _KILLED_STUDY, str(path), str(out), str(total)], out, 3)
+    assert 3 <= len(before) < total
+    p = portfolio.load(path).model
+    again = run(p, "sizes", out, OPTIONS, workers=2, plots=False)
+    assert (again.solved, again.skipped) == (total - len(before), len(before))
+    for case_id, mtime in before.items():
+        assert (out / CASES_DIR / case_id / CASE_FILE).stat().st_mtime_ns == mtime
+    serial = run_serial(p, p.studies["sizes"], OPTIONS)
+    assert list(again.frame["case"]) == [r["case"] for r in serial]
+    assert np.allclose(again.frame["objective"], [r["objective"] for r in serial], rtol=0, atol=1e-9)
 
 
 def test_cli_refuses_bad_input_and_runs_nothing(tmp_path):

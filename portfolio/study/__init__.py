@@ -19,10 +19,10 @@ import pandas as pd
 from .. import model as M
 from .cases import Case, apply, case_key, cases
 from .results import table, write_plots, write_table
-from .run import StudyError, pick, run_serial, run_study, solve_case
+from .run import StudyError, chunk_sizes, pick, run_serial, run_study, solve_case
 
 __all__ = ["run", "StudyResult", "StudyError", "Case", "apply", "case_key", "cases", "pick", "run_serial",
-           "run_study", "solve_case", "table"]
+           "run_study", "solve_case", "chunk_sizes", "table"]
 
 
 @dataclass
@@ -40,20 +40,22 @@ class StudyResult:
 
 def run(p: M.Portfolio, name: Optional[str] = None, out=None, options=None, client=None,
         scheduler: Optional[str] = None, workers: Optional[int] = None, schedules: bool = False,
-        plots: bool = True, progress=None) -> StudyResult:
+        plots: bool = True, progress=None, chunk: Optional[int] = None) -> StudyResult:
     """Run study ``name`` of ``p`` (the only one when None) into folder ``out`` (a
-    temporary folder, removed afterwards, when None): see :func:`.run.run_study`."""
+    temporary folder, removed afterwards, when None): see :func:`.run.run_study`.
+    ``chunk``: cases a Dask task at most (None: the runner chooses, :func:`.run.chunk_sizes`;
+    1: one case a task)."""
     from ..solve import SolveOptions
     study = pick(p, name)
     options = options or SolveOptions(threads=1)
     if out is None:
         with tempfile.TemporaryDirectory(prefix="portfolio-study-") as tmp:
-            got = run(p, study.name, tmp, options, client, scheduler, workers, False, False, progress)
+            got = run(p, study.name, tmp, options, client, scheduler, workers, False, False, progress, chunk)
             got.files = []
             return got
     out = Path(out)
     got = run_study(p, study, out, options, client=client, scheduler=scheduler, workers=workers,
-                    schedules=schedules, progress=progress)
+                    schedules=schedules, progress=progress, chunk=chunk)
     df = table(study, cases(study), got["rows"])
     files = write_table(df, out)
     if plots:

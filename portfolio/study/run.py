@@ -2,24 +2,30 @@
 
 :func:`run_study` runs every case of a study on a Dask cluster: a
 ``distributed.LocalCluster`` (processes, one worker a core, no dashboard,
-127.0.0.1 only) that it starts and stops, an existing scheduler's address,
+127.0.0.1 only, the workers forked from a fork server that imported the
+pipeline once) that it starts and stops, an existing scheduler's address,
 or a ``distributed.Client`` the caller holds.  The checked model goes to the
-workers once (``client.scatter(..., broadcast=True)``); a task carries only
-its case (a few numbers and names).  Each finished case is written as it
-arrives, atomically (``DIR/cases/<case id>/case.json``, and with schedules
-its output folder beside it), so a killed study loses no finished case; a
-re-run skips every case whose key (:func:`portfolio.study.cases.case_key`)
-is unchanged.  A case that fails (infeasible, an error) is recorded with its
-status and message and the others go on.
+workers once (``client.scatter(..., broadcast=True)``); a task carries a
+chunk of cases (:func:`chunk_sizes`: large first, single cases last), each a
+few numbers and names, and sends each case's row back as soon as the case is
+done (an event the client subscribed to) as well as all of them at its end.
+Each finished case is written as it arrives, atomically
+(``DIR/cases/<case id>/case.json``, and with schedules its output folder
+beside it), so a killed study loses no finished case; a re-run skips every
+case whose key (:func:`portfolio.study.cases.case_key`) is unchanged.  A case
+that fails (infeasible, an error) is recorded with its status and message
+and the others go on, those of its chunk too.  While its own local cluster
+starts, this process solves small cases itself (:func:`small`).
 
-:func:`solve_case` is the task; a serial loop over it (:func:`run_serial`)
-gives the same rows without Dask.  Nothing here prints: progress goes to a
-callback.
+:func:`solve_case` is a case; :func:`solve_chunk` the task; a serial loop over
+the cases (:func:`run_serial`) gives the same rows without Dask.  Nothing
+here prints: progress goes to a callback.
 """
 
 from __future__ import annotations
 
 import json
+import math
 import os
 import time
 from dataclasses import dataclass, replace
@@ -35,6 +41,16 @@ CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
 ID_LENGTH = 16             # hex digits of the case key naming its folder
+SMALL_CASE = 2000          # steps x storages of a case this process solves while its cluster starts
+MAX_CHUNK = 16             # cases a task at most when the runner chooses (chunk_sizes)
+GUIDED = 2                 # a task takes 1/(GUIDED x workers) of the cases left
+START_METHOD = "forkserver"  # how our local cluster's workers start (local_cluster)
+FORKSERVER_PRELOAD = ("distributed", "portfolio.study.worker", "portfolio.dispatch", "portfolio.windows")
+# Dask's background work in our local cluster's processes, slowed where nothing reads it (no
+# dashboard): the statistical profiler that samples each task every 10 ms, the event loop's
+# 20 ms tick and the 500 ms system monitor (docs/performance.md, "Studies on Dask")
+QUIET = {"distributed.worker.profile.enabled": False, "distributed.admin.tick.interval": "1s",
+         "distributed.admin.system-monitor.interval": "2s"}
 PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
@@ -117,11 +133,8 @@ def _assets(summary: dict) -> dict:
 
 
 def _worker() -> str:
-    try:
-        from distributed import get_worker
-        return get_worker().address
-    except (ImportError, ValueError):
-        return "in-process"
+    w = _current_worker()
+    return w.address if w is not None else "in-process"
 
 
 # ---- the folder ----------------------------------------------------------------------
@@ -184,15 +197,18 @@ def run_serial(p: M.Portfolio, study: M.Study, options) -> List[dict]:
 
 def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, scheduler: Optional[str] = None,
               workers: Optional[int] = None, schedules: bool = False,
-              progress: Optional[Progress] = None) -> Dict[str, object]:
+              progress: Optional[Progress] = None, chunk: Optional[int] = None) -> Dict[str, object]:
     """Run the cases not yet done into ``out_dir``; returns ``{"rows": [...], "solved": n,
     "skipped": n, "failed": n, "sent_bytes": n}`` (rows in case order, done before or now)."""
     out_dir = Path(out_dir)
+    chunk_sizes(1, 1, chunk)          # a bad chunk is refused before anything starts
     problem = check_folder(out_dir, p)
     if problem:
         raise StudyError(problem)
     (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
     _mark(out_dir, p)
+    if client is None and scheduler is None:
+        warm()                       # our workers' fork server imports while the cases are planned
     planned = plan(p, study, options)
     rows: Dict[int, dict] = {}
     todo = []
@@ -208,36 +224,250 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     tell = progress or (lambda *a: None)
     tell(0, 0, skipped, total)
     if todo:
-        own, client = (None, client) if client is not None else _start(scheduler, workers)
+        by_key: Dict[str, List[Planned]] = {}
+        for pl in todo:                        # cases with the same inputs are solved once
+            by_key.setdefault(pl.key, []).append(pl)
+
+        def arrived(key: str, row: dict) -> None:
+            nonlocal done, failed
+            same = by_key.pop(key, ())         # none: seen before (its event, then its chunk's end)
+            for pl in same:
+                rows[pl.case.index] = record(out_dir, pl, row)
+                done += 1
+                failed += row["status"] not in ("optimal", "feasible")
+            if same:
+                tell(done, failed, skipped, total)
+
+        starting = _Starting(scheduler, workers) if client is None else None
         try:
+            if starting is not None:
+                if scheduler is None and small(p):
+                    _meanwhile(starting, p, study, by_key, options, out_dir if schedules else None, arrived)
+                client = starting.client()
             shared = replace(p, studies={})       # the study goes on its own: scenario series
             sent = _size(shared) + _size(study)
-            pf = client.scatter(shared, broadcast=True)
-            sf = client.scatter(study, broadcast=True)
-            by_key: Dict[str, List[Planned]] = {}
-            for pl in todo:                    # cases with the same inputs are solved once
-                by_key.setdefault(f"case-{pl.key}", []).append(pl)
-            keys = list(by_key)
-            sched = [str(case_dir(out_dir, by_key[k][0]) / SCHEDULE_DIR) if schedules else None for k in keys]
-            n = len(keys)
-            # one message for every task (client.map), and the rows gathered as tasks finish
-            # (as_completed with_results): Dask's own cost per task is then a few milliseconds
-            # (docs/performance.md, "Studies")
-            futures = client.map(solve_case, [pf] * n, [sf] * n, [by_key[k][0].case for k in keys],
-                                 [options] * n, sched, key=keys, pure=False, retries=0)
-            from distributed import as_completed
-            for fut, got in as_completed(futures, with_results=True, raise_errors=False):
-                row = got if fut.status == "finished" and isinstance(got, dict) else _lost(fut, got)
-                for pl in by_key.pop(fut.key):
-                    rows[pl.case.index] = record(out_dir, pl, row)
-                    done += 1
-                    failed += row["status"] not in ("optimal", "feasible")
-                tell(done, failed, skipped, total)
+            if by_key:
+                _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
+                            chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
         finally:
-            if own is not None:
-                _stop(client, own)
+            if starting is not None:
+                starting.stop()
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
+
+
+def small(p: M.Portfolio) -> bool:
+    """Whether ``p``'s cases are small enough for this process to solve some while its local
+    cluster starts: one MILP each (no windows), at most :data:`SMALL_CASE` steps x storages."""
+    from ..windows import by_default
+    return by_default(p) is None and p.horizon.steps * max(1, len(p.storages)) <= SMALL_CASE
+
+
+class _Starting:
+    """A cluster starting (:func:`_start`) in a thread of its own, so that this process
+    can solve cases meanwhile."""
+
+    def __init__(self, scheduler: Optional[str], workers: Optional[int]):
+        import threading
+        self._got: tuple = ()
+        self._error: Optional[BaseException] = None
+        self._thread = threading.Thread(target=self._run, args=(scheduler, workers), daemon=True,
+                                        name="portfolio-study-start")
+        self._thread.start()
+
+    def _run(self, scheduler, workers) -> None:
+        try:
+            self._got = _start(scheduler, workers)
+        except BaseException as e:     # handed to the thread that waits for the client
+            self._error = e
+
+    def ready(self) -> bool:
+        return not self._thread.is_alive()
+
+    def client(self):
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+        return self._got[1]
+
+    def stop(self) -> None:
+        """Close what was started (once it has started: a start is not cut short)."""
+        self._thread.join()
+        if self._got:
+            _stop(self._got[1], self._got[0])
+
+
+def _meanwhile(starting: _Starting, p: M.Portfolio, study: M.Study, by_key: Dict[str, List[Planned]], options,
+               out_dir: Optional[Path], arrived: Callable[[str, dict], None]) -> None:
+    """Solve cases in this process, the last ones first (those the chunks would give out
+    last, alone), one at a time until the cluster is up: the start's second or so is then
+    not lost to the study (docs/studies.md).  A row is recorded as :func:`solve_chunk`'s."""
+    for key in reversed(list(by_key)):
+        if starting.ready():
+            return
+        pl = by_key[key][0]
+        arrived(key, _plain(solve_case(p, study, pl.case, options, _schedule(out_dir, pl))))
+
+
+def chunk_sizes(n: int, workers: int, chunk: Optional[int] = None) -> List[int]:
+    """How many cases each task takes, in the order the tasks are submitted.
+
+    ``chunk`` given: that many a task (the last takes the rest).  None: guided sizes, each
+    task a ``GUIDED``-th of the cases left divided by the workers, at most ``MAX_CHUNK``, so
+    the tasks come large first and single cases last: Dask's cost per task (a few ms) is paid
+    a few times a worker rather than once a case, and the last tasks, short, keep every worker
+    busy to the end (Dask starts tasks in the order they were submitted)."""
+    if n <= 0:
+        return []
+    if chunk is not None:
+        if not isinstance(chunk, int) or chunk < 1:
+            raise StudyError(f"chunk must be a whole number of cases from 1 up, got {chunk!r}")
+        return [chunk] * (n // chunk) + ([n % chunk] if n % chunk else [])
+    sizes, left = [], n
+    while left:
+        k = min(MAX_CHUNK, left, max(1, math.ceil(left / (GUIDED * max(1, workers)))))
+        sizes.append(k)
+        left -= k
+    return sizes
+
+
+def _threads(client, workers: Optional[int]) -> int:
+    """The cases that can run at once on ``client``'s cluster (its workers' threads)."""
+    try:
+        info = client.scheduler_info()
+        return max(1, sum(int(w.get("nthreads", 1)) for w in info.get("workers", {}).values()))
+    except Exception:          # a scheduler that does not say: the workers asked for, else one
+        return workers or 1
+
+
+def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, List[Planned]], options,
+                out_dir: Optional[Path], sizes: List[int], arrived: Callable[[str, dict], None]) -> None:
+    """Send the cases of ``by_key`` to ``client`` in tasks of ``sizes`` cases and call
+    ``arrived(key, row)`` in this thread as each case finishes.
+
+    A chunk's task (:func:`solve_chunk`) sends each case's row as an event on a topic of
+    this run as soon as the case is done (``Worker.log_event``; the scheduler forwards it
+    to this client, which subscribed before submitting), and returns every row at its
+    end: a row whose event was late or lost arrives then.  A task that returns no rows (a
+    worker lost) makes a ``lost`` row for the case it was solving, and its cases not yet
+    started go out again in a task of their own."""
+    import queue
+    import uuid
+
+    keys = list(by_key)
+    groups, at = [], 0
+    for k in sizes:
+        groups.append(keys[at:at + k])
+        at += k
+    pf = client.scatter(shared, broadcast=True)
+    sf = client.scatter(study, broadcast=True)
+    topic = f"portfolio-study-{uuid.uuid4().hex}"
+    inbox: "queue.SimpleQueue" = queue.SimpleQueue()
+    client.subscribe_topic(topic, lambda event: inbox.put(("row", event[1])))
+    try:
+        n = len(groups)
+        cases_of = [[(k, by_key[k][0].case) for k in g] for g in groups]
+        sched = [[_schedule(out_dir, by_key[k][0]) for k in g] for g in groups]
+        names = [f"cases-{g[0][:ID_LENGTH]}-{len(g)}" for g in groups]
+        # one message for every task (client.map); rows back as events; docs/performance.md
+        futures = client.map(solve_chunk, [pf] * n, [sf] * n, cases_of, [options] * n, sched, [topic] * n,
+                             key=names, pure=False, retries=0)
+        members = dict(zip(names, groups))
+        attempts: Dict[str, int] = {}
+        for fut in futures:
+            fut.add_done_callback(lambda f: inbox.put(("end", f)))
+        while members:
+            try:
+                what, x = inbox.get(timeout=0.5)   # a timeout so that a Ctrl-C is seen here
+            except queue.Empty:
+                continue
+            if what == "row":
+                arrived(*x)
+                continue
+            got = None
+            if x.status == "finished":
+                try:
+                    got = x.result()
+                except Exception as e:    # it went away between its end and this gather
+                    got = e
+            if isinstance(got, list):
+                for key, row in got:
+                    arrived(key, row)
+            else:
+                # its cases run in order and each row comes back as it ends: when its worker
+                # died under it (KilledWorker), the first case without a row was running (it
+                # is recorded lost, and a re-run solves it again); the others go out once more
+                # in a task of their own, with the model scattered again (a lost worker may
+                # have held the only copy).  A task that fails twice otherwise: all recorded lost.
+                left = [k for k in members[x.key] if k in by_key]
+                killed = type(got).__name__ == "KilledWorker" or _killed(x)
+                if left and killed:
+                    arrived(left[0], _lost(x, got))
+                rest = [k for k in (left[1:] if killed else left) if k in by_key]
+                tries = attempts.get(x.key, 0) + (not killed)
+                if rest and x.status != "cancelled" and tries < 2:
+                    pf = client.scatter(shared, broadcast=True)
+                    sf = client.scatter(study, broadcast=True)
+                    again = client.submit(solve_chunk, pf, sf, [(k, by_key[k][0].case) for k in rest], options,
+                                          [_schedule(out_dir, by_key[k][0]) for k in rest], topic,
+                                          key=f"cases-{rest[0][:ID_LENGTH]}-{len(rest)}-{uuid.uuid4().hex[:8]}",
+                                          pure=False, retries=0)
+                    members[again.key], attempts[again.key] = rest, tries
+                    again.add_done_callback(lambda f: inbox.put(("end", f)))
+                else:
+                    for key in rest:
+                        arrived(key, _lost(x, got))
+            del members[x.key]
+    finally:
+        try:
+            client.unsubscribe_topic(topic)
+        except Exception:        # the client already closed (a Ctrl-C on its way)
+            pass
+
+
+def _killed(fut) -> bool:
+    """Whether ``fut`` erred because its worker died under it (Dask's KilledWorker)."""
+    try:
+        return type(fut.exception(timeout=5)).__name__ == "KilledWorker"
+    except Exception:        # cancelled, or the client gone
+        return False
+
+
+def _schedule(out_dir: Optional[Path], planned: Planned) -> Optional[str]:
+    """Where a case's schedule folder goes (None: no schedules asked for)."""
+    return str(case_dir(out_dir, planned) / SCHEDULE_DIR) if out_dir is not None else None
+
+
+def solve_chunk(p: M.Portfolio, study: M.Study, keyed: List[tuple], options, schedule_dirs: List[Optional[str]],
+                topic: Optional[str] = None) -> List[tuple]:
+    """A task of several cases: ``[(key, row), ...]`` of :func:`solve_case`, one after the
+    other; each row also goes out as an event on ``topic`` as soon as its case is done, so
+    that the client records it then rather than at the chunk's end."""
+    out = []
+    worker = _current_worker() if topic else None
+    for (key, case), folder in zip(keyed, schedule_dirs):
+        row = _plain(solve_case(p, study, case, options, folder))
+        out.append((key, row))
+        if worker is not None:
+            try:
+                worker.log_event(topic, (key, row))
+            except Exception:     # the chunk's return carries the row all the same
+                pass
+    return out
+
+
+def _plain(row: dict) -> dict:
+    """``row`` as JSON data (numbers from numpy become floats): what an event may carry and
+    what case.json stores."""
+    return json.loads(json.dumps(row, default=float))
+
+
+def _current_worker():
+    try:
+        from distributed import get_worker
+        return get_worker()
+    except (ImportError, ValueError):
+        return None
 
 
 def _lost(fut, got) -> dict:
@@ -276,17 +506,57 @@ def _start(scheduler: Optional[str], workers: Optional[int]):
     return (cluster,), Client(cluster)
 
 
-def local_cluster(workers: int):
+def local_cluster(workers: int, method: Optional[str] = None):
     """The local cluster a study starts: ``workers`` processes of one thread on 127.0.0.1, the
     scheduler's HTTP server (no dashboard) on a free port of 127.0.0.1 (a fixed port in use would
     make Dask warn on stderr), the workers preloaded with :mod:`portfolio.study.worker` (they
-    ignore Ctrl-C: the process that started them closes them) and their logs silenced."""
+    ignore Ctrl-C: the process that started them closes them) and their logs silenced.
+
+    ``method`` (default :data:`START_METHOD`) is how the worker processes start
+    (Dask's ``distributed.worker.multiprocessing-method``): ``forkserver`` forks them from a
+    fresh single-threaded server process that imported Dask and the dispatch pipeline once
+    (:data:`FORKSERVER_PRELOAD`), where ``spawn`` has each worker start an interpreter and
+    import all of it again.  ``fork`` (copying this process, its threads' held locks and
+    all) is refused: it started workers in 0.2 s but hung a study whose process was solving
+    cases while its cluster started (docs/performance.md, "Studies on Dask")."""
     import logging
 
+    import dask
     from distributed import LocalCluster
-    return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
-                        dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
-                        silence_logs=logging.CRITICAL, preload=[PRELOAD])
+    method = method or START_METHOD
+    if method not in ("forkserver", "spawn"):      # fork: see the docstring
+        raise StudyError(f"unknown start method '{method}' (forkserver or spawn)")
+    with dask.config.set({"distributed.worker.multiprocessing-method": method, **QUIET}):
+        if method == "forkserver":
+            warm(method)
+        return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+                            dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
+                            silence_logs=logging.CRITICAL, preload=[PRELOAD])
+
+
+def warm(method: Optional[str] = None) -> None:
+    """Start multiprocessing's fork server now (once a process), importing what a worker
+    needs, so that each worker forked from it later starts with it imported; called before
+    the cases are planned, the server's imports run meanwhile.  Nothing for other methods."""
+    if (method or START_METHOD) != "forkserver":
+        return
+    import multiprocessing
+    from multiprocessing import forkserver
+
+    import dask
+    from distributed.utils import get_mp_context
+    with dask.config.set({"distributed.worker.multiprocessing-method": "forkserver"}):
+        ctx = get_mp_context()   # Dask's own preload list is set here, once; ours replaces it
+    ctx.set_forkserver_preload(list(FORKSERVER_PRELOAD))
+    if multiprocessing.parent_process() is None:     # not from inside a worker
+        # born ignoring SIGINT (it survives exec; Python installs no handler over it): a
+        # terminal's Ctrl-C reaches the whole process group, and the server, busy with its
+        # imports for a second, would print a traceback; the workers forked from it ignore
+        # it from their first instruction too.  This process ignores it only while the
+        # server forks and execs (the windows' pool does the same).
+        from ..windows.run import _children_ignore_ctrl_c
+        with _children_ignore_ctrl_c(True):
+            forkserver.ensure_running()
 
 
 def _stop(client, own) -> None:

@@ -1,6 +1,6 @@
 """Benchmark: a study on the local Dask cluster against a serial loop of dispatch (not collected by pytest).
 
-    python tests/bench/bench_study.py [--cases 200] [--workers 2] [--rounds 1]
+    python tests/bench/bench_study.py [--cases 200] [--workers 2] [--rounds 2] [--method forkserver]
 
 A study of small cases (an hourly day, five storages on two sites behind one
 connection, exclusive modes on two of them so each case is a small MILP):
@@ -14,7 +14,15 @@ four price scenarios.  Side by side in one process, in this order:
   case's row, the tables and no plots, and stops the cluster: the wall time a
   user waits for;
 * **study, cluster up**: the same on a cluster started beforehand (the
-  cluster's start and stop left out): Dask's per-task cost alone.
+  cluster's start and stop timed apart, the fork server's start included, and
+  left out of the study's time): Dask's per-task cost alone;
+* **plain processes**: the cases split evenly over ``--workers`` processes of a
+  ``ProcessPoolExecutor`` (no Dask; started and warmed before the clock), each a
+  serial loop: the floor any engine meets on this machine;
+* **study, cluster up, one case a task** (``chunk=1``): what the chunks save.
+
+``--method`` picks how the local cluster's workers start (forkserver or spawn;
+default the runner's ``START_METHOD``).
 
 Then the traffic: the bytes scattered once (the model and the study, to each
 worker), the bytes of one task as submitted (its function, its case, the
@@ -88,7 +96,11 @@ def main():
     ap.add_argument("--cases", type=int, default=200)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--rounds", type=int, default=2, help="serial and study runs, alternating")
+    ap.add_argument("--method", choices=("forkserver", "spawn"), default=None,
+                    help="how the local cluster's workers start (default: the runner's, START_METHOD)")
     args = ap.parse_args()
+    if args.method:
+        sys.modules["portfolio.study.run"].START_METHOD = args.method   # the module (portfolio.study.run is a function)
     tmp = Path(tempfile.mkdtemp(prefix="bench-study-"))
     try:
         src = tmp / "bench_study.folio"
@@ -101,17 +113,25 @@ def main():
               f"{os.cpu_count()} cores; load average {os.getloadavg()[0]:.2f} at the start")
         dispatch(apply(p, study, every[0]), options)             # warm-up (imports, first solve)
         rounds = []
+        workers = args.workers
         for r in range(args.rounds):
             rounds.append(_round(p, study, every, options, tmp / f"round{r}", args.workers))
             f = rounds[-1]
             print(f"round {r + 1}: serial {f['serial']:.2f} s ({f['serial'] / len(every) * 1e3:.0f} ms a case, "
                   f"CPU {f['serial_cpu']:.2f} s) | study {f['study']:.2f} s (ratio {f['study'] / f['serial']:.2f}) | "
-                  f"cluster up: start {f['up']:.2f} s, study {f['warm']:.2f} s (ratio {f['warm'] / f['serial']:.2f}), "
+                  f"CPU {f['study_cpu']:.2f} s, {f['in_process']} cases in-process | "
+                  f"cluster up: start {f['up']:.2f} s, stop {f['down']:.2f} s, study {f['warm']:.2f} s (ratio {f['warm'] / f['serial']:.2f}), "
                   f"CPU: tool+scheduler {f['client_cpu']:.2f} s, workers {f['worker_cpu']:.2f} s | "
+                  f"cluster up, one case a task {f['single']:.2f} s (ratio {f['single'] / f['serial']:.2f}) | "
+                  f"{workers} plain processes, no Dask {f['plain']:.2f} s (ratio {f['plain'] / f['serial']:.2f}, "
+                  f"CPU {f['plain_cpu']:.2f} s) | "
                   f"tasks' own wall {f['task_wall']:.2f} s summed | same objectives {f['same']} | "
                   f"load {os.getloadavg()[0]:.2f}")
         med = {k: float(np.median([f[k] for f in rounds])) for k in rounds[0] if k not in ("same", "seen", "transfers")}
         cpu = med["client_cpu"] + med["worker_cpu"]
+        print(f"median of {len(rounds)}: CPU of the study with its own cluster (tool, fork server, workers) / serial "
+              f"CPU {med['study_cpu'] / med['serial_cpu']:.2f} (on {args.workers} idle cores its ratio could reach "
+              f"about {med['study_cpu'] / args.workers / med['serial_cpu']:.2f}, its start and stop waits aside)")
         print(f"median of {len(rounds)}: ratio with the cluster's start and stop {med['study'] / med['serial']:.2f}, "
               f"cluster up {med['warm'] / med['serial']:.2f}; CPU of the study's processes / serial CPU "
               f"{cpu / med['serial_cpu']:.2f} (on {args.workers} idle cores the cluster-up ratio could reach about "
@@ -138,14 +158,24 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     serial = [dispatch(apply(p, study, c), options).objective for c in every]
     out["serial"], out["serial_cpu"] = time.perf_counter() - t0, time.process_time() - c0
 
-    t0 = time.perf_counter()
-    got = run(p, "sweep", folder / "study", options, workers=workers, plots=False)
+    _stop_forkserver()             # each study with its own cluster pays the fork server's start
+    tree = {}
+
+    def last(done, failed, skipped, total):    # the workers' CPU while they are still up
+        if done == total:
+            tree["cpu"] = _descendants_cpu()
+
+    c0, t0 = time.process_time(), time.perf_counter()
+    got = run(p, "sweep", folder / "study", options, workers=workers, plots=False, progress=last)
     out["study"] = time.perf_counter() - t0
+    out["study_cpu"] = time.process_time() - c0 + tree.get("cpu", float("nan"))
+    out["in_process"] = int((got.frame["worker"] == "in-process").sum())
     out["same"] = bool(np.allclose(got.frame["objective"].to_numpy(float), np.array(serial, float),
                                    rtol=0, atol=1e-6))
     out["sent"] = got.sent_bytes
     out["task_wall"] = float(got.frame["wall [s]"].sum())
 
+    _stop_forkserver()             # the cluster's start timed as a command's: the fork server's too
     t0 = time.perf_counter()
     cluster = local_cluster(workers)
     client = Client(cluster)
@@ -163,17 +193,68 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     after = client.run(time.process_time)
     out["worker_cpu"] = sum(after[w] - before[w] for w in after)
     out["same"] = out["same"] and warm.frame["objective"].equals(got.frame["objective"])
+    out["plain"], out["plain_cpu"] = _plain_processes(p, study, every, options, workers)
+    t0 = time.perf_counter()
+    single = run(p, "sweep", folder / "single", options, client=client, plots=False, chunk=1)
+    out["single"] = time.perf_counter() - t0
+    out["same"] = out["same"] and single.frame["objective"].equals(got.frame["objective"])
     out["transfers"] = sum(client.run(_transfers).values())
     out["seen"] = seen
+    t0 = time.perf_counter()
     client.close()
     cluster.close()
+    out["down"] = time.perf_counter() - t0
     return out
 
 
+def _plain_processes(p, study, every, options, workers: int):
+    """The floor any engine meets here: the cases split evenly over ``workers`` plain processes
+    (no Dask; started, imported and warmed before the clock starts), each a serial loop of
+    dispatch.  (wall s, CPU s summed over the processes)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+    parts = [every[k::workers] for k in range(workers)]
+    with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn")) as pool:
+        list(pool.map(_loop, [p] * workers, [study] * workers, [parts[k][:1] for k in range(workers)],
+                      [options] * workers))                                   # imports and a first solve
+        t0 = time.perf_counter()
+        cpu = sum(pool.map(_loop, [p] * workers, [study] * workers, parts, [options] * workers))
+        return time.perf_counter() - t0, cpu
+
+
+def _loop(p, study, part, options) -> float:
+    c0 = time.process_time()
+    for c in part:
+        dispatch(apply(p, study, c), options)
+    return time.process_time() - c0
+
+
+def _descendants_cpu() -> float:
+    """CPU seconds of this process's descendants now (the fork server, its workers)."""
+    import psutil
+    total = 0.0
+    for child in psutil.Process().children(recursive=True):
+        try:
+            t = child.cpu_times()
+            total += t.user + t.system
+        except psutil.Error:
+            pass
+    return total
+
+
+def _stop_forkserver() -> None:
+    """Stop multiprocessing's fork server if one runs (started by the last study), so that
+    the next study starts its own, as a command run by a user does."""
+    from multiprocessing import forkserver
+    server = getattr(forkserver, "_forkserver", None)
+    if server is not None and hasattr(server, "_stop"):
+        server._stop()
+
+
 def _copies(dask_scheduler=None):
-    """On the scheduler: how many workers hold each scattered key (the keys not named case-...)."""
+    """On the scheduler: how many workers hold each scattered key (the keys not named cases-...)."""
     s = dask_scheduler
-    held = [len(ts.who_has or ()) for key, ts in s.tasks.items() if not str(key).startswith("case-")]
+    held = [len(ts.who_has or ()) for key, ts in s.tasks.items() if not str(key).startswith("cases-")]
     return {"copies": sorted(held), "workers": len(s.workers)}
 
 

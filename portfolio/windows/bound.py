@@ -67,7 +67,7 @@ def relax(built, options: Optional[SolveOptions] = None, seconds: Optional[float
     sense = 1.0 if mx.maximize else -1.0      # money per unit of rhs (the models maximise)
     T = built.steps
     p = built.portfolio
-    rows = _balance_rows(mx, p.storages, T)
+    rows = balance_rows(mx, p.storages, T)
     start, _ = mx.var_ranges.get("soc", (0, 0))
     for k, s in p.storages.items():
         b = built.var_blocks["soc"][k]
@@ -106,7 +106,7 @@ def solve_relaxation(mx, options: Optional[SolveOptions] = None, seconds: Option
     return (status, np.asarray(sol.col_value, dtype=float), np.asarray(sol.row_dual, dtype=float))
 
 
-def _balance_rows(mx, storages, T: int) -> Dict[str, np.ndarray]:
+def balance_rows(mx, storages, T: int) -> Dict[str, np.ndarray]:
     """Row numbers of each store's balance rows, by step."""
     block = next((b for b in mx.blocks if b.name == BALANCE), None)
     out: Dict[str, np.ndarray] = {}

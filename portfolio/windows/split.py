@@ -45,7 +45,7 @@ from ..compile import expressions as E
 from ..model import END_FREE, Portfolio
 from ..solve import SolveOptions
 from ..solve.certify import dual_bound
-from .bound import BALANCE, relax, solve_relaxation
+from .bound import balance_rows, relax, solve_relaxation
 from .cut import sliced
 
 Piece = Tuple[int, int]      # (first step, step after the last)
@@ -90,7 +90,8 @@ def piece_model(p: Portfolio, start: int, stop: int, end_value: Optional[Dict[st
     on its way there."""
     T = p.horizon.steps
     horizon, series = sliced(p, start, stop - start)
-    days = E.calendar_days(p.horizon)
+    days = (E.calendar_days(p.horizon) if any(s.cycles_per_day is not None
+                                               for s in p.storages.values()) else [])
     storages = {}
     for k, s in p.storages.items():
         kw: dict = {}
@@ -255,15 +256,14 @@ def _with_seams(p: Portfolio, built, start: int, pieces: Sequence[Piece], lam) -
     j = next(i for i, (a, _) in enumerate(pieces) if a == start)
     price_in = lam[j - 1]
     dt = built.step_hours
-    block = next(b for b in mx.blocks if b.name == BALANCE)
-    row = {key: block.start + i for i, key in enumerate(block.keys)}
+    rows = balance_rows(mx, p.storages, built.steps)
     cols: List[Tuple[list, float, float, float]] = []   # ([(row, coef)], lo, hi, cost)
     offset = 0.0
     for k, s in p.storages.items():
         a = (1.0 - s.loss_per_h) ** dt
         # the balance row at step 0 has a * soc_min on its right-hand side (piece_model):
         # the start is soc_min + extra, extra a column priced -lam
-        cols.append(([(row[(k, 0)], -a)], 0.0, s.soc_max - s.soc_min, -price_in[k]))
+        cols.append(([(int(rows[k][0]), -a)], 0.0, s.soc_max - s.soc_min, -price_in[k]))
         offset -= price_in[k] * s.soc_min
     ends = [b for _, b in pieces]
     for r in built.topology.routes:
@@ -275,11 +275,11 @@ def _with_seams(p: Portfolio, built, start: int, pieces: Sequence[Piece], lam) -
             src = start + t - D              # the step it left, on the whole horizon
             if src < 0:                       # in transit at the start: arrives as declared
                 fixed = r.in_transit / D
-                cols.append(([(row[(r.target, t)], -1.0)], fixed, fixed, 0.0))
+                cols.append(([(int(rows[r.target][t]), -1.0)], fixed, fixed, 0.0))
                 continue
             seam = next(i for i, b in enumerate(ends) if b > src)   # the piece it left in
             mu = max(lam[seam].get(r.target, 0.0), 0.0)
-            cols.append(([(row[(r.target, t)], -1.0)], 0.0, most, -mu))
+            cols.append(([(int(rows[r.target][t]), -1.0)], 0.0, most, -mu))
     cols += _mode_before(mx)
     if not cols:
         return mx

@@ -173,3 +173,21 @@ def test_pieces_that_do_not_cover_the_horizon_are_a_fault_of_the_caller():
         split_bound(p, [(0, 5), (6, T)], {})
     with pytest.raises(ValueError):
         seam_values(p, [(0, 5), (5, T - 1)])
+
+
+@pytest.mark.parametrize("family, seed", [("modes", 0), ("cascade", 1), ("linked", 0)])
+def test_an_independent_formulation_lies_between_the_stitched_schedule_and_the_bound(family, seed):
+    """The optimum of tests/oracle_pulp.py (written from docs/model.md, solved by CBC at gap 0,
+    nothing imported from the engine's compiler or solver) against the windows bounded by pieces."""
+    from oracle_pulp import OPTIMAL, solve_oracle
+    p = RP.make(family, seed)
+    oracle = solve_oracle(p)
+    if oracle.status != OPTIMAL:
+        pytest.skip(f"the oracle is {oracle.status}")
+    dt, T = p.horizon.step_hours, p.horizon.steps
+    commit = max(1, T // 4)
+    r = dispatch_windows(p, Windows(commit * dt, (commit // 2) * dt, bound="split"),
+                         SolveOptions(mip_gap=0.0))
+    w = r.summary["windows"]
+    assert r.status in ("optimal", "feasible"), (r.status, r.message)
+    assert _below(r.objective, oracle.objective) and _below(oracle.objective, w["lp_bound"])

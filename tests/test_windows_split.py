@@ -108,16 +108,22 @@ def test_a_lossless_store_with_unlimited_power_reaches_the_analytic_optimum_by_p
     assert r.status == "optimal"
 
 
-@pytest.mark.parametrize("family, seed", CASES, ids=[f"{f}-{s}" for f, s in CASES])
-def test_windows_bounded_by_pieces_stitch_below_the_optimum_below_the_bound(family, seed, tmp_path):
-    p = RP.make(family, seed)
-    best = _optimum(family, seed)
+def _by_split_windows(p):
+    """Windows of a quarter of the horizon seeing an eighth more, bounded by pieces, gap 0:
+    (result, its summary's windows figures), the result a schedule."""
     dt, T = p.horizon.step_hours, p.horizon.steps
     commit = max(1, T // 4)
     r = dispatch_windows(p, Windows(commit * dt, (commit // 2) * dt, bound="split"),
                          SolveOptions(mip_gap=0.0))
-    w = r.summary["windows"]
     assert r.status in ("optimal", "feasible"), (r.status, r.message)
+    return r, r.summary["windows"]
+
+
+@pytest.mark.parametrize("family, seed", CASES, ids=[f"{f}-{s}" for f, s in CASES])
+def test_windows_bounded_by_pieces_stitch_below_the_optimum_below_the_bound(family, seed, tmp_path):
+    p = RP.make(family, seed)
+    best = _optimum(family, seed)
+    r, w = _by_split_windows(p)
     assert w["bound_method"] == "split" and w["max_violation"] <= 1e-6
     assert _below(r.objective, best) and _below(best, w["lp_bound"])
     assert r.best_bound == w["lp_bound"]
@@ -184,10 +190,5 @@ def test_an_independent_formulation_lies_between_the_stitched_schedule_and_the_b
     oracle = solve_oracle(p)
     if oracle.status != OPTIMAL:
         pytest.skip(f"the oracle is {oracle.status}")
-    dt, T = p.horizon.step_hours, p.horizon.steps
-    commit = max(1, T // 4)
-    r = dispatch_windows(p, Windows(commit * dt, (commit // 2) * dt, bound="split"),
-                         SolveOptions(mip_gap=0.0))
-    w = r.summary["windows"]
-    assert r.status in ("optimal", "feasible"), (r.status, r.message)
+    r, w = _by_split_windows(p)
     assert _below(r.objective, oracle.objective) and _below(oracle.objective, w["lp_bound"])

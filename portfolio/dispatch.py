@@ -22,6 +22,7 @@ import pandas as pd
 
 from . import diagnostics as dg
 from . import provenance as prov
+from . import sketch
 from .compile import Built, build
 from .model import Portfolio
 from .contract import CAUTION
@@ -154,7 +155,8 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     source = prov.collect(p)                   # the start time and the inputs as they are now
     deadline = Deadline(options.time_limit)    # every phase below counts against it
     built = build(p, variant=options.variant)
-    sol = solve(built, options, progress, deadline=deadline)
+    hint = sketch.hint_for(p, options, deadline)       # short steps: modes from hourly ones
+    sol = solve(built, options, progress, deadline=deadline, hint=hint)
     status = sol.status
     relaxed: List[Relaxation] = []
     message = sol.message

@@ -361,11 +361,11 @@ def test_a_false_infeasible_is_solved_again_with_presolve_off(monkeypatch):
     real = D.solve
     calls = []
 
-    def lying_once(built, options=None, progress=None, deadline=None):
+    def lying_once(built, options=None, progress=None, deadline=None, hint=None):
         calls.append((built.relax, options.presolve))
         if len(calls) == 1:
             return solve.Solution(status="infeasible")
-        return real(built, options, progress, deadline=deadline)
+        return real(built, options, progress, deadline=deadline, hint=hint)
 
     monkeypatch.setattr(D, "solve", lying_once)
     r = dispatch(_reproducer(), SolveOptions(mip_gap=0.0))

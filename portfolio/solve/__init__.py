@@ -53,7 +53,8 @@ __all__ = [
 
 
 def solve(built, options: Optional[SolveOptions] = None,
-          progress: Optional[Progress] = None, deadline: Optional[Deadline] = None) -> Solution:
+          progress: Optional[Progress] = None, deadline: Optional[Deadline] = None,
+          hint=None) -> Solution:
     """Solve a :class:`~portfolio.compile.Built`; never raises for solver trouble.
 
     Every figure returned is certified (:mod:`.certify`); a claim that fails
@@ -61,6 +62,10 @@ def solve(built, options: Optional[SolveOptions] = None,
     dispatch's shared time limit (default: ``options.time_limit`` from now).
     Solver failures become ``status="error"`` with ``message`` set; an
     exception raised by ``progress`` stops the solve and propagates.
+    ``hint``: mode binaries (family -> asset -> one value per step, as
+    :func:`portfolio.sketch.mode_hint` gives) from which the matrix path makes
+    a second candidate first schedule (:func:`.warmstart.with_modes`), checked
+    like any other; the Pyomo path ignores it.
     """
     options = options or SolveOptions()
     deadline = deadline or Deadline(options.time_limit)
@@ -68,7 +73,7 @@ def solve(built, options: Optional[SolveOptions] = None,
         if options.interface == "pyomo":
             sol = solve_pyomo(built, options, progress, deadline)
         else:
-            sol = solve_matrix(built, options, progress, deadline)
+            sol = solve_matrix(built, options, progress, deadline, hint)
     except ProgressFailed as exc:
         raise exc.original
     except Infeasible as exc:

@@ -74,13 +74,13 @@ class _Job:
 
 
 def solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
-                 deadline: Deadline) -> Solution:
+                 deadline: Deadline, hint=None) -> Solution:
     t0 = time.perf_counter()
     lp, is_mip = to_highs_lp(built)
     sol = Solution(status=ERROR, handoff_seconds=time.perf_counter() - t0)
     start = None
     if is_mip and options.warm_start and not built.relax:
-        start = _first_schedule(built, lp, options, deadline, progress, sol)
+        start = _first_schedule(built, lp, options, deadline, progress, sol, hint)
     given = start.x if start is not None else None
     job = _Job(built, lp, is_mip, options, deadline, progress,
                start.lp_bound if start is not None else None, sol)
@@ -98,13 +98,27 @@ def solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
 
 
 def _first_schedule(built, lp, options: SolveOptions, deadline: Deadline,
-                    progress: Optional[Progress], sol: Solution) -> warmstart.Start:
-    """The warm start, or, when the relaxation gives nothing, a schedule that
-    stands still (if that is allowed), so that a short limit still returns one."""
+                    progress: Optional[Progress], sol: Solution, hint=None) -> warmstart.Start:
+    """The warm start (the better of the relaxation's and, with a ``hint``, the
+    sketch's modes'), or, when neither gives anything, a schedule that stands
+    still (if that is allowed), so that a short limit still returns one."""
     def new_highs():
         return highs.new_highs(options, deadline.left())
 
+    sketched = None
+    if hint:
+        sketched = warmstart.with_modes(built, lp, new_highs, warmstart.budget(deadline.left()), hint)
+        if sketched.x is None:
+            sol.notes.append(f"no start from the sketch: {sketched.note}")
     start = warmstart.find(built, lp, new_highs, warmstart.budget(deadline.left()))
+    if sketched is not None and sketched.x is not None:
+        sense = 1.0 if built.matrix.maximize else -1.0
+        if start.x is None or sense * (sketched.objective - start.objective) > 0:
+            start = warmstart.Start(sketched.x, sketched.objective, start.lp_bound,
+                                    start.seconds, fixed=sketched.fixed, note="the sketch's modes")
+            sol.notes.append("the first schedule came from the portfolio solved on hourly "
+                             "steps (a sketch, docs/windows.md)")
+        start.seconds += sketched.seconds
     sol.start_seconds = start.seconds
     sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
     if start.x is not None:

@@ -165,30 +165,60 @@ def idle(built, lp, new_highs: Callable, seconds: float) -> Start:
     curtailed).  What is left is an LP, plus the direction binaries of the
     connections (few, and kept integer).  Checked like any start.
     """
-    import highspy
-
-    t0 = time.perf_counter()
     mx = built.matrix
     cols = [np.arange(*mx.var_ranges[n]) for n in IDLE_FAMILIES if n in mx.var_ranges]
     if not cols or seconds <= 0:
         return Start(None, None, None, 0.0, note="no mode binaries" if not cols else "no time left")
     fix = np.concatenate(cols).astype(np.int32)
+    return _with_fixed(built, lp, new_highs, seconds, fix, np.zeros(len(fix)), "the idle schedule",
+                       "standing still is not a schedule")
+
+
+def with_modes(built, lp, new_highs: Callable, seconds: float, modes) -> Start:
+    """The best schedule with the mode binaries fixed at ``modes`` (family -> asset -> one
+    value per step, e.g. :func:`portfolio.sketch.mode_hint`'s); every other column is
+    solved for (an LP, plus the binaries the modes do not name).  Checked like any start."""
+    mx = built.matrix
+    cols, vals = [], []
+    for name, per_asset in (modes or {}).items():
+        if name not in mx.var_ranges:
+            continue
+        first = mx.var_ranges[name][0]
+        for asset, v in per_asset.items():
+            block = built.var_blocks.get(name, {}).get(asset)
+            v = np.asarray(v, dtype=float)
+            if block is None or len(v) != built.steps:
+                return Start(None, None, None, 0.0, note=f"the modes given do not fit {name}[{asset}]")
+            cols.append(first + block + np.arange(built.steps))
+            vals.append(v)
+    if not cols or seconds <= 0:
+        return Start(None, None, None, 0.0, note="no modes given" if not cols else "no time left")
+    return _with_fixed(built, lp, new_highs, seconds, np.concatenate(cols).astype(np.int32),
+                       np.concatenate(vals), "the sketch's modes", "the sketch's modes give no schedule")
+
+
+def _with_fixed(built, lp, new_highs: Callable, seconds: float, fix: np.ndarray, vals: np.ndarray,
+                what: str, none: str) -> Start:
+    import highspy
+
+    t0 = time.perf_counter()
+    mx = built.matrix
     h = new_highs()
     h.passModel(lp)
-    h.changeColsBounds(len(fix), fix, np.zeros(len(fix)), np.zeros(len(fix)))
+    h.changeColsBounds(len(fix), fix, vals, vals)
     set_limit(h, seconds)
     try:
         h.run()
     except Abandoned:
         return Start(None, None, None, time.perf_counter() - t0,
-                     note="the idle schedule's solve did not stop at its time limit and was left")
+                     note=f"{what}: the solve did not stop at its time limit and was left")
     found = h.getInfo().primal_solution_status == highspy.SolutionStatus.kSolutionStatusFeasible
     x = np.asarray(h.getSolution().col_value, dtype=float) if found else None
     elapsed = time.perf_counter() - t0
     if x is None:
         return Start(None, None, None, elapsed,
-                     note=f"standing still is not a schedule ({h.modelStatusToString(h.getModelStatus())})")
+                     note=f"{none} ({h.modelStatusToString(h.getModelStatus())})")
     x = np.where(mx.integer, np.round(x), x)
     if check_vector(mx, x)[0] > TOL:
-        return Start(None, None, None, elapsed, note="the idle schedule does not satisfy the model")
+        return Start(None, None, None, elapsed, note=f"{what}: the schedule does not satisfy the model")
     return Start(x, objective(mx, x), None, elapsed, fixed=len(fix))

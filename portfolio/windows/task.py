@@ -7,6 +7,8 @@ cluster can run it as well as this process.  In target mode a window whose
 end target cannot be met is solved again with its end valued instead
 (``fallback``), and says so; as is a pinned window, and a window of
 limited foresight that cannot hold its start state (then its end is free).
+A window of steps shorter than an hour with binary rules starts from a
+sketch on hourly steps too (:mod:`portfolio.sketch`).
 """
 
 from __future__ import annotations
@@ -17,9 +19,10 @@ from typing import Dict, Hashable, Optional
 
 import numpy as np
 
+from .. import sketch
 from ..compile import build
 from ..model import Portfolio
-from ..solve import FEASIBLE, OPTIMAL, SolveOptions, solve
+from ..solve import FEASIBLE, OPTIMAL, Deadline, SolveOptions, solve
 
 
 @dataclass
@@ -71,7 +74,8 @@ def solve_window(task: WindowTask) -> WindowOutcome:
 
 def _solve(task: WindowTask, p: Portfolio, options: SolveOptions, end: str) -> WindowOutcome:
     built = build(p, variant=options.variant)
-    sol = solve(built, options)
+    deadline = Deadline(options.time_limit)
+    sol = solve(built, options, deadline=deadline, hint=sketch.hint_for(p, options, deadline))
     out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, str(end), sol.status,
                         sol.objective, sol.best_bound, sol.mip_gap, message=sol.message)
     if out.solved:

@@ -4,6 +4,7 @@
                                      [--end value] [--gap 1e-4] [--window-limit S]
                                      [--monolith-limit 0] [--workers 1] [--foresight 48h]
                                      [--step-minutes 60] [--bound auto|whole|split]
+                                     [--no-sketch]
 
 The fleet of tests/bench/bench_time_limit.py: batteries on three sites over
 an hourly year, exclusive modes, minimum output when running and a 2 h
@@ -29,6 +30,7 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path[:0] = [os.path.dirname(os.path.dirname(HERE)), os.path.dirname(HERE), HERE]
 
 from bench_time_limit import portfolio  # noqa: E402
+from portfolio import sketch  # noqa: E402
 from portfolio.dispatch import dispatch  # noqa: E402
 from portfolio.solve import SolveOptions  # noqa: E402
 from portfolio.windows import dispatch_windows, foresight, parse  # noqa: E402
@@ -52,7 +54,11 @@ def main():
     ap.add_argument("--monolith-limit", type=float, default=0.0, help="seconds; 0: no monolith")
     ap.add_argument("--step-minutes", type=int, default=60, help="60 (hours) or 15 (quarter-hours)")
     ap.add_argument("--bound", default="auto", help="auto, whole or split (docs/windows.md)")
+    ap.add_argument("--no-sketch", action="store_true",
+                    help="no hourly sketch as a first schedule (portfolio/sketch.py)")
     args = ap.parse_args()
+    if args.no_sketch:
+        sketch.needs_sketch = lambda p: False
     p = portfolio(args.storages, args.hours, step_minutes=args.step_minutes)
     if args.foresight:
         spec = foresight(args.foresight, args.windows.partition("/")[0], args.end)

@@ -49,6 +49,7 @@ _positive_float = _checked(float, lambda v: v > 0, "above zero")
 _gap = _checked(float, lambda v: 0 <= v < 1, "a fraction from 0 to below 1 (0.0001 = 0.01 %)")
 MAX_THREADS = 256     # as portfolio.solve.MAX_THREADS (not imported here: start-up stays light)
 _threads = _checked(int, lambda v: 1 <= v <= MAX_THREADS, f"from 1 to {MAX_THREADS}")
+_cases = _checked(int, lambda v: v >= 1, "from 1 up")
 
 
 _CONFINE_HELP = ("read no file outside the portfolio file's folder (no absolute paths, '..' or "
@@ -133,6 +134,9 @@ def build_parser() -> argparse.ArgumentParser:
     sd.add_argument("--time-limit", type=_positive_float, metavar="S", help="solver seconds per case")
     sd.add_argument("--gap", type=_gap, metavar="R", help="relative MIP gap per case (default 0.0001)")
     sd.add_argument("--threads", type=_threads, metavar="N", help="HiGHS threads per case (default 1)")
+    sd.add_argument("--chunk", type=_cases, metavar="N",
+                    help="cases per Dask task (default: large tasks first, single cases last; "
+                         "1: one case a task, for a few long cases)")
     sd.add_argument("--quiet", "-q", action="store_true", help="no progress bar, only the last line")
     sd.add_argument("--confine", action="store_true", help=_CONFINE_HELP)
 
@@ -468,6 +472,9 @@ def _windows_spec(args, horizon):
 
 
 def cmd_study(args, out, err) -> int:
+    if args.scheduler is None:
+        from .study.run import warm
+        warm()       # the local workers' fork server imports while the file is read and checked
     r, code = _lint_first(args.file, err, "no case was run", args.confine)
     if code is not None:
         return code
@@ -491,7 +498,7 @@ def cmd_study(args, out, err) -> int:
     bar = StudyProgress(err, quiet=args.quiet)
     try:
         got = run(r.portfolio, study.name, out_dir, SolveOptions(**kw), scheduler=args.scheduler,
-                  workers=args.workers, schedules=args.schedules, progress=bar)
+                  workers=args.workers, schedules=args.schedules, progress=bar, chunk=args.chunk)
     except StudyError as e:
         bar.close()
         print(printable(f"portfolio: error: {e}"), file=err)

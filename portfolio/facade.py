@@ -120,7 +120,8 @@ class LoadedPortfolio:
             raise ValueError("marginal_values() takes a dispatch result of this portfolio")
         return attach(result, options)
 
-    def study(self, name=None, client=None, out=None, options=None, schedules=False, **settings):
+    def study(self, name=None, client=None, out=None, options=None, schedules=False, chunk=None,
+              **settings):
         """Run the study ``name`` (the file's only study when None) and return its cases
         table, a ``pandas.DataFrame`` with one row per case (docs/studies.md).
 
@@ -130,13 +131,15 @@ class LoadedPortfolio:
         the same folder solves only the cases whose inputs changed (without one, a
         temporary folder is used and removed).  ``settings`` build the solve options
         (``time_limit=60``; each case gets one HiGHS thread unless ``threads`` says
-        otherwise).  Raises :class:`portfolio.study.StudyError` for an unknown study.
+        otherwise).  ``chunk``: cases per Dask task (None: the runner's guided sizes; 1: one
+        case a task).  Raises :class:`portfolio.study.StudyError` for an unknown study or a
+        chunk that is not a whole number from 1 up.
         """
         from .study import run
         if settings:
             settings.setdefault("threads", 1)
         return run(self.model, name, out=out, options=_options(options, settings) if (options or settings)
-                   else None, client=client, schedules=schedules).frame
+                   else None, client=client, schedules=schedules, chunk=chunk).frame
 
     def graph(self):
         """The network graph (:func:`portfolio.graph.build_graph`)."""

@@ -472,3 +472,32 @@ def test_a_task_lost_with_its_worker_is_solved_again_on_a_rerun(tmp_path):
 
 def _raise(x):
     raise RuntimeError("a worker went away")
+
+
+def test_chunk_reaches_the_runner_from_the_cli_and_the_api(tmp_path, monkeypatch, capsys):
+    import portfolio.study as S
+    from portfolio.cli import main
+    good = tmp_path / "good.folio"
+    good.write_text(_text([2 * v for v in PRICES]))
+    out, err = _Sink(), _Sink()
+    # refused by the command line itself: exit 2, nothing run, no folder
+    assert main(["study", str(good), "--out", str(tmp_path / "out"), "--chunk", "0"], out, err) == 2
+    said = err.text + capsys.readouterr().err        # argparse's own message
+    assert "--chunk" in said and "from 1 up" in said and not (tmp_path / "out").exists()
+    with pytest.raises(S.StudyError, match="chunk"):
+        portfolio.load(good).study("sizes", chunk=0)
+    asked = []
+    real = S.run
+
+    def spy(*a, **kw):
+        asked.append(kw.get("chunk"))
+        return real(*a, **kw)
+
+    monkeypatch.setattr(S, "run", spy)
+    assert main(["study", str(good), "--out", str(tmp_path / "cli"), "--workers", "1", "--chunk", "3",
+                 "-q"], out, err) == 0
+    df = portfolio.load(good).study("sizes", out=tmp_path / "api", chunk=2, threads=1)
+    assert asked == [3, 2]
+    want = _serial_objectives(portfolio.load(good).model)
+    assert np.allclose(pd.read_csv(tmp_path / "cli" / "cases.csv")["objective"], want, rtol=0, atol=1e-9)
+    assert np.allclose(df["objective"], want, rtol=0, atol=1e-9)

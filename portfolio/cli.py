@@ -383,7 +383,8 @@ def cmd_dispatch(args, out, err) -> int:
             from .windows import dispatch_windows
             if default and not args.quiet:
                 print(printable(f"portfolio: {default}"), file=err)
-            result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows)
+            result = dispatch_windows(r.portfolio, spec, options, progress=progress.windows,
+                                      phase=progress.phase)
             if default:
                 result.summary["notes"].append(default)
         if args.marginal_values:

@@ -269,6 +269,16 @@ class Progress:
             if self.status is not None:
                 self.status.update(text)
 
+    def phase(self, what, done, total, elapsed):
+        """Before and during the LPs around the windows (portfolio.windows)."""
+        if self.quiet:
+            return
+        text = f"{what}: LP {done}/{total}  {elapsed:.0f} s" if total > 1 else f"{what}...  {elapsed:.0f} s"
+        with self.lock:
+            self.text = text
+            if self.status is not None:
+                self.status.update(text)
+
     def __call__(self, elapsed, objective=None, bound=None, gap=None):
         if self.quiet:
             return

@@ -171,3 +171,24 @@ def test_the_cli_dispatches_by_windows_bounded_by_pieces(tmp_path, capsys):
     assert w["stitched_objective"] <= w["lp_bound"] + 1e-6 * max(1.0, abs(w["lp_bound"]))
     assert w["max_violation"] <= 1e-6
     assert any("piece by piece" in n for n in summary["notes"]), summary["notes"]
+
+
+def test_the_lps_around_the_windows_are_told_as_phases():
+    # the bound by pieces and its seam prices are most of a split dispatch's time: each LP is
+    # told (done counts up to its total, in order), so a progress display is never frozen
+    from portfolio.windows import run as R
+    p = RP.make("modes", 1)
+    T, dt = p.horizon.steps, p.horizon.step_hours
+    commit = max(1, T // 4) * dt
+    told = []
+    r = dispatch_windows(p, Windows(commit, 0, bound="split"), SolveOptions(mip_gap=0.0),
+                         phase=lambda what, done, total, s: told.append((what, done, total)))
+    assert r.objective is not None
+    for what in (R.PHASE_PRICES, R.PHASE_BOUND):
+        mine = [(d, t) for w, d, t in told if w == what]
+        total = mine[0][1]
+        assert total > 0 and [d for d, _ in mine] == list(range(total + 1)), (what, mine)
+    told.clear()
+    dispatch_windows(p, Windows(commit, 0, bound="whole"), SolveOptions(mip_gap=0.0),
+                     phase=lambda what, done, total, s: told.append((what, done, total)))
+    assert told == [(R.PHASE_LP, 0, 1), (R.PHASE_LP, 1, 1)]

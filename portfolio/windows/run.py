@@ -6,7 +6,7 @@ See docs/windows.md for the method and docs/model.md for its equations.
 the whole horizon, the summary of docs/outputs.md) with the per-window
 table in ``result.windows`` and the figures of the decomposition in
 ``summary["windows"]``.  It never prints; ``progress`` is called after each
-window.
+window, ``phase`` (if given) before and during the LPs around them.
 """
 
 from __future__ import annotations
@@ -38,13 +38,35 @@ Spec = Union[Windows, Foresight]
 
 # progress(windows done, windows in all, seconds so far, stitched objective so far)
 WindowProgress = Callable[[int, int, float, Optional[float]], None]
+# phase(what, LPs done, LPs in all, seconds so far): the LPs before and after the windows,
+# what = PHASE_LP (the whole horizon's, one), PHASE_PRICES or PHASE_BOUND (by pieces)
+PhaseProgress = Callable[[str, int, int, float], None]
+PHASE_LP = "whole-horizon LP"
+PHASE_PRICES = "seam prices"
+PHASE_BOUND = "bound by pieces"
+
+
+class _Ticks:
+    """``phase`` told after each of ``total`` LPs of one phase (nothing when phase is None)."""
+
+    def __init__(self, phase: Optional[PhaseProgress], what: str, total: int, t0: float):
+        self.phase, self.what, self.total, self.t0, self.done = phase, what, total, t0, 0
+        self.tell()
+
+    def tell(self) -> None:
+        if self.phase is not None:
+            self.phase(self.what, self.done, self.total, time.perf_counter() - self.t0)
+
+    def __call__(self) -> None:
+        self.done += 1
+        self.tell()
 
 
 def dispatch_windows(p: Portfolio, spec: Optional[Spec] = None,
                      options: Optional[SolveOptions] = None,
                      progress: Optional[WindowProgress] = None,
                      runner: Callable[[WindowTask], WindowOutcome] = solve_window,
-                     executor=None) -> DispatchResult:
+                     executor=None, phase: Optional[PhaseProgress] = None) -> DispatchResult:
     """Schedule ``p`` window by window (raises :class:`~.spec.WindowsError` for a bad ``spec``).
 
     ``spec``: :class:`~.spec.Windows` (perfect foresight; in parallel when
@@ -57,14 +79,16 @@ def dispatch_windows(p: Portfolio, spec: Optional[Spec] = None,
     ``submit(fn, task)`` returning a future with ``result()`` (a
     ``concurrent.futures`` executor, a Dask ``distributed.Client``); None: a
     process pool of ``spec.workers`` processes, started and stopped here.
+    ``phase(what, done, total, seconds)``: told before the whole-horizon LP
+    and after each LP of the seam prices and of the bound by pieces.
     """
     source = collect(p)                    # the start time and the inputs as they are now
-    result = _dispatch_windows(p, spec, options, progress, runner, executor)
+    result = _dispatch_windows(p, spec, options, progress, runner, executor, phase)
     result.summary["provenance"] = source
     return result
 
 
-def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchResult:
+def _dispatch_windows(p, spec, options, progress, runner, executor, phase=None) -> DispatchResult:
     spec = spec or Windows()
     options = options or SolveOptions()
     T, dt = p.horizon.steps, p.horizon.step_hours
@@ -80,9 +104,12 @@ def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchR
     # split: the whole portfolio only as a layout (no rows) to carry state and tabulate with
     full = build(p, variant=options.variant, layout_only=split)
     if split:
-        relaxed = _guide(p, pieces, options) if not sighted else Relaxed("not needed", None, 0.0)
+        relaxed = (_guide(p, pieces, options, phase, t0) if not sighted
+                   else Relaxed("not needed", None, 0.0))
     else:
+        lp = _Ticks(phase, PHASE_LP, 1, t0)
         relaxed = relax(full, replace(options, time_limit=None))   # bound and end values: whole
+        lp()
     head = _head(spec, pieces, relaxed, method)
     if not split and not relaxed.solved:
         infeasible = "nfeasible" in relaxed.status
@@ -100,11 +127,11 @@ def _dispatch_windows(p, spec, options, progress, runner, executor) -> DispatchR
     if failure is not None:
         return failure
     if split:
-        _split_bound(run, head)
+        _split_bound(run, head, phase)
     return _stitched(p, full, x, options, head, run.outcomes, t0, run.resolved)
 
 
-def _guide(p: Portfolio, pieces, options: SolveOptions) -> Relaxed:
+def _guide(p: Portfolio, pieces, options: SolveOptions, phase=None, t_phase: float = 0.0) -> Relaxed:
     """The value of stored energy at every step where a window ends or commits, by passes
     over pieces (:func:`.split.guide_values`): the windows' end values when the whole
     horizon's LP is not solved."""
@@ -114,7 +141,8 @@ def _guide(p: Portfolio, pieces, options: SolveOptions) -> Relaxed:
                     if 0 < b < T})
     cuts = _pieces(seams, T)
     t0 = time.perf_counter()
-    sv = guide_values(p, cuts, options=replace(options, time_limit=None))
+    ticks = _Ticks(phase, PHASE_PRICES, 3 * max(len(cuts) - 1, 0), t_phase or t0)
+    sv = guide_values(p, cuts, options=replace(options, time_limit=None), tick=ticks)
     out = Relaxed("seam values by pieces", None, 0.0)
     for k in p.storages:
         val = np.full(T, np.nan)
@@ -130,7 +158,7 @@ def _pieces(seams, T: int) -> list:
     return [(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
 
 
-def _split_bound(run: _Run, head: dict) -> None:
+def _split_bound(run: _Run, head: dict, phase=None) -> None:
     """The bound by pieces of the committed windows (:func:`.split.split_bound`), its seam
     prices from a backward pass whose LPs start from the stitched schedule (its levels, runs,
     water on the way); into ``head``."""
@@ -148,8 +176,9 @@ def _split_bound(run: _Run, head: dict) -> None:
                 valued.value[k][stop - 1] = prices[k]
         return window_model(p, run.full, run.values, start, stop - start, END_VALUE, valued)
 
-    sv = seam_values(p, cuts, options=quiet, model_of=model_of)
-    sb = split_bound(p, cuts, sv.values, options=quiet)
+    ticks = _Ticks(phase, PHASE_BOUND, 2 * len(cuts) - 1, run.t0)
+    sv = seam_values(p, cuts, options=quiet, model_of=model_of, tick=ticks)
+    sb = split_bound(p, cuts, sv.values, options=quiet, tick=ticks)
     head["lp_bound"] = sb.bound
     head["lp_seconds"] = float(head["lp_seconds"]) + time.perf_counter() - t0
     if sb.bound is None:

@@ -35,7 +35,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field, replace
-from typing import Dict, List, Optional, Sequence, Tuple
+from typing import Callable, Dict, List, Optional, Sequence, Tuple
 
 import numpy as np
 import scipy.sparse as sp
@@ -128,7 +128,8 @@ def _finite(v: float) -> float:
 
 def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str, np.ndarray]] = None,
                 options: Optional[SolveOptions] = None,
-                seconds: Optional[float] = None, model_of=None, rules: bool = False) -> SeamValues:
+                seconds: Optional[float] = None, model_of=None, rules: bool = False,
+                tick: Optional[Callable[[], None]] = None) -> SeamValues:
     """The price of stored energy at each seam by a backward pass (module docstring).
 
     The price at the seam between pieces j and j+1 is the dual of the balance row there in
@@ -142,7 +143,7 @@ def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str
     ``states`` is then not read.  ``rules``: keep the binary rules in these LPs (their
     relaxation); by default they are left out (:func:`without_rules`: the prices are
     guidance, and with minimum runs of many steps the LPs with them take ten times as
-    long).  No whole-horizon model is built.
+    long).  No whole-horizon model is built.  ``tick()`` is called after each LP (progress).
     """
     t0 = time.perf_counter()
     T = p.horizon.steps
@@ -168,6 +169,8 @@ def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str
             model = without_rules(model)
         rel = relax(build(model, variant=variant), options, seconds)
         statuses.append(rel.status)
+        if tick is not None:
+            tick()
         if rel.solved:
             for k in p.storages:
                 values[k][j] = rel.value[k][seam - start - 1]
@@ -177,23 +180,24 @@ def seam_values(p: Portfolio, pieces: Sequence[Piece], states: Optional[Dict[str
 
 
 def guide_values(p: Portfolio, pieces: Sequence[Piece], options: Optional[SolveOptions] = None,
-                 seconds: Optional[float] = None, rounds: int = 1) -> SeamValues:
+                 seconds: Optional[float] = None, rounds: int = 1,
+                 tick: Optional[Callable[[], None]] = None) -> SeamValues:
     """Seam prices without a schedule: a backward pass from the declared start levels, then
     ``rounds`` times a forward pass (each piece's LP from where the one before it ended,
     its end valued at the prices so far) giving the levels at the seams, and a backward
-    pass at those levels."""
+    pass at those levels (``(1 + 2 * rounds) * (len(pieces) - 1)`` LPs, ``tick()`` after each)."""
     t0 = time.perf_counter()
-    sv = seam_values(p, pieces, options=options, seconds=seconds)
+    sv = seam_values(p, pieces, options=options, seconds=seconds, tick=tick)
     statuses = list(sv.statuses)
     for _ in range(rounds):
-        states = _forward(p, pieces, sv.values, options, seconds, statuses)
-        sv = seam_values(p, pieces, states=states, options=options, seconds=seconds)
+        states = _forward(p, pieces, sv.values, options, seconds, statuses, tick)
+        sv = seam_values(p, pieces, states=states, options=options, seconds=seconds, tick=tick)
         statuses += sv.statuses
     return SeamValues(sv.values, time.perf_counter() - t0, statuses)
 
 
 def _forward(p: Portfolio, pieces: Sequence[Piece], values: Dict[str, np.ndarray], options,
-             seconds, statuses: List[str]) -> Dict[str, np.ndarray]:
+             seconds, statuses: List[str], tick=None) -> Dict[str, np.ndarray]:
     """Per storage its level at each seam along piece LPs (without the binary rules) solved
     in order (where a piece gives no schedule, the level it started from)."""
     n = len(pieces)
@@ -205,6 +209,8 @@ def _forward(p: Portfolio, pieces: Sequence[Piece], values: Dict[str, np.ndarray
                                           transit=_transit(p, prices)))
         rel = relax(build(model, variant=(options or SolveOptions()).variant), options, seconds)
         statuses.append(rel.status)
+        if tick is not None:
+            tick()
         for k in p.storages:
             if rel.solved:
                 at[k] = float(rel.soc[k][-1])
@@ -219,9 +225,11 @@ def _transit(p: Portfolio, prices: Dict[str, float]) -> Dict[str, float]:
 
 def split_bound(p: Portfolio, pieces: Sequence[Piece], values: Dict[str, np.ndarray],
                 options: Optional[SolveOptions] = None,
-                seconds: Optional[float] = None) -> SplitBound:
+                seconds: Optional[float] = None,
+                tick: Optional[Callable[[], None]] = None) -> SplitBound:
     """The bound by pieces with seam prices ``values`` (as :attr:`SeamValues.values`; NaN
-    counts as zero): an upper bound on every schedule of ``p``, proven (module docstring)."""
+    counts as zero): an upper bound on every schedule of ``p``, proven (module docstring);
+    ``tick()`` after each piece."""
     t0 = time.perf_counter()
     options = options or SolveOptions()
     T = p.horizon.steps
@@ -239,6 +247,8 @@ def split_bound(p: Portfolio, pieces: Sequence[Piece], values: Dict[str, np.ndar
         status, _, y = solve_relaxation(mx, options, seconds)
         b = dual_bound(mx, y) if y is not None else None
         per.append(b)
+        if tick is not None:
+            tick()
         if b is None or not math.isfinite(b):
             when = p.horizon.index[start].isoformat()
             return SplitBound(None, f"the piece from {when} gave no bound ({status})",

@@ -161,9 +161,10 @@ def mode_hint(p: Portfolio, options, seconds: float) -> Hint:
                 note="" if values else "no mode binaries")
 
 
-def hint_for(p: Portfolio, options, deadline):
-    """The mode hint for a solve of ``p`` under ``deadline`` (None: no sketch applies, it
-    found nothing, or a start is not wanted: ``options.warm_start`` off or the Pyomo path)."""
+def hint_for(p: Portfolio, options, deadline) -> Optional[Hint]:
+    """The sketch for a solve of ``p`` under ``deadline`` (None: no sketch applies, or a
+    start is not wanted: ``options.warm_start`` off or the Pyomo path); its ``values`` are
+    the ``hint`` of :func:`portfolio.solve.solve`, its ``seconds`` part of the start's time."""
     if not (options.warm_start and options.interface == "matrix" and needs_sketch(p)):
         return None
-    return mode_hint(p, options, budget(deadline.left())).values
+    return mode_hint(p, options, budget(deadline.left()))

@@ -201,3 +201,17 @@ def test_windows_on_quarter_hours_start_from_the_sketch_and_stitch(tmp_path):
     assert r.status in ("optimal", "feasible") and r.objective is not None
     assert r.objective <= r.summary["windows"]["lp_bound"] + 1e-6
     _audited(p, r, tmp_path)
+
+
+def test_the_sketchs_time_is_counted_in_the_starts(monkeypatch):
+    import time as _time
+    real = sketch.mode_hint
+
+    def slow(*a, **k):
+        _time.sleep(0.3)
+        return real(*a, **k)
+
+    monkeypatch.setattr(sketch, "mode_hint", slow)
+    r = dispatch(_fleet(1), SolveOptions(mip_gap=0.0))
+    assert r.summary["start_seconds"] >= 0.3
+    assert r.summary["solve_seconds"] >= r.summary["start_seconds"]

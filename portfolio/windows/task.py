@@ -75,7 +75,8 @@ def solve_window(task: WindowTask) -> WindowOutcome:
 def _solve(task: WindowTask, p: Portfolio, options: SolveOptions, end: str) -> WindowOutcome:
     built = build(p, variant=options.variant)
     deadline = Deadline(options.time_limit)
-    sol = solve(built, options, deadline=deadline, hint=sketch.hint_for(p, options, deadline))
+    drawn = sketch.hint_for(p, options, deadline)
+    sol = solve(built, options, deadline=deadline, hint=drawn.values if drawn is not None else None)
     out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, str(end), sol.status,
                         sol.objective, sol.best_bound, sol.mip_gap, message=sol.message)
     if out.solved:

@@ -155,12 +155,8 @@ def dispatch(p: Portfolio, options: Optional[SolveOptions] = None,
     source = prov.collect(p)                   # the start time and the inputs as they are now
     deadline = Deadline(options.time_limit)    # every phase below counts against it
     built = build(p, variant=options.variant)
-    drawn = sketch.hint_for(p, options, deadline)      # short steps: modes from hourly ones
     sol = solve(built, options, progress, deadline=deadline,
-                hint=drawn.values if drawn is not None else None)
-    if drawn is not None:                              # the sketch's time is the start's too
-        sol.start_seconds += drawn.seconds
-        sol.solve_seconds += drawn.seconds
+                hint=sketch.sketcher(p, options))      # short steps: modes from hourly ones
     status = sol.status
     relaxed: List[Relaxation] = []
     message = sol.message

@@ -44,14 +44,14 @@ from typing import Dict, Hashable, Optional
 import numpy as np
 
 from .compile import build
-from .model import Portfolio
+from .compile.families._common import steps_before, whole_steps
+from .model import PRIOR_CHARGE, PRIOR_DISCHARGE, Portfolio
 from .solve import FEASIBLE, OPTIMAL, solve
 
 MODE_FAMILIES = ("mode_u", "mode_charge", "mode_discharge")   # compile/families/modes.py
 COARSE_HOURS = 1.0       # the sketch's step
-SHARE = 0.5              # of a time limit, at most, for the sketch's own solve
+MAX_SECONDS = 30.0       # the sketch's own solve at most (its share of a limit: solve/matrix.py)
 GAP = 1e-3               # its MIP gap at least this: a start need not be proven
-MAX_SECONDS = 30.0       # and never more
 
 
 class NotCoarsenable(ValueError):
@@ -125,17 +125,12 @@ def _sum_groups(mwh, f: int) -> np.ndarray:
     return v.reshape(-1, f).sum(axis=1)
 
 
-def budget(time_left: Optional[float]) -> float:
-    """Seconds the sketch's solve may take of what is left of a time limit."""
-    if time_left is None:
-        return MAX_SECONDS
-    return max(0.0, min(MAX_SECONDS, SHARE * float(time_left)))
-
-
-def mode_hint(p: Portfolio, options, seconds: float) -> Hint:
-    """Solve ``p`` on the coarser grid within ``seconds`` and return its mode binaries
-    repeated over the fine steps (``options``: the fine solve's; its gap is kept)."""
+def mode_hint(p: Portfolio, options, seconds: Optional[float]) -> Hint:
+    """Solve ``p`` on the coarser grid within ``seconds`` (None: :data:`MAX_SECONDS`) and
+    return its mode binaries repeated over the fine steps (``options``: the fine solve's;
+    its gap at least :data:`GAP`)."""
     t0 = time.perf_counter()
+    seconds = MAX_SECONDS if seconds is None else min(float(seconds), MAX_SECONDS)
     f = factor_for(p)
     if f < 2:
         return Hint(None, 0.0, note="the steps are not a whole divisor of the sketch's")
@@ -146,6 +141,7 @@ def mode_hint(p: Portfolio, options, seconds: float) -> Hint:
     except NotCoarsenable as exc:
         return Hint(None, time.perf_counter() - t0, factor=f, note=str(exc))
     cb = build(coarse, variant=options.variant)
+    _pin_carried(p, cb, f)
     sol = solve(cb, replace(options, time_limit=max(seconds - (time.perf_counter() - t0), 0.01),
                             mip_gap=max(options.mip_gap, GAP), explain_infeasible=False,
                             interface="matrix"))
@@ -161,10 +157,47 @@ def mode_hint(p: Portfolio, options, seconds: float) -> Hint:
                 note="" if values else "no mode binaries")
 
 
-def hint_for(p: Portfolio, options, deadline) -> Optional[Hint]:
-    """The sketch for a solve of ``p`` under ``deadline`` (None: no sketch applies, or a
-    start is not wanted: ``options.warm_start`` off or the Pyomo path); its ``values`` are
-    the ``hint`` of :func:`portfolio.solve.solve`, its ``seconds`` part of the start's time."""
+def _carried(p: Portfolio, f: int):
+    """Per store whose run or rest carried in from before the horizon the FINE model still
+    asks to go on: (store, the mode to keep or None for a rest, coarse steps it covers).
+    The coarse model keeps such a run too, except where its rule is one coarse step or
+    less: it then has no such rows at all (one step is always a whole run), while the fine
+    one still asks for the rest of it."""
+    dt = float(p.horizon.step_hours)
+    for k, s in p.storages.items():
+        before = steps_before(s, dt)
+        if before is None or s.prior_mode is None:
+            continue
+        if s.prior_mode in (PRIOR_CHARGE, PRIOR_DISCHARGE):
+            keep, left = s.prior_mode, whole_steps(s.min_run_h, dt) - before
+        else:
+            keep, left = None, whole_steps(s.min_rest_h, dt) - before
+        if left > 0:
+            yield k, keep, -(-left // f)
+
+
+def _pin_carried(p: Portfolio, cb, f: int) -> None:
+    """Fix the coarse model's mode binaries over the first coarse steps of every carried
+    run or rest the fine model still asks for (:func:`_carried`), so that its schedule
+    plans around them."""
+    mx = cb.matrix
+    fams = {PRIOR_CHARGE: "mode_charge", PRIOR_DISCHARGE: "mode_discharge"}
+    for k, keep, n in _carried(p, f):
+        for mode, name in fams.items():
+            block = cb.var_blocks.get(name, {}).get(k)
+            if block is None:
+                continue
+            cols = mx.var_ranges[name][0] + block + np.arange(min(n, cb.steps))
+            v = 1.0 if mode == keep else 0.0
+            mx.col_lower[cols] = v
+            mx.col_upper[cols] = v
+
+
+def sketcher(p: Portfolio, options):
+    """The ``hint`` for :func:`portfolio.solve.solve` of ``p``: a callable that, given
+    seconds, draws the sketch (:func:`mode_hint`); None where no sketch applies or a start
+    is not wanted (``options.warm_start`` off, the Pyomo path).  The solve calls it only
+    when the LP relaxation's start gave nothing."""
     if not (options.warm_start and options.interface == "matrix" and needs_sketch(p)):
         return None
-    return mode_hint(p, options, budget(deadline.left()))
+    return lambda seconds: mode_hint(p, options, seconds)

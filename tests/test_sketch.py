@@ -150,7 +150,14 @@ def test_on_hourly_data_the_start_is_the_fine_optimum(seed):
     assert start.objective <= best.objective + 1e-6
 
 
-def test_a_sketch_the_fine_steps_cannot_follow_is_dropped():
+def _no_relaxation_start(monkeypatch):
+    """The LP relaxation's start gives nothing (as when its LP outlasts a short limit):
+    the only case in which a solve asks for the sketch."""
+    monkeypatch.setattr(warmstart, "find",
+                        lambda *a, **k: warmstart.Start(None, None, None, 0.0, note="nothing"))
+
+
+def test_a_sketch_the_fine_steps_cannot_follow_is_dropped(monkeypatch):
     # a 2 MW minimum output under a 4 MW/h ramp: on hourly steps the store may step from
     # idle to 2 MW at once; on quarter-hours it may move 1 MW a step, so never start
     st = F.storage("s", energy=8.0, power=3.0, exclusive=True, soc_start=4.0,
@@ -161,11 +168,69 @@ def test_a_sketch_the_fine_steps_cannot_follow_is_dropped():
                     series_list=[F.series("p", prices, "price")])
     hint = sketch.mode_hint(p, SolveOptions(), 10.0)
     assert hint.values and hint.objective > 0          # hourly, it trades
-    r = dispatch(p, SolveOptions(mip_gap=0.0))
     ref = dispatch(p, SolveOptions(mip_gap=0.0, warm_start=False))
+    _no_relaxation_start(monkeypatch)
+    r = dispatch(p, SolveOptions(mip_gap=0.0))
     assert r.status == ref.status == "optimal"
     assert r.objective == pytest.approx(ref.objective, abs=1e-9)
-    assert any("no start from the sketch" in n for n in r.summary["notes"])
+    assert any("no start from an hourly sketch" in n for n in r.summary["notes"])
+
+
+def test_the_sketch_is_asked_only_when_the_relaxation_gives_no_start(monkeypatch):
+    asked = []
+    real = sketch.mode_hint
+
+    def spy(p, options, seconds):
+        asked.append(seconds)
+        return real(p, options, seconds)
+
+    monkeypatch.setattr(sketch, "mode_hint", spy)
+    p = _fleet(1)
+    plain = dispatch(p, SolveOptions(mip_gap=0.0))
+    assert asked == [] and plain.summary["lp_bound"] is not None
+    _no_relaxation_start(monkeypatch)
+    r = dispatch(p, SolveOptions(mip_gap=0.0, time_limit=20.0))
+    # asked once, with its share of what the limit left (and a cap)
+    assert len(asked) == 1 and 0 < asked[0] <= 0.6 * 20.0
+    assert r.status == "optimal" and r.objective == pytest.approx(plain.objective, abs=1e-6)
+    assert any("came from the portfolio solved on hourly steps" in n for n in r.summary["notes"])
+    # the start reported is the sketch's: the modes of the hint fixed, the rest solved
+    built, start = _start(p)
+    assert r.summary["start_objective"] == pytest.approx(start.objective, rel=1e-9, abs=1e-9)
+
+
+def test_a_sketch_that_finds_nothing_says_why(monkeypatch):
+    p = F.portfolio(8, step_hours=0.25, storages=[F.storage("a", exclusive=True, soc_start=0.5),
+                                                  F.storage("b")],
+                    routes=[F.route("r", "a", "b", delay_steps=3)],
+                    connections=[F.connection(sell=F.price("p"), buy=F.price("p"))],
+                    series_list=[F.series("p", [10, 80] * 4, "price")])
+    _no_relaxation_start(monkeypatch)
+    r = dispatch(p, SolveOptions(mip_gap=0.0))
+    assert r.status == "optimal"
+    assert any("no start from an hourly sketch" in n and 'route "r"' in n
+               for n in r.summary["notes"]), r.summary["notes"]
+
+
+@pytest.mark.parametrize("mode, prior_h", [(PRIOR_DISCHARGE, 0.75), (PRIOR_CHARGE, 0.5),
+                                           (PRIOR_DISCHARGE, 0.25)])
+def test_a_run_carried_in_is_kept_even_where_the_hourly_rule_is_one_step(mode, prior_h):
+    # a 1 h minimum run is one hourly step: the hourly model has no rows for a run carried in
+    # (any run is whole there), yet on quarter-hours the store must run 1 h - prior_h more;
+    # the hint must keep that run, or its modes give no schedule of the fine model
+    net = 1.0 if mode == PRIOR_DISCHARGE else -1.0
+    st = F.storage("s", energy=6.0, power=2.0, exclusive=True, min_run_h=1.0, soc_start=3.0,
+                   charge_min=1.0, discharge_min=1.0, prior_mode=mode, prior_h=prior_h,
+                   prior_net_mw=net)
+    prices = np.repeat([80.0, 10.0, 90.0, 20.0] if mode == PRIOR_CHARGE else [10.0, 80.0, 20.0, 90.0], 4)
+    p = F.portfolio(16, step_hours=0.25, storages=[st],
+                    connections=[F.connection(sell=F.price("p"), buy=F.price("p"))],
+                    series_list=[F.series("p", prices, "price")])
+    built, start = _start(p)
+    assert start.x is not None, start.note
+    assert check_vector(built.matrix, start.x)[0] <= 1e-6
+    best = dispatch(p, SolveOptions(mip_gap=0.0, warm_start=False))
+    assert start.objective <= best.objective + 1e-6
 
 
 def test_modes_that_do_not_fit_the_model_give_no_start():
@@ -204,6 +269,8 @@ def test_windows_on_quarter_hours_start_from_the_sketch_and_stitch(tmp_path):
 
 
 def test_the_sketchs_time_is_counted_in_the_starts(monkeypatch):
+    # a lower bound only: the sketch sleeps 0.3 s inside the solve's clock, so the start's
+    # time and the solve's include at least that (no upper bound is asserted)
     import time as _time
     real = sketch.mode_hint
 
@@ -212,6 +279,8 @@ def test_the_sketchs_time_is_counted_in_the_starts(monkeypatch):
         return real(*a, **k)
 
     monkeypatch.setattr(sketch, "mode_hint", slow)
+    _no_relaxation_start(monkeypatch)
     r = dispatch(_fleet(1), SolveOptions(mip_gap=0.0))
+    assert any("hourly steps" in n for n in r.summary["notes"])
     assert r.summary["start_seconds"] >= 0.3
     assert r.summary["solve_seconds"] >= r.summary["start_seconds"]

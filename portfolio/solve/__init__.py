@@ -62,10 +62,12 @@ def solve(built, options: Optional[SolveOptions] = None,
     dispatch's shared time limit (default: ``options.time_limit`` from now).
     Solver failures become ``status="error"`` with ``message`` set; an
     exception raised by ``progress`` stops the solve and propagates.
-    ``hint``: mode binaries (family -> asset -> one value per step, as
-    :func:`portfolio.sketch.mode_hint` gives) from which the matrix path makes
-    a second candidate first schedule (:func:`.warmstart.with_modes`), checked
-    like any other; the Pyomo path ignores it.
+    ``hint``: a callable ``hint(seconds)`` returning mode binaries (an object
+    with ``values``, family -> asset -> one value per step, and ``note``: as
+    :func:`portfolio.sketch.sketcher` makes), asked by the matrix path only
+    when the LP relaxation's start gives nothing; their schedule
+    (:func:`.warmstart.with_modes`) is checked like any start.  The Pyomo path
+    ignores it.
     """
     options = options or SolveOptions()
     deadline = deadline or Deadline(options.time_limit)

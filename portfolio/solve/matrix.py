@@ -73,6 +73,10 @@ class _Job:
         return certify.certify(self.built.matrix, claim, self.options.mip_gap, self.lp_bound)
 
 
+# of what is left when the relaxation's start gave nothing, for a hint's own solve
+HINT_SHARE = 0.6
+
+
 def solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
                  deadline: Deadline, hint=None) -> Solution:
     t0 = time.perf_counter()
@@ -99,32 +103,38 @@ def solve_matrix(built, options: SolveOptions, progress: Optional[Progress],
 
 def _first_schedule(built, lp, options: SolveOptions, deadline: Deadline,
                     progress: Optional[Progress], sol: Solution, hint=None) -> warmstart.Start:
-    """The warm start (the better of the relaxation's and, with a ``hint``, the
-    sketch's modes'), or, when neither gives anything, a schedule that stands
-    still (if that is allowed), so that a short limit still returns one."""
+    """The warm start from the LP relaxation; when it gives nothing, the modes of a
+    ``hint`` (a sketch, asked only then) with the rest solved; when neither gives
+    anything, a schedule that stands still (if that is allowed), so that a short limit
+    still returns one."""
     def new_highs():
         return highs.new_highs(options, deadline.left())
 
-    sketched = None
-    if hint:
-        sketched = warmstart.with_modes(built, lp, new_highs, warmstart.budget(deadline.left()), hint)
-        if sketched.x is None:
-            sol.notes.append(f"no start from the sketch: {sketched.note}")
     start = warmstart.find(built, lp, new_highs, warmstart.budget(deadline.left()))
-    if sketched is not None and sketched.x is not None:
-        sense = 1.0 if built.matrix.maximize else -1.0
-        if start.x is None or sense * (sketched.objective - start.objective) > 0:
-            start = warmstart.Start(sketched.x, sketched.objective, start.lp_bound,
-                                    start.seconds, fixed=sketched.fixed, note="the sketch's modes")
-            sol.notes.append("the first schedule came from the portfolio solved on hourly "
-                             "steps (a sketch, docs/windows.md)")
-        start.seconds += sketched.seconds
     sol.start_seconds = start.seconds
     sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
+    if start.x is None and hint is not None:
+        t0 = time.perf_counter()
+        drawn = hint(HINT_SHARE * max(deadline.left() or 0.0, 0.0) if deadline.left() is not None
+                     else None)
+        sketched = None
+        if drawn.values:
+            sketched = warmstart.with_modes(built, lp, new_highs, warmstart.budget(deadline.left()),
+                                            drawn.values)
+        sol.start_seconds += time.perf_counter() - t0
+        if sketched is not None and sketched.x is not None:
+            start = warmstart.Start(sketched.x, sketched.objective, start.lp_bound,
+                                    sol.start_seconds, fixed=sketched.fixed, note="the sketch's modes")
+            sol.start_objective = start.objective
+            sol.notes.append("the first schedule came from the portfolio solved on hourly "
+                             "steps (a sketch, docs/model.md)")
+        else:
+            sol.notes.append("no start from an hourly sketch: "
+                             + (sketched.note if sketched is not None else drawn.note))
     if start.x is not None:
         if progress is not None:
             try:
-                progress(start.seconds, start.objective, start.lp_bound,
+                progress(sol.start_seconds, start.objective, start.lp_bound,
                          certify.gap(start.objective, start.lp_bound, built.matrix.maximize))
             except BaseException as exc:   # propagates from solve(), as from the search
                 raise ProgressFailed(exc) from exc

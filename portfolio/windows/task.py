@@ -22,7 +22,7 @@ import numpy as np
 from .. import sketch
 from ..compile import build
 from ..model import Portfolio
-from ..solve import FEASIBLE, OPTIMAL, Deadline, SolveOptions, solve
+from ..solve import FEASIBLE, OPTIMAL, SolveOptions, solve
 
 
 @dataclass
@@ -74,9 +74,7 @@ def solve_window(task: WindowTask) -> WindowOutcome:
 
 def _solve(task: WindowTask, p: Portfolio, options: SolveOptions, end: str) -> WindowOutcome:
     built = build(p, variant=options.variant)
-    deadline = Deadline(options.time_limit)
-    drawn = sketch.hint_for(p, options, deadline)
-    sol = solve(built, options, deadline=deadline, hint=drawn.values if drawn is not None else None)
+    sol = solve(built, options, hint=sketch.sketcher(p, options))
     out = WindowOutcome(task.number, task.start, task.commit, p.horizon.steps, str(end), sol.status,
                         sol.objective, sol.best_bound, sol.mip_gap, message=sol.message)
     if out.solved:

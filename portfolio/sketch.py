@@ -21,11 +21,12 @@ well under a second.  So, for a portfolio whose step divides an hour:
 The hint is only the mode binaries.  :func:`portfolio.solve.solve` fixes them
 in the fine model and solves what is left there (every power, level and
 start at the fine steps, against the fine prices), and checks the result
-against the fine matrix like any start (:func:`portfolio.solve.warmstart.fixed`);
-a hint that leads to no schedule (a ramp limit the piecewise-constant modes
+against the fine matrix like any start (:func:`portfolio.solve.warmstart.with_modes`);
+the solve asks for it only when the LP relaxation's start gave nothing.  A
+hint that leads to no schedule (a ramp limit the piecewise-constant modes
 cannot follow, a supply that varies inside the coarse step) is dropped and the
-search runs as it would have.  A hint never changes an optimum or a bound, only
-how soon a good schedule is in hand.
+idle start is tried as before.  A hint never changes an optimum or a bound,
+only how soon a good schedule is in hand.
 
 The idea is the coarse-to-fine use of a time-aggregated model: Pineda and
 Morales, "Chronological time-period clustering for optimal capacity expansion
@@ -38,7 +39,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Dict, Hashable, Optional
 
 import numpy as np
@@ -47,8 +48,8 @@ from .compile import build
 from .compile.families._common import steps_before, whole_steps
 from .model import PRIOR_CHARGE, PRIOR_DISCHARGE, Portfolio
 from .solve import FEASIBLE, OPTIMAL, solve
+from .solve.warmstart import IDLE_FAMILIES as MODE_FAMILIES   # the mode binaries' families
 
-MODE_FAMILIES = ("mode_u", "mode_charge", "mode_discharge")   # compile/families/modes.py
 COARSE_HOURS = 1.0       # the sketch's step
 MAX_SECONDS = 30.0       # the sketch's own solve at most (its share of a limit: solve/matrix.py)
 GAP = 1e-3               # its MIP gap at least this: a start need not be proven
@@ -68,7 +69,6 @@ class Hint:
     objective: Optional[float] = None        # the coarse model's own
     factor: int = 1
     note: str = ""
-    notes: list = field(default_factory=list)
 
 
 def factor_for(p: Portfolio) -> int:

@@ -115,8 +115,8 @@ def _first_schedule(built, lp, options: SolveOptions, deadline: Deadline,
     sol.start_objective, sol.lp_bound = start.objective, start.lp_bound
     if start.x is None and hint is not None:
         t0 = time.perf_counter()
-        drawn = hint(HINT_SHARE * max(deadline.left() or 0.0, 0.0) if deadline.left() is not None
-                     else None)
+        left = deadline.left()
+        drawn = hint(None if left is None else HINT_SHARE * max(left, 0.0))
         sketched = None
         if drawn.values:
             sketched = warmstart.with_modes(built, lp, new_highs, warmstart.budget(deadline.left()),

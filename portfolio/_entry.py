@@ -33,5 +33,5 @@ signal.signal(signal.SIGINT, signal.SIG_IGN if _started_by_multiprocessing() els
 
 def run() -> None:
     from . import cli                         # the imports the handler above covers
-    signal.signal(signal.SIGINT, cli.on_interrupt)
+    cli.install_interrupt_handling()
     cli.run()

@@ -584,6 +584,31 @@ def on_interrupt(signum, frame) -> None:
     raise KeyboardInterrupt
 
 
+def _unraisable(args) -> None:
+    """``sys.unraisablehook`` of the command.  Python cannot raise an exception out of a
+    garbage-collector callback (Dask's ``GCDiagnosis`` keeps one) or a ``__del__``: a Ctrl-C
+    arriving there is printed as "Exception ignored" and lost, and the command would run on
+    to its end.  Such a KeyboardInterrupt of :func:`on_interrupt` is delivered again from
+    outside that callback (a thread asks the main thread, as a second Ctrl-C would); any
+    other unraisable exception goes to Python's own hook."""
+    if _interrupted and args.exc_type is KeyboardInterrupt:
+        import _thread
+        import threading
+        again = threading.Timer(0.05, _thread.interrupt_main)
+        again.daemon = True
+        again.start()
+        return
+    sys.__unraisablehook__(args)
+
+
+def install_interrupt_handling() -> None:
+    """Ctrl-C handling of the command: :func:`on_interrupt` for SIGINT and
+    :func:`_unraisable` for a Ctrl-C Python could not raise."""
+    import signal
+    signal.signal(signal.SIGINT, on_interrupt)
+    sys.unraisablehook = _unraisable
+
+
 def _leave_interrupted() -> None:
     _quiet_stdout()
     print("portfolio: interrupted", file=sys.stderr)

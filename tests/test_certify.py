@@ -206,6 +206,57 @@ def test_any_multipliers_give_a_bound_never_below_the_lp_optimum(lp_case, seed, 
     assert b is None or b >= lp_opt - 1e-6
 
 
+def _one_store_at(prices):
+    return F.market(prices, [F.storage("cell", energy=10.0, power=4.0, soc_start=10.0)])
+
+
+def test_the_slack_is_what_reduced_costs_below_the_dual_tolerance_can_hold():
+    # analytic: a full 10 MWh store, 4 MW, paid 5e-8 a MWh in one hour only; its
+    # LP optimum discharges 4 MWh there, worth 2e-7. With all multipliers zero
+    # the reduced cost of each column is its own price: the bound is 4 * 5e-8 and
+    # all of it lies in a reduced cost below DUAL_TOL, so the slack is the same
+    mx = build(_one_store_at([0.0, 5e-8, 0.0])).matrix
+    bound, slack = certify.dual_bound_slack(mx, np.zeros(mx.num_row))
+    assert bound == pytest.approx(4 * 5e-8, rel=1e-9)
+    assert slack >= bound - 1e-15            # every cent of it is within the tolerance
+    # a price of 1 a MWh is far above the tolerance: the bound holds no slack from it
+    mx1 = build(_one_store_at([0.0, 1.0, 0.0])).matrix
+    b1, s1 = certify.dual_bound_slack(mx1, np.zeros(mx1.num_row))
+    assert b1 == pytest.approx(4.0) and s1 == pytest.approx(0.0, abs=1e-12)
+
+
+def test_a_gap_within_the_slack_is_optimal_and_one_beyond_it_is_not():
+    mx = build(_one_store_at([0.0, 5e-8, 0.0])).matrix
+    idle = np.zeros(mx.num_col)
+    idle[mx.var_ranges["soc"][0]:mx.var_ranges["soc"][1]] = 10.0
+    assert check(mx, Claim(idle, optimal=False), 0.0).feasible
+    bound = 1e-6 + 4 * 5e-8                  # past OBJ_TOL by the stranded 2e-7
+    within = check(mx, Claim(idle, optimal=True, bound=bound, bound_slack=3e-7), 0.0)
+    assert within.status == "optimal" and within.ok
+    assert within.gap == pytest.approx(bound)          # the gap itself is shown as it is
+    assert within.to_dict()["bound_slack"] == pytest.approx(3e-7)
+    beyond = check(mx, Claim(idle, optimal=True, bound=bound, bound_slack=1e-7), 0.0)
+    assert beyond.status == "feasible" and any("said optimal" in f for f in beyond.failures)
+
+
+def test_prices_below_the_dual_tolerance_still_give_an_optimal_schedule():
+    # found by hypothesis in CI (tests/test_cascade_property.py): two reservoirs in
+    # cascade paid 6e-8 a MWh, a reduced cost HiGHS counts as zero; 1.3e-6 of bound
+    # stood over the idle schedule and "optimal" at gap 0 was refused. The gap
+    # itself stays reported as it is
+    upper = F.storage("upper", energy=40.0, power=None, discharge_max=6.0, charge_max=0.0,
+                      soc_start=20.0, kind="reservoir", spill_allowed=True)
+    lower = F.storage("lower", energy=30.0, power=None, discharge_max=5.0, charge_max=0.0,
+                      soc_start=5.0, kind="reservoir", spill_allowed=True)
+    routes = [F.route("rel", "upper", "lower", "release", delay_steps=0, factor=1.0),
+              F.route("sp", "upper", "lower", "spill", delay_steps=0, factor=1.0)]
+    p = F.market([0.0] * 6 + [5.960464477539063e-08] * 2, [upper, lower], routes=routes)
+    r = dispatch(p, SolveOptions(mip_gap=0))
+    assert r.status == "optimal", r.summary["notes"]
+    assert r.summary["best_bound"] >= r.objective
+    assert r.summary["best_bound"] - r.objective <= 1e-6 + 2 * (6 + 5) * 6e-8
+
+
 # --- the solve path: a failed claim is solved again --------------------------------
 
 def test_a_claim_that_fails_is_solved_again_and_noted(monkeypatch):

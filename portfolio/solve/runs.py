@@ -123,7 +123,8 @@ def _claim(built, lp, h, is_mip: bool, label: str) -> Tuple[str, certify.Claim]:
         elif status == OPTIMAL:
             # an LP's bound from its own row duals, checked (certify.dual_bound);
             # HiGHS's figure only where no finite bound follows from them
-            dual = certify.dual_bound(built.matrix, np.asarray(h.getSolution().row_dual, dtype=float))
+            dual, claim.bound_slack = certify.dual_bound_slack(
+                built.matrix, np.asarray(h.getSolution().row_dual, dtype=float))
             claim.bound = dual if dual is not None else claim.objective
             if dual is not None:
                 claim.source = f"{label} (bound from the LP's duals)"

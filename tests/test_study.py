@@ -277,6 +277,29 @@ def test_api_returns_a_dataframe_and_a_failing_case_does_not_stop_the_others(tmp
     assert df[df["status"] == "infeasible"]["objective"].isna().all()
 
 
+def test_a_finished_study_run_again_starts_no_cluster_and_no_fork_server(tmp_path, monkeypatch):
+    """Every case done: the re-run reads the rows back and starts nothing; one case
+    removed: the cluster starts (once) for it alone."""
+    runner = sys.modules["portfolio.study.run"]      # the module (run is also a function)
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    first = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=1, plots=False).frame
+
+    def refused(*a, **k):
+        raise AssertionError("started for a study with nothing left to run")
+    monkeypatch.setattr(runner, "_Starting", refused)
+    monkeypatch.setattr(runner, "warm", refused)
+    again = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=1, plots=False).frame
+    assert np.allclose(again["objective"], first["objective"], rtol=0, atol=1e-9)
+    monkeypatch.undo()
+    shutil.rmtree(next((tmp_path / "out" / CASES_DIR).iterdir()))
+    starts = []
+    real = runner._Starting
+    monkeypatch.setattr(runner, "_Starting", lambda *a: starts.append(a) or real(*a))
+    resumed = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=1, plots=False).frame
+    assert len(starts) == 1
+    assert np.allclose(resumed["objective"], first["objective"], rtol=0, atol=1e-9)
+
+
 def _free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))

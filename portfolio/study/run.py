@@ -207,8 +207,24 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
         raise StudyError(problem)
     (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
     _mark(out_dir, p)
-    if client is None and scheduler is None:
+    # a fresh folder: every case is to run, so the fork server and the cluster start now, while
+    # the cases are planned (in a folder with rows, only once a case is found still to run)
+    fresh = not any((out_dir / CASES_DIR).iterdir())
+    if client is None and scheduler is None and fresh:
         warm()                       # our workers' fork server imports while the cases are planned
+    starting = _Starting(scheduler, workers) if client is None and fresh else None
+    try:
+        return _run_planned(p, study, out_dir, options, client, scheduler, workers, schedules,
+                            progress, chunk, starting)
+    finally:
+        if starting is not None:
+            starting.stop()
+
+
+def _run_planned(p, study, out_dir: Path, options, client, scheduler, workers, schedules, progress,
+                 chunk, starting: Optional["_Starting"]) -> Dict[str, object]:
+    """:func:`run_study` once its folder is checked (``starting``: the cluster's start, if
+    already begun; stopped by the caller)."""
     planned = plan(p, study, options)
     rows: Dict[int, dict] = {}
     todo = []
@@ -238,20 +254,22 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
             if same:
                 tell(done, failed, skipped, total)
 
-        starting = _Starting(scheduler, workers) if client is None else None
+        own = None
+        if client is None:
+            own = starting if starting is not None else _Starting(scheduler, workers)
         try:
-            if starting is not None:
+            if own is not None:
                 if scheduler is None and small(p):
-                    _meanwhile(starting, p, study, by_key, options, out_dir if schedules else None, arrived)
-                client = starting.client()
+                    _meanwhile(own, p, study, by_key, options, out_dir if schedules else None, arrived)
+                client = own.client()
             shared = replace(p, studies={})       # the study goes on its own: scenario series
             sent = _size(shared) + _size(study)
             if by_key:
                 _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
                             chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
         finally:
-            if starting is not None:
-                starting.stop()
+            if own is not None and own is not starting:
+                own.stop()
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
 
@@ -529,6 +547,7 @@ def local_cluster(workers: int, method: Optional[str] = None):
     with dask.config.set({"distributed.worker.multiprocessing-method": method, **QUIET}):
         if method == "forkserver":
             warm(method)
+            _ours_preloaded()
         return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
                             dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
                             silence_logs=logging.CRITICAL, preload=[PRELOAD])
@@ -537,17 +556,16 @@ def local_cluster(workers: int, method: Optional[str] = None):
 def warm(method: Optional[str] = None) -> None:
     """Start multiprocessing's fork server now (once a process), importing what a worker
     needs, so that each worker forked from it later starts with it imported; called before
-    the cases are planned, the server's imports run meanwhile.  Nothing for other methods."""
+    the cases are planned, the server's imports run meanwhile.  Nothing for other methods.
+
+    Dask itself is not imported here (0.6-1 s): this process goes on with its own work
+    (reading the file, planning, cases) while the server imports it."""
     if (method or START_METHOD) != "forkserver":
         return
     import multiprocessing
     from multiprocessing import forkserver
 
-    import dask
-    from distributed.utils import get_mp_context
-    with dask.config.set({"distributed.worker.multiprocessing-method": "forkserver"}):
-        ctx = get_mp_context()   # Dask's own preload list is set here, once; ours replaces it
-    ctx.set_forkserver_preload(list(FORKSERVER_PRELOAD))
+    multiprocessing.get_context("forkserver").set_forkserver_preload(list(FORKSERVER_PRELOAD))
     if multiprocessing.parent_process() is None:     # not from inside a worker
         # born ignoring SIGINT (it survives exec; Python installs no handler over it): a
         # terminal's Ctrl-C reaches the whole process group, and the server, busy with its
@@ -557,6 +575,16 @@ def warm(method: Optional[str] = None) -> None:
         from ..windows.run import _children_ignore_ctrl_c
         with _children_ignore_ctrl_c(True):
             forkserver.ensure_running()
+
+
+def _ours_preloaded() -> None:
+    """Tell Dask the fork server's preload is set (by :func:`warm`): on its first start of a
+    worker it would otherwise import every optional package it knows in this process, for a
+    preload list the running server no longer reads.  A private flag of
+    ``distributed.utils``; where a version has none, Dask does as it did."""
+    import distributed.utils as du
+    if hasattr(du, "_forkserver_preload_set"):
+        du._forkserver_preload_set = True
 
 
 def _stop(client, own) -> None:

@@ -15,6 +15,7 @@ import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -292,12 +293,26 @@ def test_a_finished_study_run_again_starts_no_cluster_and_no_fork_server(tmp_pat
     assert np.allclose(again["objective"], first["objective"], rtol=0, atol=1e-9)
     monkeypatch.undo()
     shutil.rmtree(next((tmp_path / "out" / CASES_DIR).iterdir()))
-    starts = []
-    real = runner._Starting
+    starts, warmed = [], []
+    real, real_warm = runner._Starting, runner.warm
     monkeypatch.setattr(runner, "_Starting", lambda *a: starts.append(a) or real(*a))
+    monkeypatch.setattr(runner, "warm", lambda *a: warmed.append(threading.current_thread()) or real_warm(*a))
+    _stop_forkserver()
     resumed = run(loaded.model, "sizes", tmp_path / "out", OPTIONS, workers=1, plots=False).frame
     assert len(starts) == 1
+    # the fork server starts from the main thread, the only one that can have it born
+    # ignoring Ctrl-C (portfolio/children.py), not from the cluster's starting thread
+    assert warmed and warmed[0] is threading.main_thread()
     assert np.allclose(resumed["objective"], first["objective"], rtol=0, atol=1e-9)
+
+
+def _stop_forkserver() -> None:
+    """Stop multiprocessing's fork server of this process, if running (a private API of
+    the standard library: tests only), so that the next study has to start it."""
+    from multiprocessing import forkserver
+    server = getattr(forkserver, "_forkserver", None)
+    if server is not None and hasattr(server, "_stop"):
+        server._stop()
 
 
 def _free_port() -> int:

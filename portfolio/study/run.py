@@ -256,6 +256,8 @@ def _run_planned(p, study, out_dir: Path, options, client, scheduler, workers, s
 
         own = None
         if client is None:
+            if starting is None and scheduler is None:
+                warm()          # here, in the calling thread: born ignoring Ctrl-C (warm)
             own = starting if starting is not None else _Starting(scheduler, workers)
         try:
             if own is not None:
@@ -572,8 +574,8 @@ def warm(method: Optional[str] = None) -> None:
         # imports for a second, would print a traceback; the workers forked from it ignore
         # it from their first instruction too.  This process ignores it only while the
         # server forks and execs (the windows' pool does the same).
-        from ..windows.run import _children_ignore_ctrl_c
-        with _children_ignore_ctrl_c(True):
+        from ..children import ignoring_ctrl_c
+        with ignoring_ctrl_c():
             forkserver.ensure_running()
 
 

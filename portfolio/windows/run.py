@@ -12,13 +12,13 @@ window, ``phase`` (if given) before and during the LPs around them.
 from __future__ import annotations
 
 import time
-from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from typing import Callable, List, Optional, Union
 
 import numpy as np
 import pandas as pd
 
+from ..children import ignoring_ctrl_c
 from ..compile import build
 from ..contract import WINDOW_KEYS, frame
 from ..dispatch import DispatchResult, make_result
@@ -296,7 +296,7 @@ def _parallel(run: _Run, executor):
     futures: dict = {}
     try:
         tasks = [run.task(i + 1, *pieces[i], guess=i > 0) for i in range(n)]
-        with _children_ignore_ctrl_c(own):
+        with ignoring_ctrl_c(own):
             futures[0] = executor.submit(run.runner, tasks[0])
         for i in range(1, n):
             futures[i] = executor.submit(run.runner, tasks[i])
@@ -388,24 +388,6 @@ def same_matrix(a, b, rtol: float = 1e-12) -> bool:
              (np.array([a.offset]), np.array([b.offset]))]
     return all(np.allclose(x, y, rtol=rtol, atol=rtol, equal_nan=False) or
                np.array_equal(x, y) for x, y in pairs)
-
-
-@contextmanager
-def _children_ignore_ctrl_c(own: bool):
-    """While the pool starts its processes (at the first task), Ctrl-C is ignored here, so
-    that they are born ignoring it (an ignored signal survives exec, and Python installs
-    no handler of its own over it): a Ctrl-C then reaches only this process, which stops
-    the pool, and no half-started child prints a traceback."""
-    import signal
-    import threading
-    if not own or threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    before = signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, before)
 
 
 def _quiet() -> None:

@@ -474,8 +474,9 @@ def _windows_spec(args, horizon):
 
 def cmd_study(args, out, err) -> int:
     if args.scheduler is None:
-        from .study.run import warm
-        warm()       # the local workers' fork server imports while the file is read and checked
+        from .study.run import fresh, warm
+        if fresh(args.out):  # a study with cases done starts it only if one is still to run
+            warm()   # the local workers' fork server imports while the file is read and checked
     r, code = _lint_first(args.file, err, "no case was run", args.confine)
     if code is not None:
         return code

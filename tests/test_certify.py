@@ -206,37 +206,63 @@ def test_any_multipliers_give_a_bound_never_below_the_lp_optimum(lp_case, seed, 
     assert b is None or b >= lp_opt - 1e-6
 
 
-def _one_store_at(prices):
-    return F.market(prices, [F.storage("cell", energy=10.0, power=4.0, soc_start=10.0)])
+def _one_store_at(prices, scale=1.0):
+    return F.market(prices, [F.storage("cell", energy=10.0 * scale, power=4.0 * scale,
+                                       soc_start=10.0 * scale)])
 
 
-def test_the_slack_is_what_reduced_costs_below_the_dual_tolerance_can_hold():
-    # analytic: a full 10 MWh store, 4 MW, paid 5e-8 a MWh in one hour only; its
-    # LP optimum discharges 4 MWh there, worth 2e-7. With all multipliers zero
-    # the reduced cost of each column is its own price: the bound is 4 * 5e-8 and
-    # all of it lies in a reduced cost below DUAL_TOL, so the slack is the same
-    mx = build(_one_store_at([0.0, 5e-8, 0.0])).matrix
-    bound, slack = certify.dual_bound_slack(mx, np.zeros(mx.num_row))
-    assert bound == pytest.approx(4 * 5e-8, rel=1e-9)
-    assert slack >= bound - 1e-15            # every cent of it is within the tolerance
-    # a price of 1 a MWh is far above the tolerance: the bound holds no slack from it
+def _sold(mx, hours, scale=1.0):
+    """The one-store market's schedule: the full store selling 4 MW (times ``scale``) in
+    each of ``hours`` (discharge, site export and connection export alike; lossless)."""
+    x = np.zeros(mx.num_col)
+    col = {n: a for n, (a, _) in mx.var_ranges.items()}
+    level = 10.0 * scale
+    for t in range(3):
+        if t in hours:
+            level -= 4.0 * scale
+            for family in ("discharge", "site_export", "conn_export"):
+                x[col[family] + t] = 4.0 * scale
+        x[col["soc"] + t] = level
+    return x
+
+
+def test_the_slack_is_what_this_schedule_leaves_at_prices_the_solver_counts_as_zero():
+    # analytic: a full 10 MWh store, 4 MW, paid 5e-8 a MWh in hour 1 and 1e-3 in hour 2.
+    # With all multipliers zero each column's reduced cost is its own price: the bound is
+    # 4 * (5e-8 + 1e-3); only hour 1's sale (and purchase) has a reduced cost within DUAL_TOL
+    mx = build(_one_store_at([0.0, 5e-8, 1e-3])).matrix
+    bound, tiny = certify.dual_bound_tiny(mx, np.zeros(mx.num_row))
+    assert bound == pytest.approx(4 * (5e-8 + 1e-3), rel=1e-9)
+    # idle: the tiny share is hour 1's 4 * 5e-8, not hour 2's money
+    assert certify.tiny_share(mx, tiny, _sold(mx, ())) == pytest.approx(4 * 5e-8, rel=1e-9)
+    # selling in hour 1 leaves nothing there: share 0, whatever it leaves in hour 2
+    assert certify.tiny_share(mx, tiny, _sold(mx, (1,))) == pytest.approx(0.0, abs=1e-15)
+    # a price of 1 a MWh is far above the tolerance: nothing of it is tiny
     mx1 = build(_one_store_at([0.0, 1.0, 0.0])).matrix
-    b1, s1 = certify.dual_bound_slack(mx1, np.zeros(mx1.num_row))
-    assert b1 == pytest.approx(4.0) and s1 == pytest.approx(0.0, abs=1e-12)
+    b1, t1 = certify.dual_bound_tiny(mx1, np.zeros(mx1.num_row))
+    assert b1 == pytest.approx(4.0) and certify.tiny_share(mx1, t1, _sold(mx1, ())) == 0.0
 
 
-def test_a_gap_within_the_slack_is_optimal_and_one_beyond_it_is_not():
-    mx = build(_one_store_at([0.0, 5e-8, 0.0])).matrix
-    idle = np.zeros(mx.num_col)
-    idle[mx.var_ranges["soc"][0]:mx.var_ranges["soc"][1]] = 10.0
-    assert check(mx, Claim(idle, optimal=False), 0.0).feasible
-    bound = 1e-6 + 4 * 5e-8                  # past OBJ_TOL by the stranded 2e-7
-    within = check(mx, Claim(idle, optimal=True, bound=bound, bound_slack=3e-7), 0.0)
+def test_a_gap_within_the_slack_is_optimal_and_one_at_a_real_price_is_not():
+    # the store of the test above ten times larger: 40 MW at 5e-8 is 2e-6, past OBJ_TOL
+    mx = build(_one_store_at([0.0, 5e-8, 1e-3], scale=10.0)).matrix
+    bound, tiny = certify.dual_bound_tiny(mx, np.zeros(mx.num_row))
+    # 40 MW sold in hour 2 (at 1e-3), none in hour 1: its gap to the bound, 2e-6, is all
+    # at a price within the tolerance: optimal, the gap shown as it is
+    earning = _sold(mx, (2,), scale=10.0)
+    assert check(mx, Claim(earning, optimal=False), 0.0).feasible
+    within = check(mx, Claim(earning, optimal=True, bound=bound, bound_tiny=tiny), 0.0)
     assert within.status == "optimal" and within.ok
-    assert within.gap == pytest.approx(bound)          # the gap itself is shown as it is
-    assert within.to_dict()["bound_slack"] == pytest.approx(3e-7)
-    beyond = check(mx, Claim(idle, optimal=True, bound=bound, bound_slack=1e-7), 0.0)
+    assert within.gap == pytest.approx(40 * 5e-8, rel=1e-6)
+    assert within.to_dict()["bound_slack"] == pytest.approx(40 * 5e-8, rel=1e-9)
+    # without the tiny costs the same is refused: the allowance is what passed it
+    assert check(mx, Claim(earning, optimal=True, bound=bound), 0.0).status == "feasible"
+    # selling in hour 1 only gives up 4e-2 at a real price: no tiny share, not optimal
+    cheap = _sold(mx, (1,), scale=10.0)
+    assert check(mx, Claim(cheap, optimal=False), 0.0).feasible
+    beyond = check(mx, Claim(cheap, optimal=True, bound=bound, bound_tiny=tiny), 0.0)
     assert beyond.status == "feasible" and any("said optimal" in f for f in beyond.failures)
+    assert beyond.bound_slack == 0.0
 
 
 def test_prices_below_the_dual_tolerance_still_give_an_optimal_schedule():

@@ -306,6 +306,43 @@ def test_a_finished_study_run_again_starts_no_cluster_and_no_fork_server(tmp_pat
     assert np.allclose(resumed["objective"], first["objective"], rtol=0, atol=1e-9)
 
 
+def test_a_finished_study_run_again_from_the_command_starts_no_fork_server(tmp_path, monkeypatch):
+    from portfolio.cli import main
+    runner = sys.modules["portfolio.study.run"]
+    good = tmp_path / "good.folio"
+    good.write_text(_text([2 * v for v in PRICES]))
+    argv = ["study", str(good), "--out", str(tmp_path / "out"), "--workers", "1", "-q"]
+    assert main(argv, _Sink(), _Sink()) == 0
+    first = pd.read_csv(tmp_path / "out" / "cases.csv")
+
+    def refused(*a, **k):
+        raise AssertionError("started for a study with nothing left to run")
+    monkeypatch.setattr(runner, "_Starting", refused)
+    monkeypatch.setattr(runner, "warm", refused)
+    out, err = _Sink(), _Sink()
+    assert main(argv, out, err) == 0, err.text
+    again = pd.read_csv(tmp_path / "out" / "cases.csv")
+    assert np.allclose(again["objective"], first["objective"], rtol=0, atol=1e-9)
+
+
+def test_a_scheduler_is_not_reached_before_the_cases_are_planned(tmp_path, monkeypatch):
+    """With --scheduler the connection (which may take its 30 s timeout) comes after
+    planning: an error while planning is raised at once, nothing started."""
+    from portfolio.study import StudyError
+    runner = sys.modules["portfolio.study.run"]
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    started = []
+    monkeypatch.setattr(runner, "_Starting", lambda *a: started.append(a))
+    monkeypatch.setattr(runner, "warm", lambda *a: started.append(("warm",)))
+
+    def broken(*a, **k):
+        raise StudyError("planning failed")
+    monkeypatch.setattr(runner, "plan", broken)
+    with pytest.raises(StudyError, match="planning failed"):
+        run(loaded.model, "sizes", tmp_path / "out", OPTIONS, scheduler="tcp://127.0.0.1:9", plots=False)
+    assert started == []
+
+
 def _stop_forkserver() -> None:
     """Stop multiprocessing's fork server of this process, if running (a private API of
     the standard library: tests only), so that the next study has to start it."""

@@ -17,9 +17,10 @@ compiled :class:`~portfolio.compile.arrays.Matrix` itself and returns a
    two is kept, since both are bounds;
 4. **gap** — recomputed from objective and bound (:func:`gap`);
 5. **status** — ``optimal`` only when that gap is within the asked gap,
-   or short of it by no more than the kept bound's slack (money an LP bound
-   holds only through reduced costs within :data:`DUAL_TOL`,
-   :func:`dual_bound_slack`); a feasible vector otherwise is ``feasible``.
+   or short of it by no more than the kept bound's slack (the money this
+   schedule leaves unearned on columns whose reduced costs are within
+   :data:`DUAL_TOL`, which the solver counts as zero: :class:`TinyCosts`,
+   :func:`tiny_share`); a feasible vector otherwise is ``feasible``.
 
 A claim of ``optimal`` that the figures do not support is a failure, listed
 in ``failures``: the solve path then tries another way (:mod:`portfolio.solve`)
@@ -62,9 +63,9 @@ class Claim:
     objective: Optional[float] = None     # the solver's own figure for x
     bound: Optional[float] = None         # the solver's bound (MIP dual bound)
     source: str = "HiGHS"
-    # money in ``bound`` owed only to reduced costs within DUAL_TOL (see
-    # :func:`dual_bound_slack`): a gap up to it is within the solver's tolerance
-    bound_slack: float = 0.0
+    # the reduced costs within DUAL_TOL of the multipliers ``bound`` came from (an LP's
+    # bound from its duals, :func:`dual_bound_tiny`); None: none known
+    bound_tiny: Optional["TinyCosts"] = None
 
 
 @dataclass
@@ -80,7 +81,8 @@ class Certificate:
     gap: Optional[float] = None
     status: Optional[str] = None          # OPTIMAL or FEASIBLE; None: no usable schedule
     failures: List[str] = field(default_factory=list)
-    bound_slack: float = 0.0              # the kept bound's Claim.bound_slack (0: none)
+    bound_slack: float = 0.0              # tiny_share of the kept bound for this schedule (0: none)
+    bound_tiny: Optional["TinyCosts"] = field(default=None, repr=False)   # the kept bound's
 
     @property
     def ok(self) -> bool:
@@ -170,23 +172,28 @@ def dual_bound(mx, y: Optional[np.ndarray]) -> Optional[float]:
     An upper bound for a maximisation, a lower bound for a minimisation; None
     when no finite bound follows from ``y``.
     """
-    return dual_bound_slack(mx, y)[0]
+    return dual_bound_tiny(mx, y)[0]
 
 
-def dual_bound_slack(mx, y: Optional[np.ndarray]) -> Tuple[Optional[float], float]:
-    """(:func:`dual_bound`, its slack).
+@dataclass
+class TinyCosts:
+    """The columns whose reduced costs (of the multipliers a bound came from, in the
+    maximising sense) are not zero but within :data:`DUAL_TOL`, which the solver counts
+    as zero; both ends of their ranges finite."""
 
-    The slack is the money the bound holds only because of reduced costs no
-    larger than :data:`DUAL_TOL`, which the solver counts as zero: the sum of
-    ``|d_j| * (upper_j - lower_j)`` over those columns.  The bound stays
-    exact; the slack says how much of a gap to it is within the solver's own
-    tolerance (a schedule that leaves 6e-8 a MWh unearned is optimal to it).
-    """
+    index: np.ndarray
+    d: np.ndarray
+
+
+def dual_bound_tiny(mx, y: Optional[np.ndarray]) -> Tuple[Optional[float], Optional[TinyCosts]]:
+    """(:func:`dual_bound`, its :class:`TinyCosts`): what :func:`tiny_share` needs to
+    tell, for a schedule, how much of its gap to the bound those reduced costs alone
+    hold."""
     if y is None or mx.num_col == 0:
-        return (float(mx.offset) if mx.num_col == 0 else None), 0.0
+        return (float(mx.offset) if mx.num_col == 0 else None), None
     y = np.asarray(y, dtype=float)
     if y.shape != (mx.num_row,) or not np.all(np.isfinite(y)):
-        return None, 0.0
+        return None, None
     sense = 1.0 if mx.maximize else -1.0
     c = sense * mx.cost                       # maximise c.x
     scale = float(np.max(np.abs(c), initial=0.0))
@@ -203,10 +210,24 @@ def dual_bound_slack(mx, y: Optional[np.ndarray]) -> Tuple[Optional[float], floa
         if math.isfinite(total) and (best is None or total < best):
             best, best_d = total, d
     if best is None:
-        return None, 0.0
-    small = (np.abs(best_d) <= DUAL_TOL) & np.isfinite(mx.col_lower) & np.isfinite(mx.col_upper)
-    slack = float(np.sum(np.abs(best_d[small]) * (mx.col_upper[small] - mx.col_lower[small])))
-    return sense * best + float(mx.offset), slack
+        return None, None
+    small = ((best_d != 0) & (np.abs(best_d) <= DUAL_TOL)
+             & np.isfinite(mx.col_lower) & np.isfinite(mx.col_upper))
+    index = np.nonzero(small)[0]
+    return sense * best + float(mx.offset), TinyCosts(index, best_d[index])
+
+
+def tiny_share(mx, tiny: Optional[TinyCosts], x: np.ndarray) -> float:
+    """How much of the gap between schedule ``x`` and the bound ``tiny`` belongs to is
+    held by those columns alone: the bound minus ``c.x`` is a sum of terms, none negative,
+    one per row and one per column, ``d_j * (end favoured by d_j - x_j)``; this is the sum of
+    the columns' terms in ``tiny`` (the money ``x`` leaves unearned at prices the solver
+    counts as zero), exact for ``x``, whatever else it leaves unearned."""
+    if tiny is None or len(tiny.index) == 0:
+        return 0.0
+    j, d = tiny.index, tiny.d
+    fav = np.where(d > 0, mx.col_upper[j], mx.col_lower[j])
+    return float(max(0.0, np.sum(d * (fav - np.asarray(x, dtype=float)[j]))))
 
 
 def _favoured(coef: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> float:
@@ -239,22 +260,24 @@ def certify(mx, claim: Claim, mip_gap: float, lp_bound: Optional[float] = None) 
         cert.failures.append(f"{claim.source} reported the objective {claim.objective:.10g} "
                              f"for a schedule worth {obj:.10g}")
     sense = 1.0 if mx.maximize else -1.0
-    bound, source, slack = None, "", 0.0
+    bound, source, tiny = None, "", None
     if claim.bound is not None and math.isfinite(claim.bound):
         if sense * (claim.bound - obj) < -tol:
             cert.failures.append(f"{claim.source} reported the bound {claim.bound:.10g}, on the "
                                  f"wrong side of its own schedule's value {obj:.10g}")
         else:
-            bound, source, slack = claim.bound, claim.source, max(0.0, claim.bound_slack)
+            bound, source, tiny = claim.bound, claim.source, claim.bound_tiny
     if lp_bound is not None:
         if sense * (lp_bound - obj) < -tol:
             cert.failures.append(f"the LP relaxation's bound {lp_bound:.10g} is on the wrong side "
                                  f"of a schedule worth {obj:.10g}")
         elif bound is None or sense * (lp_bound - bound) < 0:
-            bound, source, slack = lp_bound, "LP relaxation", 0.0
+            bound, source, tiny = lp_bound, "LP relaxation", None
     if bound is not None and sense * (bound - obj) < 0:
         bound = obj               # within tolerance: the schedule itself is the bound
-    cert.bound, cert.bound_source, cert.bound_slack = bound, source, slack
+    slack = tiny_share(mx, tiny, x) if bound is not None else 0.0
+    cert.bound, cert.bound_source = bound, source
+    cert.bound_slack, cert.bound_tiny = slack, tiny
     cert.gap = gap(obj, bound, mx.maximize)
     # within the asked gap, or short of it by no more than the bound's slack
     # (reduced costs the solver counts as zero): the gap itself is shown as is

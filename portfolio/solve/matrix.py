@@ -202,7 +202,7 @@ def _judge(job: _Job, claim: certify.Claim, hot=None) -> Optional[_Pick]:
             x = pol.x
             cert = job.check(certify.Claim(x, optimal=claim.optimal and not failures,
                                            bound=bound, source=claim.source,
-                                           bound_slack=claim.bound_slack if bound is not None else 0.0))
+                                           bound_tiny=claim.bound_tiny if bound is not None else None))
             cert.failures = failures + cert.failures
     return _Pick(cert, x, hot, gained)
 
@@ -283,7 +283,7 @@ def _tie_broken(job: _Job, pick: _Pick):
         return x, chosen
     final = job.check(certify.Claim(pol.x, optimal=chosen.status == certify.OPTIMAL,
                                     bound=chosen.bound, source="the tie-break",
-                                    bound_slack=chosen.bound_slack))
+                                    bound_tiny=chosen.bound_tiny))
     if final.feasible and final.ok:
         final.bound_source = chosen.bound_source
         return pol.x, final

@@ -123,7 +123,7 @@ def _claim(built, lp, h, is_mip: bool, label: str) -> Tuple[str, certify.Claim]:
         elif status == OPTIMAL:
             # an LP's bound from its own row duals, checked (certify.dual_bound);
             # HiGHS's figure only where no finite bound follows from them
-            dual, claim.bound_slack = certify.dual_bound_slack(
+            dual, claim.bound_tiny = certify.dual_bound_tiny(
                 built.matrix, np.asarray(h.getSolution().row_dual, dtype=float))
             claim.bound = dual if dual is not None else claim.objective
             if dual is not None:

@@ -183,6 +183,13 @@ def check_folder(out_dir: Path, p: M.Portfolio) -> Optional[str]:
     return None
 
 
+def fresh(out_dir) -> bool:
+    """Whether ``out_dir`` holds no case yet (missing, empty, or a study folder without
+    cases): every case of a study run into it is still to run."""
+    cases = Path(out_dir) / CASES_DIR
+    return not cases.is_dir() or not any(cases.iterdir())
+
+
 def _mark(out_dir: Path, p: M.Portfolio) -> None:
     replace_atomically(out_dir / MARKER, lambda tmp: Path(tmp).write_text(f"portfolio study of {p.path}\n"))
 
@@ -207,12 +214,14 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
         raise StudyError(problem)
     (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
     _mark(out_dir, p)
-    # a fresh folder: every case is to run, so the fork server and the cluster start now, while
-    # the cases are planned (in a folder with rows, only once a case is found still to run)
-    fresh = not any((out_dir / CASES_DIR).iterdir())
-    if client is None and scheduler is None and fresh:
+    # a fresh folder: every case is to run, so our local cluster (and its fork server) starts
+    # now, while the cases are planned; in a folder with rows, only once a case is found
+    # still to run.  A scheduler's address is reached after planning, as before: a Ctrl-C
+    # or an error while planning does not wait on a connection that may take 30 s
+    local = client is None and scheduler is None and fresh(out_dir)
+    if local:
         warm()                       # our workers' fork server imports while the cases are planned
-    starting = _Starting(scheduler, workers) if client is None and fresh else None
+    starting = _Starting(None, workers) if local else None
     try:
         return _run_planned(p, study, out_dir, options, client, scheduler, workers, schedules,
                             progress, chunk, starting)

@@ -537,7 +537,7 @@ def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchRe
                        certificate={"feasible": True, "max_violation": viol,
                                     "bound_source": ("" if bound is None else "LP relaxation"
                                                      if not split else "LP relaxation by pieces"),
-                                    "failures": []})
+                                    "bound_slack": 0.0, "failures": []})
         full.load_solution(x)
         result = make_result(p, full, sol, status, options, [], "", notes, 0.0)
     result.summary["windows"] = _summary(p, head, outcomes, t0, **figures)

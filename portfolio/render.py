@@ -26,10 +26,14 @@ def _split(text: str, path: str) -> List[str]:
 
 @lru_cache(maxsize=64)
 def _cached_lines(path: str, mtime_ns: int, size: int) -> Optional[List[str]]:
+    # read as every input is (files.read_bytes): a device or a pipe (/dev/zero, a FIFO)
+    # is refused there, never read until it ends
+    from .files import InputError, read_bytes
     try:
-        return _split(Path(path).read_text("utf-8-sig", errors="replace"), path)
-    except OSError:
+        data = read_bytes(path)
+    except (OSError, InputError):
         return None
+    return _split(data.decode("utf-8-sig", errors="replace"), path)
 
 
 def _lines_of(path: str) -> Optional[List[str]]:

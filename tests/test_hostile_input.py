@@ -103,3 +103,25 @@ def test_old_mac_and_windows_line_endings_read_like_any_other(tmp_path):
         assert f"{src}:4:11: error: " in shown and f"{src}:4:34: error: " in shown
         assert "    text  site s at >>g<< { storage b { energy 4 MW } }" in shown
         assert "    text  site s at g { storage b { energy >>4 MW<< } }" in shown
+
+
+@pytest.mark.parametrize("kind", ["/dev/zero", "fifo"])
+def test_the_command_reports_a_device_or_a_pipe_and_returns(tmp_path, kind):
+    """The finding was right but printing it read the file again, to show its line: on
+    /dev/zero or a FIFO that never ended. A subprocess with a timeout, so that a hang fails
+    the test instead of the run (not a performance target)."""
+    import subprocess
+    import sys
+    path = kind
+    if kind == "fifo":
+        path = str(tmp_path / "x.folio")
+        os.mkfifo(path)
+    elif not os.path.exists(kind):
+        pytest.skip(f"no {kind}")
+    for argv in (["lint", path], ["dispatch", path, "--out", str(tmp_path / "out")]):
+        done = subprocess.run([sys.executable, "-m", "portfolio", *argv], capture_output=True,
+                              text=True, timeout=120)
+        assert done.returncode == 2, done.stderr
+        said = done.stdout + done.stderr
+        assert "P001" in said and "not a regular file" in said and "Traceback" not in said
+    assert not (tmp_path / "out").exists()

@@ -343,6 +343,31 @@ def test_a_scheduler_is_not_reached_before_the_cases_are_planned(tmp_path, monke
     assert started == []
 
 
+@pytest.mark.parametrize("address", ["garbage", "tcp://", "http://127.0.0.1:8786", "tcp://127.0.0.1:99999", " "])
+def test_an_address_that_cannot_be_a_scheduler_is_refused_before_anything_is_written(tmp_path, address):
+    from portfolio.cli import main
+    good = tmp_path / "good.folio"
+    good.write_text(_text([2 * v for v in PRICES]))
+    out, err = _Sink(), _Sink()
+    code = main(["study", str(good), "--out", str(tmp_path / "out"), "--scheduler", address], out, err)
+    assert code == 2, err.text
+    assert "scheduler" in err.text and "tcp://HOST:PORT" in err.text and "Traceback" not in err.text
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_study_folder_that_cannot_be_made_is_a_message_not_a_traceback(tmp_path):
+    from portfolio.cli import main
+    good = tmp_path / "good.folio"
+    good.write_text(_text([2 * v for v in PRICES]))
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    out, err = _Sink(), _Sink()
+    code = main(["study", str(good), "--out", str(blocker / "sub"), "--workers", "1"], out, err)
+    assert code == 2, err.text
+    assert "cannot write the study folder" in err.text and "Traceback" not in err.text
+    assert blocker.read_text() == "not a folder"
+
+
 def _stop_forkserver() -> None:
     """Stop multiprocessing's fork server of this process, if running (a private API of
     the standard library: tests only), so that the next study has to start it."""

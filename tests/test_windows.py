@@ -254,3 +254,19 @@ def test_ctrl_c_between_or_inside_windows_stops_cleanly(tmp_path):
     assert "Traceback" not in err and "interrupted" in err
     assert {q.name: q.read_bytes() for q in out.iterdir()} == before
     assert sorted(q.name for q in tmp_path.iterdir() if q.name.startswith(".out")) == []
+
+
+@pytest.mark.parametrize("status, code", [("no_schedule", 5), ("infeasible", 3), ("unbounded", 4)])
+def test_a_window_without_a_schedule_ends_the_dispatch_with_its_own_status(status, code):
+    """A window that found no schedule within its limit stops the dispatch as one MILP
+    would (exit 5: a longer limit may find one), not as a solver failure (exit 6)."""
+    from portfolio.dispatch import exit_code
+    from portfolio.windows.task import WindowOutcome
+    p = F.market([0, 0, 0, 0, 100, 100, 1, 1, 1, 1, 1, 1], [F.storage("b", energy=4, power=1)])
+
+    def stuck(task):
+        return WindowOutcome(task.number, task.start, task.commit, task.portfolio.horizon.steps,
+                             task.end, status, message="stopped")
+    r = dispatch_windows(p, Windows(6, 0), SolveOptions(mip_gap=0.0), runner=stuck)
+    assert r.status == status and "window 1 of 2" in r.message
+    assert exit_code(r.status) == code

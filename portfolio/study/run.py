@@ -183,6 +183,26 @@ def check_folder(out_dir: Path, p: M.Portfolio) -> Optional[str]:
     return None
 
 
+def check_address(address: str) -> None:
+    """Refuse (:class:`StudyError`) what cannot be a Dask scheduler's address, before
+    anything starts or is written: empty, an unknown scheme, a TCP address without a port
+    (Dask's own parsing; whether a scheduler answers there is found when it is reached)."""
+    from distributed.comm.addressing import parse_address, parse_host_port
+    from distributed.comm.registry import get_backend
+    hint = "write tcp://HOST:PORT, the address 'dask scheduler' prints"
+    if not isinstance(address, str) or not address.strip():
+        raise StudyError(f"the scheduler's address is empty; {hint}")
+    try:
+        scheme, where = parse_address(address)
+        get_backend(scheme)
+        if scheme in ("tcp", "tls"):
+            _, port = parse_host_port(where)
+            if not 0 < int(port) < 65536:
+                raise ValueError(f"port {port} is out of range")
+    except ValueError as e:
+        raise StudyError(f"'{address}' is not a Dask scheduler's address ({e}); {hint}") from None
+
+
 def fresh(out_dir) -> bool:
     """Whether ``out_dir`` holds no case yet (missing, empty, or a study folder without
     cases): every case of a study run into it is still to run."""
@@ -209,11 +229,17 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     "skipped": n, "failed": n, "sent_bytes": n}`` (rows in case order, done before or now)."""
     out_dir = Path(out_dir)
     chunk_sizes(1, 1, chunk)          # a bad chunk is refused before anything starts
+    if scheduler is not None:
+        check_address(scheduler)      # so is an address that cannot be one
     problem = check_folder(out_dir, p)
     if problem:
         raise StudyError(problem)
-    (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
-    _mark(out_dir, p)
+    try:
+        (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
+        _mark(out_dir, p)
+    except OSError as e:
+        raise StudyError(f"cannot write the study folder '{out_dir}': "
+                         f"{e.strerror or e}") from None
     # a fresh folder: every case is to run, so our local cluster (and its fork server) starts
     # now, while the cases are planned; in a folder with rows, only once a case is found
     # still to run.  A scheduler's address is reached after planning, as before: a Ctrl-C
@@ -528,8 +554,9 @@ def _start(scheduler: Optional[str], workers: Optional[int]):
     if scheduler:
         try:
             client = Client(scheduler, timeout=30)
-        except (OSError, TimeoutError) as e:
-            raise StudyError(f"cannot reach the Dask scheduler at {scheduler}: {e}") from None
+        except (OSError, TimeoutError, ValueError) as e:
+            raise StudyError(f"cannot reach the Dask scheduler at {scheduler}: {e} (is a "
+                             f"scheduler running there?)") from None
         return (), client
     cluster = local_cluster(workers or os.cpu_count() or 1)
     return (cluster,), Client(cluster)

@@ -24,7 +24,8 @@ from ..contract import WINDOW_KEYS, frame
 from ..dispatch import DispatchResult, make_result
 from ..provenance import collect
 from ..model import Portfolio
-from ..solve import ERROR, FEASIBLE, INFEASIBLE, OPTIMAL, Solution, SolveOptions
+from ..solve import (ERROR, FEASIBLE, INFEASIBLE, NO_SCHEDULE, OPTIMAL, UNBOUNDED, Solution,
+                     SolveOptions)
 from ..solve.certify import OBJ_TOL, TOL, check_vector, gap, objective
 from ..solve.matrix import values_by_family
 from ..compile import expressions as E
@@ -238,7 +239,8 @@ class _Run:
         self.outcomes.append(out)
         n = len(self.pieces)
         if not out.solved:
-            status = out.status if out.status in (INFEASIBLE, ERROR) else ERROR
+            # the window's own status: no schedule within its limit is exit 5, as one MILP's
+            status = out.status if out.status in (INFEASIBLE, UNBOUNDED, NO_SCHEDULE, ERROR) else ERROR
             when = self.p.horizon.index[self.pieces[i][0]].isoformat()
             why = ""
             if self.sighted and status == INFEASIBLE:

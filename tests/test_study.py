@@ -368,6 +368,19 @@ def test_a_study_folder_that_cannot_be_made_is_a_message_not_a_traceback(tmp_pat
     assert blocker.read_text() == "not a folder"
 
 
+def test_a_cases_folder_that_cannot_be_listed_counts_as_fresh_not_a_traceback(tmp_path, monkeypatch):
+    runner = sys.modules["portfolio.study.run"]
+    (tmp_path / "out" / CASES_DIR).mkdir(parents=True)
+    (tmp_path / "out" / CASES_DIR / "x").mkdir()
+    assert runner.fresh(tmp_path / "out") is False
+    assert runner.fresh(tmp_path / "missing") is True
+
+    def denied(self):
+        raise PermissionError(13, "Permission denied", str(self))
+    monkeypatch.setattr(Path, "iterdir", denied)
+    assert runner.fresh(tmp_path / "out") is True
+
+
 def _stop_forkserver() -> None:
     """Stop multiprocessing's fork server of this process, if running (a private API of
     the standard library: tests only), so that the next study has to start it."""

@@ -207,7 +207,10 @@ def fresh(out_dir) -> bool:
     """Whether ``out_dir`` holds no case yet (missing, empty, or a study folder without
     cases): every case of a study run into it is still to run."""
     cases = Path(out_dir) / CASES_DIR
-    return not cases.is_dir() or not any(cases.iterdir())
+    try:
+        return not cases.is_dir() or not any(cases.iterdir())
+    except OSError:            # unreadable: what writes there says so (check_folder, mkdir)
+        return True
 
 
 def _mark(out_dir: Path, p: M.Portfolio) -> None:
@@ -245,9 +248,7 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     # still to run.  A scheduler's address is reached after planning, as before: a Ctrl-C
     # or an error while planning does not wait on a connection that may take 30 s
     local = client is None and scheduler is None and fresh(out_dir)
-    if local:
-        warm()                       # our workers' fork server imports while the cases are planned
-    starting = _Starting(None, workers) if local else None
+    starting = _start_local(workers) if local else None
     try:
         return _run_planned(p, study, out_dir, options, client, scheduler, workers, schedules,
                             progress, chunk, starting)
@@ -291,9 +292,8 @@ def _run_planned(p, study, out_dir: Path, options, client, scheduler, workers, s
 
         own = None
         if client is None:
-            if starting is None and scheduler is None:
-                warm()          # here, in the calling thread: born ignoring Ctrl-C (warm)
-            own = starting if starting is not None else _Starting(scheduler, workers)
+            own = (starting if starting is not None else
+                   _Starting(scheduler, workers) if scheduler is not None else _start_local(workers))
         try:
             if own is not None:
                 if scheduler is None and small(p):
@@ -350,6 +350,13 @@ class _Starting:
         self._thread.join()
         if self._got:
             _stop(self._got[1], self._got[0])
+
+
+def _start_local(workers: Optional[int]) -> "_Starting":
+    """Our local cluster starting in its thread, its fork server started first from this
+    (the calling, main) thread, the only one where it is born ignoring Ctrl-C (:func:`warm`)."""
+    warm()
+    return _Starting(None, workers)
 
 
 def _meanwhile(starting: _Starting, p: M.Portfolio, study: M.Study, by_key: Dict[str, List[Planned]], options,

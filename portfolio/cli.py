@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import errno
 import os
+import re
 import sys
 from pathlib import Path
 from typing import List, Optional
@@ -26,9 +27,45 @@ from .render import format_json, format_text, printable
 
 
 class _Parser(argparse.ArgumentParser):
+    _argv: List[str] = []
+
+    def parse_known_args(self, args=None, namespace=None):
+        self._argv = list(sys.argv[1:] if args is None else args)   # for error(): what was typed
+        return super().parse_known_args(args, namespace)
+
     def error(self, message):  # exit code 2, one line, no traceback
+        if self.prog.endswith(" dispatch") and "required" in message and "FILE" in message:
+            took = _windows_took(self._argv)
+            if took is not None and not _duration_like(took):
+                message = _windows_took_file(took)
         self.print_usage(sys.stderr)
         self.exit(EXIT_USAGE, f"portfolio: error: {message}\n")
+
+
+# ``--windows`` takes an optional value, so ``--windows FILE`` reads FILE as COMMIT[/OVERLAP]
+_DURATION_START = re.compile(r"\s*[0-9.]")
+
+
+def _windows_took(argv: List[str]) -> Optional[str]:
+    """The word ``--windows`` took as its value from ``argv`` (the next word), or None."""
+    for i, word in enumerate(argv[:-1]):
+        if word == "--":
+            break
+        if word == "--windows" and not argv[i + 1].startswith("-"):
+            return argv[i + 1]
+    return None
+
+
+def _duration_like(text: str) -> bool:
+    return bool(_DURATION_START.match(text)) and not text.lower().endswith(".folio") \
+        and not os.path.isfile(text)
+
+
+def _windows_took_file(took: str, file_left: bool = False) -> str:
+    what = "but that is a file, not a duration" if file_left else "so no FILE was left"
+    return (f"--windows took '{took}' as its value (COMMIT[/OVERLAP]), {what}: put FILE before "
+            f"--windows (portfolio dispatch FILE --out DIR --windows), or give the windows with "
+            f"'=' (--windows=1d/1d)")
 
 
 def _checked(convert, ok, need: str):
@@ -129,7 +166,9 @@ def build_parser() -> argparse.ArgumentParser:
                     help="study folder: one folder a case, cases.csv/.parquet, plots; a re-run resumes")
     sd.add_argument("--scheduler", metavar="ADDRESS",
                     help="an existing Dask scheduler (tcp://host:8786); default: a local cluster on 127.0.0.1")
-    sd.add_argument("--workers", type=_threads, metavar="N", help="local cluster: worker processes (default: cores)")
+    sd.add_argument("--workers", type=_threads, metavar="N",
+                    help="local cluster only: worker processes (default: cores); not with "
+                         "--scheduler, whose own workers run the cases")
     sd.add_argument("--schedules", action="store_true", help="also write each case's full schedule folder")
     sd.add_argument("--time-limit", type=_positive_float, metavar="S", help="solver seconds per case")
     sd.add_argument("--gap", type=_gap, metavar="R", help="relative MIP gap per case (default 0.0001)")
@@ -346,9 +385,8 @@ def cmd_dispatch(args, out, err) -> int:
                        f"{f' and {len(rules) - 1} more' if len(rules) > 1 else ''}); "
                        f"--whole for one MILP")
     if spec is None and args.bound is not None:
-        print(printable("portfolio: error: --bound goes with windows (--windows, --foresight, or a "
-                        "horizon longer than 31 days with binary rules), and this dispatch is one "
-                        "MILP; nothing was dispatched or written"), file=err)
+        print(printable(f"portfolio: error: {_bound_refusal(args, r.portfolio)}; nothing was "
+                        f"dispatched or written"), file=err)
         return EXIT_USAGE
     out_dir = Path(args.out)
     problem = _output_problem(out_dir, Path(args.file))
@@ -434,6 +472,20 @@ def cmd_dispatch(args, out, err) -> int:
     return exit_code(status)
 
 
+def _bound_refusal(args, p) -> str:
+    """Why ``--bound`` cannot be used: this dispatch is one MILP, and what made it one."""
+    head = ("--bound goes with windows (--windows, --foresight, or a horizon longer than 31 days "
+            "with binary rules)")
+    if args.whole:
+        return f"{head}, and --whole makes this dispatch one MILP: leave out --bound or --whole"
+    from .windows import by_default
+    if args.marginal_values and by_default(p) is not None:
+        return (f"{head}, and --marginal-values makes this dispatch one MILP over the whole horizon "
+                f"(its values are those of one LP over the whole horizon), where this horizon "
+                f"would otherwise go by windows: leave out --bound, or --marginal-values")
+    return f"{head}, and this dispatch is one MILP: leave out --bound"
+
+
 def _windows_spec(args, horizon):
     """(spec or None, problem or None) from --windows, --window-end, --workers, --foresight, --commit
     and --bound (which also applies to the windows a long horizon takes by default)."""
@@ -457,6 +509,9 @@ def _windows_spec(args, horizon):
                       "where the one before left), so they run one at a time")
     if windows and args.commit is not None:
         return None, "--commit goes with --foresight (with --windows write COMMIT[/OVERLAP])"
+    if windows and args.windows and not _duration_like(args.windows):
+        if args.windows.lower().endswith(".folio") or os.path.isfile(args.windows):
+            return None, _windows_took_file(args.windows, file_left=True)
     try:
         if sighted:
             spec = foresight(args.foresight, args.commit, args.window_end or "hold")
@@ -473,6 +528,11 @@ def _windows_spec(args, horizon):
 
 
 def cmd_study(args, out, err) -> int:
+    if args.scheduler is not None and args.workers is not None:
+        print(printable("portfolio: error: --workers sets the size of the local cluster only; with "
+                        "--scheduler the cases run on that scheduler's own workers: leave out "
+                        "--workers (or --scheduler); no case was run"), file=err)
+        return EXIT_USAGE
     if args.scheduler is None:
         from .study.run import fresh, warm
         if fresh(args.out):  # a study with cases done starts it only if one is still to run
@@ -548,26 +608,40 @@ def _print_windows(result, out) -> None:
     w = result.summary["windows"]
     gap = "unknown" if w["gap"] is None else f"{100 * w['gap']:.3g} %"
     bound = "none" if w["lp_bound"] is None else f"{w['lp_bound']:,.2f}"
+    n = w["count"]
+    ends = "its end" if n == 1 else "their ends"
     if w["foresight_h"] is not None:
         ratio = "unknown" if w["ratio_to_bound"] is None else f"{100 * w['ratio_to_bound']:.2f} %"
-        print(printable(f"limited foresight: {w['count']} windows committing {w['commit_h']:g} h "
-                        f"and seeing {w['foresight_h']:g} h, '{w['end']}' at their ends; "
-                        f"{ratio} of the perfect-foresight LP bound {bound}; per window: "
-                        f"windows.csv"), file=out)
+        print(printable(f"limited foresight: {_count(n, 'window')} committing {w['commit_h']:g} h "
+                        f"and seeing {w['foresight_h']:g} h, '{w['end']}' at {ends}; {ratio} of "
+                        f"the perfect-foresight LP bound {bound}; per window: windows.csv"), file=out)
         return
-    again = f", {w['resolved']} solved again at a seam" if w["workers"] > 1 else ""
-    print(printable(f"windows: {w['count']} of {w['commit_h']:g} h (+{w['overlap_h']:g} h seen), "
-                    f"{w['end']} at their ends, {w['workers']} at once{again}; LP bound {bound}, "
+    at_once = min(w["workers"], n)      # never more at once than there are windows
+    again = f", {w['resolved']} solved again at a seam" if at_once > 1 else ""
+    print(printable(f"windows: {n} of {w['commit_h']:g} h (+{w['overlap_h']:g} h seen), "
+                    f"{w['end']} at {ends}, {at_once} at once{again}; LP bound {bound}, "
                     f"gap {gap}; per window: windows.csv"), file=out)
 
 
+def _count(n: int, word: str) -> str:
+    """``1 window``, ``4 windows``."""
+    return f"{n} {word}" if n == 1 else f"{n} {word}s"
+
+
 def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
+    """Why ``--out`` cannot be the output folder (nothing is ever written over an input), or None."""
     src = source.resolve()
     od = out_dir.resolve()
-    if od == src or od in src.parents:
-        return f"the output folder '{out_dir}' holds the portfolio file itself; choose a new folder"
+    if od == src:
+        return (f"--out '{out_dir}' is the portfolio file itself, not a folder: --out names a "
+                f"folder to write into (made, or replaced as a whole); choose a new folder, e.g. "
+                f"'{source.stem}_out' (the portfolio file is left as it is)")
+    if od in src.parents:
+        return (f"the output folder '{out_dir}' holds the portfolio file itself, and an output "
+                f"folder is replaced as a whole; choose a new folder")
     if od.exists() and not od.is_dir():
-        return f"'{out_dir}' exists and is not a folder"
+        return (f"--out '{out_dir}' is an existing file, not a folder: --out names a folder to "
+                f"write into; choose a new folder (the file is left as it is)")
     return None
 
 

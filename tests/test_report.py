@@ -271,6 +271,15 @@ def test_a_long_horizon_draws_connection_use_as_a_day_by_hour_map(long_windows):
     assert "windows of 24.0 h" in text
 
 
+
+def test_one_window_is_one_window_in_the_headline(tmp_path):
+    f = tmp_path / "short.folio"
+    f.write_text(_long_text(days=2), encoding="utf-8")
+    code, text, err = run("dispatch", f, "--out", tmp_path / "out", "--windows", "2d/0h", "--report", "-q")
+    assert code == 0, err
+    page = (tmp_path / "out" / C.REPORT_FILE).read_text(encoding="utf-8")
+    assert "1 window of 48.0 h" in page and "1 windows" not in page
+
 # -- bad input: clear messages, exit codes, nothing written -----------------------------------
 
 def test_a_folder_that_is_not_an_output_folder_is_refused(tmp_path):

@@ -109,7 +109,8 @@ def _headline(pg: Page) -> None:
             ("currency", f'<td data-key="currency">{e(s.get("currency") or "none declared: money")}</td>')]
     w = s.get("windows")
     if isinstance(w, dict):
-        rows.append(("windows", f"<td>{e(str(w.get('count')))} windows of {e(num(w.get('commit_h'), 1))} h "
+        word = "window" if w.get("count") == 1 else "windows"
+        rows.append(("windows", f"<td>{e(str(w.get('count')))} {word} of {e(num(w.get('commit_h'), 1))} h "
                                 f"(+{e(num(w.get('overlap_h'), 1))} h seen); gap against the whole "
                                 f"horizon's LP bound</td>"))
     pg.add("<section><h2>Headline</h2>" + kv(rows) + "</section>")

@@ -263,7 +263,8 @@ def _head(spec, pieces, relaxed, method: str) -> dict:
     sighted = isinstance(spec, Foresight)
     return {"commit_h": float(spec.commit_h), "overlap_h": spec.overlap, "end": str(spec.end),
             "foresight_h": float(spec.foresight_h) if sighted else None,
-            "workers": 1 if sighted else spec.workers, "count": len(pieces),
+            # windows solved at once: never more than there are windows, whatever was asked
+            "workers": 1 if sighted else max(1, min(spec.workers, len(pieces))), "count": len(pieces),
             "bound_method": method, "lp_bound": relaxed.bound, "lp_seconds": relaxed.seconds}
 
 
@@ -292,9 +293,9 @@ def _parallel(run: _Run, executor):
     ends; and the schedule is the one :func:`_in_order` finds with the same settings.
     """
     own = executor is None
-    if own:
-        executor = _pool(run.spec.workers)
     pieces, n = run.pieces, len(run.pieces)
+    if own:
+        executor = _pool(max(1, min(run.spec.workers, n)))   # no process without a window
     futures: dict = {}
     try:
         tasks = [run.task(i + 1, *pieces[i], guess=i > 0) for i in range(n)]
@@ -514,12 +515,15 @@ def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchRe
             "the LP relaxations of the committed pieces with their seams priced (a bound by "
             "pieces, docs/windows.md; weaker than the whole horizon's LP)")
     if head["foresight_h"] is not None:
-        notes = [f"limited foresight: each of {len(outcomes)} windows committed "
+        each = "the one window" if len(outcomes) == 1 else f"each of {len(outcomes)} windows"
+        notes = [f"limited foresight: {each} committed "
                  f"{head['commit_h']:g} h seeing {head['foresight_h']:g} h, its end "
                  f"'{head['end']}'; the bound is {what} (perfect foresight), which no window read"]
     else:
-        notes = [f"dispatched in {len(outcomes)} windows of {head['commit_h']:g} h, each seeing "
-                 f"{head['overlap_h']:g} h more ({head['workers']} at once); the bound is {what}"]
+        each = "" if len(outcomes) == 1 else "each "
+        notes = [f"dispatched in {_windows_count(len(outcomes))} of {head['commit_h']:g} h, {each}"
+                 f"seeing {head['overlap_h']:g} h more ({head['workers']} at once); the bound is "
+                 f"{what}"]
     if split:
         notes.append("checked piece by piece: each committed piece against its own model, with "
                      "the state carried in from the stitched schedule before it")
@@ -545,6 +549,11 @@ def _stitched(p, full, x, options, head, outcomes, t0, resolved=0) -> DispatchRe
     result.summary["windows"] = _summary(p, head, outcomes, t0, **figures)
     result.windows = _table(p, outcomes)
     return result
+
+
+def _windows_count(n: int) -> str:
+    """``1 window``, ``4 windows``."""
+    return f"{n} window" if n == 1 else f"{n} windows"
 
 
 def check_pieces(p: Portfolio, full, x: np.ndarray, pieces, variant: str = "tight"):

@@ -17,6 +17,8 @@ from typing import List, Optional, Tuple, Union
 
 import numpy as np
 
+from ..units import PLAUSIBLE, PRICE
+
 END_VALUE = "value"      # non-last windows value what is left in store at the LP's marginal value
 END_TARGET = "target"    # non-last windows must end with at least the LP's state of charge
 END_PIN = "pin"          # non-last windows end exactly at the LP's state of charge (no overlap):
@@ -31,6 +33,11 @@ OPEN = "open"            # (a fallback only) nothing, and no floor either: cut.r
 
 DAY_H = 24.0
 
+# the largest money value per MWh a window's end may take (either sign): the language's own
+# limit for a price (portfolio.units.PLAUSIBLE, lint P313); beyond it a value is a typing
+# error and would wreck the solver's arithmetic
+END_VALUE_LIMIT = PLAUSIBLE[PRICE][0]
+
 # where the bound (and, for perfect foresight, the value of what windows leave in store) comes from
 BOUND_WHOLE = "whole"    # the whole horizon's LP relaxation, solved once (exact, memory ~ the horizon)
 BOUND_SPLIT = "split"    # by pieces (portfolio/windows/split.py): never the whole horizon at once
@@ -41,24 +48,27 @@ SPLIT_ABOVE = 200_000    # storages x steps: 10 x 8,760 h stays whole, 20 x 35,0
 # codes (stable; docs/windows.md)
 NOT_WHOLE = "W001"       # a duration is not a whole number of steps
 TOO_LONG = "W002"        # commit longer than the horizon
-NOT_POSITIVE = "W003"    # commit not above zero, or overlap negative
+NOT_POSITIVE = "W003"    # commit not above zero (or below one step), or overlap negative
 UNREADABLE = "W004"      # a duration text cannot be read
 BAD_END = "W005"         # unknown end-of-window rule
 SHORT_SIGHT = "W006"     # foresight shorter than the commit length, or longer than the horizon
 PIN_OVERLAP = "W007"     # pinned ends with an overlap, or parallel windows without pinned ends
-SPLIT_NEEDS = "W008"     # an unknown bound method, or one by pieces with ends that need the LP's soc
+SPLIT_NEEDS = "W008"     # an unknown bound method, or by pieces with ends/workers that need the LP's soc
 CODES = {
     NOT_WHOLE: "a window length is not a whole number of steps",
     TOO_LONG: "the commit length is longer than the horizon",
-    NOT_POSITIVE: "the commit length is not above zero, or the overlap is negative",
+    NOT_POSITIVE: "the commit length is not above zero (or shorter than one step), or the overlap "
+                  "after it is negative",
     UNREADABLE: "a window length cannot be read (write e.g. 24h, 1d, 90min, 1w)",
     BAD_END: "the end-of-window rule is not one of 'value', 'target', 'pin' (or, with limited "
-             "foresight, 'hold', 'free' or a money value per MWh)",
+             "foresight, 'hold', 'free' or a money value per MWh from -100,000,000 to "
+             "100,000,000)",
     SHORT_SIGHT: "the foresight is shorter than the commit length, or longer than the horizon",
-    PIN_OVERLAP: "windows in parallel need pinned ends, and pinned windows take no overlap",
+    PIN_OVERLAP: "windows in parallel (workers) need ends 'pin', and windows with ends 'pin' or in "
+                 "parallel take no overlap",
     SPLIT_NEEDS: "the bound is not one of 'whole', 'split', 'auto', or it is 'split' (by pieces, no "
-                 "state of charge to aim at) with ends 'target' or 'pin' (and windows in parallel), "
-                 "which need the whole horizon's LP ('whole')",
+                 "state of charge to aim at) with ends 'target' or 'pin' or with windows in parallel "
+                 "(workers), which need the whole horizon's LP ('whole')",
 }
 
 
@@ -120,21 +130,31 @@ def _steps(hours: float, dt: float, what: str) -> int:
 def plan(spec, steps: int, step_hours: float) -> List[Tuple[int, int, int]]:
     """``(start, commit, length)`` of every window of ``spec`` (:class:`Windows` or
     :class:`Foresight`), in steps; raises :class:`WindowsError`."""
-    if isinstance(spec, Foresight):
+    sighted = isinstance(spec, Foresight)
+    if sighted:
         _check_foresight(spec, steps, step_hours)
     else:
         _check_windows(spec)
-    if not (spec.commit_h > 0) or not (spec.overlap >= 0):
-        raise WindowsError(NOT_POSITIVE, f"the commit length must be above zero and the overlap not "
-                                         f"negative (got {spec.commit_h:g} h and {spec.overlap:g} h)")
+    if not (spec.commit_h > 0):
+        raise WindowsError(NOT_POSITIVE, f"the commit length must be above zero (got "
+                                         f"{spec.commit_h:g} h): each window keeps that much of "
+                                         f"its schedule")
+    if not sighted and not (spec.overlap >= 0):
+        raise WindowsError(NOT_POSITIVE, f"the overlap (what a window sees after its commit "
+                                         f"length) must not be negative (got {spec.overlap:g} h)")
+    horizon_h = steps * step_hours
+    if spec.commit_h > horizon_h * (1 + 1e-9):
+        raise WindowsError(TOO_LONG, f"the commit length ({spec.commit_h:g} h) is longer than the "
+                                     f"horizon ({horizon_h:g} h)")
     commit = _steps(float(spec.commit_h), step_hours, "commit length")
-    if isinstance(spec, Foresight):
+    if commit < 1:
+        raise WindowsError(NOT_POSITIVE, f"the commit length ({spec.commit_h:g} h) is shorter than "
+                                         f"one {step_hours * 60:g}-minute step")
+    if sighted:
         overlap = _steps(float(spec.foresight_h), step_hours, "foresight") - commit
     else:
-        overlap = _steps(spec.overlap, step_hours, "overlap")
-    if commit > steps:
-        raise WindowsError(TOO_LONG, f"the commit length ({spec.commit_h:g} h) is longer than the "
-                                     f"horizon ({steps * step_hours:g} h)")
+        # seeing past the horizon's end is seeing to it: an overlap is clipped there anyway
+        overlap = _steps(min(spec.overlap, horizon_h), step_hours, "overlap")
     out = []
     for start in range(0, steps, commit):
         keep = min(commit, steps - start)
@@ -145,10 +165,19 @@ def plan(spec, steps: int, step_hours: float) -> List[Tuple[int, int, int]]:
 def _check_bound(spec) -> None:
     if spec.bound not in BOUND_METHODS:
         raise WindowsError(SPLIT_NEEDS, f"unknown bound {spec.bound!r} (use 'whole', 'split' or 'auto')")
-    if spec.bound == BOUND_SPLIT and isinstance(spec, Windows) and spec.end in (END_TARGET, END_PIN):
-        raise WindowsError(SPLIT_NEEDS, f"ends '{spec.end}' aim at the whole horizon's LP state of "
-                                        f"charge, which the bound by pieces ('split') never solves: "
-                                        f"use ends 'value' with it, or the bound 'whole'")
+    if spec.bound != BOUND_SPLIT or not isinstance(spec, Windows):
+        return
+    if isinstance(spec.workers, int) and spec.workers > 1:
+        raise WindowsError(SPLIT_NEEDS, f"windows in parallel ({spec.workers} workers) each start "
+                                        f"and end at the whole horizon's LP state of charge, which "
+                                        f"the bound by pieces ('split') never solves: use the bound "
+                                        f"'whole' with workers, or solve the windows one at a time "
+                                        f"(no workers)")
+    if spec.end in (END_TARGET, END_PIN):
+        raise WindowsError(SPLIT_NEEDS, f"the end-of-window rule '{spec.end}' aims at the whole "
+                                        f"horizon's LP state of charge, which the bound by pieces "
+                                        f"('split') never solves: use the end rule 'value' with it, "
+                                        f"or the bound 'whole'")
 
 
 def bound_method(spec, p) -> str:
@@ -176,16 +205,24 @@ def _check_windows(spec: Windows) -> None:
                                         f"ends (end 'pin'), not {spec.end!r}: a window must know where "
                                         f"the one before it ends without waiting for it")
     if spec.end == END_PIN and spec.overlap != 0:
-        raise WindowsError(PIN_OVERLAP, f"pinned windows end exactly at the LP's state of charge, so "
-                                        f"they take no overlap (got {spec.overlap:g} h; write e.g. "
+        who = (f"windows in parallel ({spec.workers} workers)" if spec.workers > 1 else
+               "windows with the end rule 'pin'")
+        raise WindowsError(PIN_OVERLAP, f"{who} end exactly at the LP's state of charge, so they "
+                                        f"take no overlap (got {spec.overlap:g} h; write e.g. "
                                         f"'1d' or '1d/0h')")
 
 
 def _check_foresight(spec: Foresight, steps: int, step_hours: float) -> None:
     _check_bound(spec)
     end = spec.end
-    if isinstance(end, bool) or not (end in (HOLD, FREE) or (
-            isinstance(end, (int, float)) and math.isfinite(end))):
+    if isinstance(end, (int, float)) and not isinstance(end, bool):
+        if not math.isfinite(end) or abs(end) > END_VALUE_LIMIT:
+            why = "not a finite number" if not math.isfinite(end) else "beyond any plausible market"
+            raise WindowsError(BAD_END, f"the end-of-window value {end:g} per MWh is {why}: write "
+                                        f"a money value per MWh from "
+                                        f"{-END_VALUE_LIMIT:,.0f} to {END_VALUE_LIMIT:,.0f} (or "
+                                        f"'hold' or 'free')")
+    elif end not in (HOLD, FREE):
         raise WindowsError(BAD_END, f"unknown end-of-window rule {end!r} with limited foresight "
                                     f"(use 'hold', 'free' or a money value per MWh)")
     if spec.commit_h > 0 and spec.foresight_h < spec.commit_h:
@@ -207,7 +244,12 @@ def hours(text: str) -> float:
     if not m:
         raise WindowsError(UNREADABLE, f"'{text}' is not a duration: write a number and a unit, "
                                        f"e.g. 24h, 1d, 90min, 1w")
-    return float(m.group(1)) * _UNITS[m.group(2)]
+    h = float(m.group(1)) * _UNITS[m.group(2)]
+    if not math.isfinite(h):
+        shown = text.strip() if len(text.strip()) <= 24 else text.strip()[:20] + "..."
+        raise WindowsError(UNREADABLE, f"'{shown}' is too large a number to be a duration: write "
+                                       f"e.g. 24h, 1d, 90min, 1w")
+    return h
 
 
 def parse(text: str, end: str = END_VALUE, workers: int = 1) -> Windows:
@@ -216,9 +258,10 @@ def parse(text: str, end: str = END_VALUE, workers: int = 1) -> Windows:
     if not text:
         return Windows(end=end, workers=workers)
     commit, _, overlap = text.partition("/")
-    if text.startswith("-") or overlap.strip().startswith("-"):
-        raise WindowsError(NOT_POSITIVE, f"'{text}': the commit length must be above zero and the "
-                                         f"overlap not negative")
+    if text.startswith("-"):
+        raise WindowsError(NOT_POSITIVE, f"'{text}': the commit length must be above zero")
+    if overlap.strip().startswith("-"):
+        raise WindowsError(NOT_POSITIVE, f"'{text}': the overlap (after '/') must not be negative")
     return Windows(hours(commit), hours(overlap) if overlap.strip() else None, end, workers)
 
 

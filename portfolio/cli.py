@@ -546,7 +546,7 @@ def cmd_study(args, out, err) -> int:
     try:
         study = pick(r.portfolio, args.study)
         out_dir = Path(args.out)
-        problem = _output_problem(out_dir, Path(args.file)) or check_folder(out_dir, r.portfolio)
+        problem = _output_problem(out_dir, Path(args.file)) or check_folder(out_dir, r.portfolio, study)
     except StudyError as e:
         problem = str(e)
     if problem:

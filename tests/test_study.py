@@ -116,6 +116,26 @@ def test_case_key_follows_inputs_not_layout(tmp_path):
     assert case_key(apply(a, a.studies["sizes"], cases(a.studies["sizes"])[0]), SolveOptions(threads=2)) != keys[0][0]
 
 
+def test_planned_keys_are_the_keys_of_each_case_alone_and_keep_no_case(tmp_path):
+    """plan() hashes the parts the cases share once (a memo of the portfolio's parts): the
+    keys must be those of each case hashed on its own, and the memo must hold no case's own
+    objects (a study of many year-long cases would keep every case's series bytes)."""
+    from portfolio.study.cases import shared_parts
+    from portfolio.study.run import plan
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    study = p.studies["sizes"]
+    memo = shared_parts(p)
+    parts = set(memo)
+    planned = plan(p, study, OPTIONS)
+    assert [pl.key for pl in planned] == [case_key(apply(p, study, c), OPTIONS) for c in cases(study)]
+    assert len(set(pl.key for pl in planned)) == len(planned) == 8
+    keys = [case_key(apply(p, study, c), OPTIONS, memo) for c in cases(study)]
+    assert keys == [pl.key for pl in planned]
+    assert set(memo) == parts                            # no case's own object kept
+    assert memo[id(p.sites["yard"])][1] is not None      # a part every case shares: hashed once, kept
+    assert memo[id(p.storages["cells"])][1] is None      # varied in every case: never fed from p
+
+
 def test_local_cluster_gives_the_serial_table(tmp_path):
     loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
     want = _serial_objectives(loaded.model)
@@ -516,6 +536,32 @@ def test_cli_refuses_bad_input_and_runs_nothing(tmp_path):
     good.write_text(_text(PRICES))
     assert main(["study", str(good), "other", "--out", str(tmp_path / "out")], out, err) == 2
     assert "no study 'other'" in err.text and not (tmp_path / "out").exists()
+
+
+def test_a_folder_of_another_study_is_refused_and_keeps_its_table(tmp_path):
+    """Two studies into one folder: the second would replace the first's cases.csv and
+    plots, so it is refused (the marker names the study), nothing of the first touched;
+    the same study again resumes; a folder marked before markers named their study is
+    taken as it was."""
+    from portfolio.cli import main
+    from portfolio.study import StudyError
+    from portfolio.study.run import MARKER
+    text = _text([2 * v for v in PRICES]) + "study other { vary cells energy values [3] MWh }\n"
+    loaded = _load(tmp_path, text)
+    out = tmp_path / "out"
+    run(loaded.model, "other", out, OPTIONS, workers=1, plots=False)
+    table = (out / "cases.csv").read_bytes()
+    with pytest.raises(StudyError, match="holds the cases of study 'other' of portfolio 'tiny'.*study 'sizes'"):
+        run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False)
+    o, e = _Sink(), _Sink()
+    assert main(["study", str(tmp_path / "tiny.folio"), "sizes", "--out", str(out), "--quiet"], o, e) == 2
+    assert "holds the cases of study 'other'" in e.text and "Traceback" not in e.text
+    assert (out / "cases.csv").read_bytes() == table and len(list((out / "cases").iterdir())) == 1
+    again = run(loaded.model, "other", out, OPTIONS, workers=1, plots=False)
+    assert again.skipped == 1 and again.solved == 0
+    (out / MARKER).write_text(f"portfolio study of {tmp_path / 'tiny.folio'}\n")    # an older marker
+    assert len(run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False).frame) == 8
+    assert "study sizes of portfolio tiny" in (out / MARKER).read_text()
 
 
 class _Sink:

@@ -44,7 +44,7 @@ __all__ = ["StudyFolder", "is_study", "read_study", "render_study", "STUDY_MARKE
 @dataclass
 class StudyFolder:
     path: Path
-    source: str                     # the marker's line: the portfolio file the study ran
+    source: str                     # the marker's lines: the portfolio file and the study it ran
     cases: "object"                 # cases.csv as a DataFrame
     varied: List[str]               # the varied columns, in the table's order
     assets: List[str]               # assets with a net value column
@@ -79,7 +79,8 @@ def read_study(path) -> StudyFolder:
     if not is_study(path):
         raise ReportError(f"{path} is not a study folder (it has no {STUDY_MARKER} file)")
     try:
-        source = read_bytes(path / STUDY_MARKER).decode("utf-8").strip()
+        source = "; ".join(line.strip() for line in read_bytes(path / STUDY_MARKER).decode("utf-8").splitlines()
+                           if line.strip())
     except (OSError, UnicodeDecodeError) as exc:
         raise ReportError(f"cannot read {path / STUDY_MARKER}: {getattr(exc, 'strerror', None) or exc}") from None
     f = path / CASES_FILE

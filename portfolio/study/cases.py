@@ -19,7 +19,7 @@ import itertools
 import math
 from dataclasses import dataclass, fields, is_dataclass, replace
 from datetime import datetime
-from typing import List, Mapping, Tuple
+from typing import List, Mapping, Optional, Tuple
 
 import numpy as np
 
@@ -94,42 +94,93 @@ def _storage(s: M.Storage, setting: str, v: float) -> M.Storage:
     raise ValueError(f"a study cannot vary '{setting}' of a storage")
 
 
-def case_key(p_case: M.Portfolio, options) -> str:
-    """The SHA-256 (hex) of what the case's result depends on: its model and the options."""
+def case_key(p_case: M.Portfolio, options, memo: Optional[dict] = None) -> str:
+    """The SHA-256 (hex) of what the case's result depends on: its model and the options.
+
+    ``memo`` (:func:`shared_parts` of the study's portfolio, kept for one plan of its
+    cases) caches the bytes each part of that portfolio feeds the hash: the cases share
+    every part they do not vary (storages, sites, series), so each is walked once, not once
+    a case.  What a case makes anew (its own model, a varied storage, a scenario's series)
+    is never kept: a study of many year-long cases would hold each case's series bytes.
+    The key is the same with or without it."""
     h = hashlib.sha256(KEY_VERSION.encode())
-    _feed(h, p_case)
-    _feed(h, options)
+    _feed(h.update, p_case, memo)
+    _feed(h.update, options, memo)
     return h.hexdigest()
 
 
-def _feed(h, x) -> None:
-    if is_dataclass(x) and not isinstance(x, type):
-        h.update(f"<{type(x).__name__}".encode())
-        for f in fields(x):
-            if f.name not in _SKIPPED:
-                h.update(f.name.encode())
-                _feed(h, getattr(x, f.name))
-        h.update(b">")
+_LEAVES = (str, float, int, bool, type(None))
+
+
+def shared_parts(p: M.Portfolio) -> dict:
+    """A memo for :func:`case_key` over the cases of ``p``'s studies: ``p``'s model parts
+    (dataclass instances, reached as the key walks them), by identity; each holds its part,
+    so that while the memo lives no other object takes its id."""
+    memo: dict = {}
+
+    def walk(x) -> None:
+        if is_dataclass(x) and not isinstance(x, type):
+            if id(x) in memo:
+                return
+            memo[id(x)] = (x, None)
+            for f in fields(x):
+                if f.name not in _SKIPPED:
+                    walk(getattr(x, f.name))
+        elif isinstance(x, Mapping):
+            for v in x.values():
+                walk(v)
+        elif isinstance(x, (tuple, list)):
+            for v in x:
+                walk(v)
+
+    walk(p)
+    del memo[id(p)]            # the whole model: each case has its own
+    return memo
+
+
+def _feed(out, x, memo: Optional[dict] = None) -> None:
+    t = type(x)
+    if t in _LEAVES:                 # the most common, first (exact types: what repr shows)
+        out(repr(x).encode())
+    elif is_dataclass(x) and not isinstance(x, type):
+        if memo is None or id(x) not in memo:
+            _fields(out, x, memo)
+            return
+        got = memo[id(x)]
+        if got[1] is None:
+            parts: list = []
+            _fields(parts.append, x, memo)
+            got = memo[id(x)] = (x, b"".join(parts))
+        out(got[1])
     elif isinstance(x, Mapping):
-        h.update(b"{")
+        out(b"{")
         for k in sorted(x, key=str):
-            _feed(h, k)
-            _feed(h, x[k])
-        h.update(b"}")
+            _feed(out, k, memo)
+            _feed(out, x[k], memo)
+        out(b"}")
     elif isinstance(x, (tuple, list)):
-        h.update(b"(")
+        out(b"(")
         for v in x:
-            _feed(h, v)
-        h.update(b")")
+            _feed(out, v, memo)
+        out(b")")
     elif isinstance(x, np.ndarray):
         a = np.ascontiguousarray(x, dtype=float)
-        h.update(f"a{a.shape}".encode())
-        h.update(a.tobytes())
+        out(f"a{a.shape}".encode())
+        out(a.tobytes())
     elif isinstance(x, datetime):
-        h.update(x.isoformat().encode())
+        out(x.isoformat().encode())
     elif isinstance(x, float):
-        h.update(repr(x).encode())
-    elif x is None or isinstance(x, (str, int, bool)):
-        h.update(repr(x).encode())
+        out(repr(x).encode())
+    elif isinstance(x, (str, int, bool)):
+        out(repr(x).encode())
     else:
         raise TypeError(f"cannot hash a {type(x).__name__} into a case key")
+
+
+def _fields(out, x, memo: Optional[dict]) -> None:
+    out(f"<{type(x).__name__}".encode())
+    for f in fields(x):
+        if f.name not in _SKIPPED:
+            out(f.name.encode())
+            _feed(out, getattr(x, f.name), memo)
+    out(b">")

@@ -34,9 +34,10 @@ from typing import Callable, Dict, List, Optional
 
 from .. import model as M
 from ..files import replace_atomically
-from .cases import Case, apply, case_key, cases
+from .cases import Case, apply, case_key, cases, shared_parts
 
-MARKER = ".portfolio-study"  # names the study folder ours (its portfolio file inside)
+MARKER = ".portfolio-study"  # names the study folder ours (its portfolio file and study inside)
+STUDY_LINE = "study"         # the marker's line naming the study: "study NAME of portfolio NAME"
 CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
@@ -86,7 +87,8 @@ def pick(p: M.Portfolio, name: Optional[str]) -> M.Study:
 
 
 def plan(p: M.Portfolio, study: M.Study, options) -> List[Planned]:
-    return [Planned(c, case_key(apply(p, study, c), options)) for c in cases(study)]
+    memo = shared_parts(p)     # the parts the cases share are hashed once (case_key)
+    return [Planned(c, case_key(apply(p, study, c), options, memo)) for c in cases(study)]
 
 
 def solve_case(p: M.Portfolio, study: M.Study, case: Case, options, schedule_dir: Optional[str] = None) -> dict:
@@ -167,15 +169,22 @@ def record(out_dir: Path, planned: Planned, row: dict) -> dict:
     return stored
 
 
-def check_folder(out_dir: Path, p: M.Portfolio) -> Optional[str]:
+def check_folder(out_dir: Path, p: M.Portfolio, study: Optional[M.Study] = None) -> Optional[str]:
     """Why ``out_dir`` cannot hold a study (None when it can): it must be new, empty, or one
-    this tool made for a study (its marker); a file the portfolio reads is never inside."""
+    this tool made for a study (its marker) — for ``study`` of ``p`` when given (another
+    study's table and plots would be replaced); a file the portfolio reads is never inside."""
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         return f"'{out_dir}' exists and is not a folder"
     if out.is_dir() and any(out.iterdir()) and not (out / MARKER).is_file():
         return (f"'{out_dir}' is not empty and was not made by 'portfolio study'; choose a new folder "
                 "(nothing in it is replaced)")
+    if study is not None and (out / MARKER).is_file():
+        theirs = marked_study(out)
+        if theirs is not None and theirs != (study.name, p.name):
+            return (f"'{out_dir}' holds the cases of study '{theirs[0]}' of portfolio '{theirs[1]}'; "
+                    f"choose a new folder for study '{study.name}' of portfolio '{p.name}' (each study "
+                    "keeps its own folder: its cases table and plots would replace the other's)")
     real = out.resolve()
     for f in p.inputs:
         if real in Path(f).resolve().parents:
@@ -213,8 +222,23 @@ def fresh(out_dir) -> bool:
         return True
 
 
-def _mark(out_dir: Path, p: M.Portfolio) -> None:
-    replace_atomically(out_dir / MARKER, lambda tmp: Path(tmp).write_text(f"portfolio study of {p.path}\n"))
+def _mark(out_dir: Path, p: M.Portfolio, study: M.Study) -> None:
+    text = f"portfolio study of {p.path}\n{STUDY_LINE} {study.name} of portfolio {p.name}\n"
+    replace_atomically(out_dir / MARKER, lambda tmp: Path(tmp).write_text(text))
+
+
+def marked_study(out_dir: Path) -> Optional[tuple]:
+    """(study, portfolio) named by the marker of study folder ``out_dir``; None for a marker
+    that names none (written before markers did) or cannot be read."""
+    try:
+        lines = (Path(out_dir) / MARKER).read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return None
+    for line in lines:
+        words = line.split()
+        if len(words) == 5 and words[0] == STUDY_LINE and words[2:4] == ["of", "portfolio"]:
+            return words[1], words[4]
+    return None
 
 
 # ---- running -------------------------------------------------------------------------
@@ -234,12 +258,12 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     chunk_sizes(1, 1, chunk)          # a bad chunk is refused before anything starts
     if scheduler is not None:
         check_address(scheduler)      # so is an address that cannot be one
-    problem = check_folder(out_dir, p)
+    problem = check_folder(out_dir, p, study)
     if problem:
         raise StudyError(problem)
     try:
         (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
-        _mark(out_dir, p)
+        _mark(out_dir, p, study)
     except OSError as e:
         raise StudyError(f"cannot write the study folder '{out_dir}': "
                          f"{e.strerror or e}") from None

@@ -384,6 +384,13 @@ def cmd_dispatch(args, out, err) -> int:
                        f"{AUTO_DAYS:g} days with binary rules ({rules[0]}"
                        f"{f' and {len(rules) - 1} more' if len(rules) > 1 else ''}); "
                        f"--whole for one MILP")
+    elif spec is None and args.marginal_values and not args.whole:
+        from .windows import AUTO_DAYS, by_default
+        if by_default(r.portfolio) is not None:
+            default = (f"dispatched as one MILP over the whole horizon, not by windows (the default "
+                       f"for a horizon longer than {AUTO_DAYS:g} days with binary rules): "
+                       f"--marginal-values needs one schedule and one LP over the whole horizon; "
+                       f"this can take much longer (--time-limit bounds it)")
     if spec is None and args.bound is not None:
         print(printable(f"portfolio: error: {_bound_refusal(args, r.portfolio)}; nothing was "
                         f"dispatched or written"), file=err)
@@ -416,7 +423,11 @@ def cmd_dispatch(args, out, err) -> int:
     progress = Progress(err, quiet=args.quiet)
     try:
         if spec is None:
+            if default and not args.quiet:
+                print(printable(f"portfolio: {default}"), file=err)
             result = dispatch(r.portfolio, options, progress=progress)
+            if default:
+                result.summary["notes"].append(default)
         else:
             from .windows import dispatch_windows
             if default and not args.quiet:

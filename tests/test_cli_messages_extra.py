@@ -157,6 +157,20 @@ def test_bound_refused_because_of_marginal_values_names_it(tmp_path):
     assert "--marginal-values" not in err
 
 
+def test_marginal_values_on_a_long_horizon_say_it_is_one_milp(tmp_path):
+    """A horizon that would go by windows is one MILP with --marginal-values: said on
+    stderr and kept in summary.json's notes (it was silent)."""
+    f = _long(tmp_path)
+    code, _, err = run("dispatch", f, "--out", tmp_path / "o", "--marginal-values")
+    assert code == 0, err
+    assert "one MILP over the whole horizon, not by windows" in err and "--marginal-values" in err
+    notes = json.loads((tmp_path / "o" / "summary.json").read_text())["notes"]
+    assert any("not by windows" in n for n in notes)
+    assert not (tmp_path / "o" / "windows.csv").exists()
+    code, _, err = run("dispatch", f, "--out", tmp_path / "w", "--marginal-values", "--whole")
+    assert code == 0 and "not by windows" not in err        # asked for: nothing to say
+
+
 def test_bound_on_a_short_horizon_does_not_blame_marginal_values(tmp_path):
     err = _refused(tmp_path / "o", "--marginal-values", "--bound", "whole")
     assert "this dispatch is one MILP" in err and "--marginal-values makes" not in err, err

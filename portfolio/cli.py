@@ -522,6 +522,9 @@ def _windows_spec(args, horizon):
         return None, "--commit goes with --foresight (with --windows write COMMIT[/OVERLAP])"
     if windows and args.windows and not _duration_like(args.windows):
         if args.windows.lower().endswith(".folio") or os.path.isfile(args.windows):
+            if any(a.startswith("--windows=") for a in getattr(args, "argv", ())):
+                return None, (f"--windows={args.windows} names a file, not windows: write the "
+                              f"windows as COMMIT[/OVERLAP] (--windows=1d/1d)")
             return None, _windows_took_file(args.windows, file_left=True)
     try:
         if sighted:
@@ -645,11 +648,11 @@ def _output_problem(out_dir: Path, source: Path) -> Optional[str]:
     od = out_dir.resolve()
     if od == src:
         return (f"--out '{out_dir}' is the portfolio file itself, not a folder: --out names a "
-                f"folder to write into (made, or replaced as a whole); choose a new folder, e.g. "
+                f"folder to write into; choose a new folder, e.g. "
                 f"'{source.stem}_out' (the portfolio file is left as it is)")
     if od in src.parents:
-        return (f"the output folder '{out_dir}' holds the portfolio file itself, and an output "
-                f"folder is replaced as a whole; choose a new folder")
+        return (f"the output folder '{out_dir}' holds the portfolio file itself, and no input "
+                f"is ever inside what the tool writes; choose a new folder")
     if od.exists() and not od.is_dir():
         return (f"--out '{out_dir}' is an existing file, not a folder: --out names a folder to "
                 f"write into; choose a new folder (the file is left as it is)")

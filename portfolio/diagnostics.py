@@ -11,7 +11,7 @@ that the two agree.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import FrozenInstanceError, dataclass, field
 from typing import ClassVar, Dict, List, Type
 
 from .spans import Span
@@ -145,7 +145,13 @@ def _kind(code: str, severity: str, summary: str, name: str) -> Type[Diagnostic]
     dataclass's methods as they are (decorating each of about 100 kinds again took 70 ms of
     every command's start)."""
     return type(name, (Diagnostic,), {"code": code, "severity": severity, "summary": summary,
-                                      "__module__": __name__})
+                                      "__module__": __name__, "__doc__": summary,
+                                      "__setattr__": _frozen, "__delattr__": _frozen})
+
+
+def _frozen(self, name, *value):
+    """A kind's instances are as frozen as the dataclass's own: no attribute set or deleted."""
+    raise FrozenInstanceError(f"cannot assign to field {name!r}")
 
 
 # --- P0xx: files --------------------------------------------------------------

@@ -84,6 +84,12 @@ def test_windows_taking_a_file_with_file_given_too_says_so(tmp_path):
     assert "W004" not in err
 
 
+def test_windows_given_a_file_with_equals_does_not_suggest_equals(tmp_path):
+    code, _, err = run("dispatch", DEMO, "--out", tmp_path / "o", f"--windows={DEMO}")
+    assert code == 2 and not (tmp_path / "o").exists()
+    assert "names a file, not windows" in err and "put FILE before" not in err, err
+
+
 def test_a_missing_file_after_a_duration_is_just_missing(tmp_path, capsys):
     assert main(["dispatch", "--windows", "24h", "--out", str(tmp_path / "o")]) == 2
     err = capsys.readouterr().err

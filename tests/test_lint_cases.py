@@ -109,3 +109,26 @@ def test_expectation_reader_rejects_garbage(tmp_path):
     silent.write_text("portfolio x\n")
     with pytest.raises(AssertionError):
         expectations(silent)
+
+
+def test_every_diagnostic_kind_is_frozen_comparable_and_picklable():
+    """The kinds are plain subclasses of the frozen Diagnostic (portfolio/diagnostics.py):
+    as frozen as a dataclass of their own, equal only to their own kind, and they pickle
+    (they cross to Dask workers and the language server's threads)."""
+    import dataclasses
+    import pickle
+
+    from portfolio.diagnostics import REGISTRY
+    from portfolio.spans import Span
+    span = Span("x.folio", 1, 1, 1, 2)
+    for code, kind in REGISTRY.items():
+        d = kind(span, "m", ("n",))
+        assert d.code == code and kind.__doc__ == kind.summary
+        assert pickle.loads(pickle.dumps(d)) == d and hash(d) == hash(kind(span, "m", ("n",)))
+        assert dataclasses.replace(d, message="q").message == "q" and d.message == "m"
+        for attempt in (lambda: setattr(d, "message", "z"), lambda: setattr(d, "other", 1),
+                        lambda: delattr(d, "notes")):
+            with pytest.raises(dataclasses.FrozenInstanceError):
+                attempt()
+    a, b = REGISTRY["P201"], REGISTRY["P202"]
+    assert a(span, "m") != b(span, "m")

@@ -564,6 +564,21 @@ def test_a_folder_of_another_study_is_refused_and_keeps_its_table(tmp_path):
     assert "study sizes of portfolio tiny" in (out / MARKER).read_text()
 
 
+def test_a_portfolio_named_by_a_file_with_spaces_keeps_its_folder_to_its_study(tmp_path):
+    """A file that names no portfolio is named after the file, spaces and all; the marker
+    must still name its study (it was read as an old marker, and another study got in)."""
+    from portfolio.study import StudyError
+    from portfolio.study.run import marked_study
+    text = _text([2 * v for v in PRICES]).replace("portfolio tiny\n", "")
+    loaded = _load(tmp_path, text + "study other { vary cells energy values [3] MWh }\n", "my plan.folio")
+    assert loaded.model.name == "my plan"
+    out = tmp_path / "out"
+    run(loaded.model, "other", out, OPTIONS, workers=1, plots=False)
+    assert marked_study(out) == ("other", "my plan")
+    with pytest.raises(StudyError, match="study 'other' of portfolio 'my plan'"):
+        run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False)
+
+
 class _Sink:
     def __init__(self):
         self.text = ""

@@ -235,9 +235,11 @@ def marked_study(out_dir: Path) -> Optional[tuple]:
     except (OSError, UnicodeDecodeError):
         return None
     for line in lines:
-        words = line.split()
-        if len(words) == 5 and words[0] == STUDY_LINE and words[2:4] == ["of", "portfolio"]:
-            return words[1], words[4]
+        if line.startswith(f"{STUDY_LINE} "):
+            # a study's name is a word; the portfolio's may hold spaces (a file's name stands
+            # for it when the file names none): all after " of portfolio " is the portfolio's
+            study, sep, portfolio = line[len(STUDY_LINE) + 1:].partition(" of portfolio ")
+            return (study, portfolio) if sep else (line, "?")    # unreadable: never this study
     return None
 
 

@@ -579,6 +579,39 @@ def test_a_portfolio_named_by_a_file_with_spaces_keeps_its_folder_to_its_study(t
         run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False)
 
 
+@pytest.mark.parametrize("scenarios", [2, 15])
+def test_plots_colour_each_scenario_and_name_at_most_twelve(tmp_path, monkeypatch, scenarios):
+    """A plot per varied setting: a colour per scenario, one line per value of the other
+    setting in it (the legend's title says so), at most 12 colours named beside the axes
+    (40 lines, each in the legend over the lines, were unreadable)."""
+    from matplotlib.figure import Figure
+
+    from portfolio.study.results import LEGEND_MAX, write_plots
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    rows = [{"cells energy [MWh]": e, "grid export max [MW]": x, "spot scenario": f"s{k}",
+             "status": "optimal", "objective": 100 * k + 10 * e + x}
+            for e in (2.0, 4.0) for x in (1.0, 2.0) for k in range(scenarios)]
+    legends = []
+    real = Figure.legend
+
+    def seen(fig, *a, **k):
+        legends.append(([h.get_label() for h in k["handles"]], k.get("title") or ""))
+        return real(fig, *a, **k)
+    monkeypatch.setattr(Figure, "legend", seen)
+    written = write_plots(p.studies["sizes"], pd.DataFrame(rows), tmp_path / "out")
+    assert sorted(f.name for f in written) == sorted(f"objective_vs_{n}.{ext}" for n in
+                                                     ("cells_energy", "grid_export_max") for ext in ("png", "svg"))
+    assert all(f.stat().st_size > 1000 for f in written)
+    assert len(legends) == 2
+    for (labels, title), other in zip(legends, ("grid export max [MW]", "cells energy [MWh]")):
+        assert f"one line per {other}; fainter: smaller" in title
+        if scenarios <= LEGEND_MAX:
+            assert labels == [f"spot: s{k}" for k in range(scenarios)] and "named" not in title
+        else:
+            assert len(labels) == LEGEND_MAX and labels[0] == "spot: s0" and labels[-1] == "spot: s9"
+            assert f"{scenarios} colours, {LEGEND_MAX} named" in title
+
+
 class _Sink:
     def __init__(self):
         self.text = ""

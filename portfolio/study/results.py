@@ -78,42 +78,74 @@ def write_table(df: pd.DataFrame, out_dir: Path) -> List[Path]:
     return written
 
 
+LEGEND_MAX = 12    # colours named in a plot's legend at most (more: a sequential map, some named)
+
+
 def write_plots(study: M.Study, df: pd.DataFrame, out_dir: Path) -> List[Path]:
-    """For each varied setting: the objective against its value, one line per scenario
-    (a combination of the varied series' scenarios; the other settings' values beside
-    it in the legend when they vary too).  PNG and SVG; the paths written."""
+    """For each varied setting: the objective against its value, one line per combination
+    of the other dimensions.  A colour per scenario (a combination of the varied series'
+    scenarios; without scenarios, per value of the other settings); where other settings
+    vary too, one line per their values in the scenario's colour, fainter for smaller
+    values, as the legend's title says.  The legend stands beside the axes, never over the
+    lines, and names at most :data:`LEGEND_MAX` colours.  PNG and SVG; the paths written."""
     import matplotlib
     matplotlib.use("Agg")
+    from matplotlib import colormaps
     from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
 
     folder = Path(out_dir) / PLOTS
     folder.mkdir(parents=True, exist_ok=True)
     varied = [d for d in study.dimensions if isinstance(d, M.Varied)]
     groups = [scenario_column(d) for d in study.dimensions if isinstance(d, M.ScenarioSet)]
     written = []
-    ok = df[df["status"].isin(("optimal", "feasible"))]
+    ok = df[df["status"].isin(("optimal", "feasible")) & df["objective"].notna()]
     for d in varied:
         x = value_column(d)
-        others = [value_column(o) for o in varied if o is not d] + groups
-        fig = Figure(figsize=(7, 4.2))
+        others = [value_column(o) for o in varied if o is not d]
+        colour_by, shade_by = (groups, others) if groups else (others, [])
+        keys = _combinations(ok, colour_by)
+        shades = _combinations(ok, shade_by)
+        cmap = colormaps["tab10" if len(keys) <= 10 else "viridis"]
+        colour = {k: cmap(i if len(keys) <= 10 else i / max(1, len(keys) - 1)) for i, k in enumerate(keys)}
+        fig = Figure(figsize=(9, 4.6), layout="constrained")
         ax = fig.add_subplot()
-        lines = ok.groupby(others, sort=True) if others else [((), ok)]
-        for label, part in lines:
-            label = label if isinstance(label, tuple) else (label,)
+        for key, part in (ok.groupby(colour_by + shade_by, sort=True) if colour_by + shade_by else [((), ok)]):
+            key = key if isinstance(key, tuple) else (key,)
+            c, sh = key[:len(colour_by)], key[len(colour_by):]
+            alpha = 1.0 if len(shades) < 2 else 0.3 + 0.7 * shades.index(sh) / (len(shades) - 1)
             part = part.sort_values(x)
-            name = ", ".join(f"{c.removesuffix(' scenario')}: {v}" if c in groups else f"{c} = {v:g}"
-                             for c, v in zip(others, label)) or "objective"
-            ax.plot(part[x], part["objective"], marker="o", label=name)
+            ax.plot(part[x], part["objective"], color=colour[c], alpha=alpha, marker="o", markersize=3,
+                    linewidth=1.2)
         ax.set_xlabel(x)
         ax.set_ylabel("objective (money)")
         ax.set_title(f"study {study.name}: objective against {d.target} {d.setting}")
         ax.grid(True, alpha=0.3)
-        if len(ax.get_lines()) > 1:
-            ax.legend(fontsize="small")
+        named = keys if len(keys) <= LEGEND_MAX else [keys[round(i * (len(keys) - 1) / (LEGEND_MAX - 1))]
+                                                     for i in range(LEGEND_MAX)]
+        if colour_by and len(keys) > 1:
+            handles = [Line2D([], [], color=colour[k], marker="o", markersize=3, label=_label(colour_by, k))
+                       for k in named]
+            title = [] if len(keys) <= LEGEND_MAX else [f"{len(keys)} colours, {len(named)} named"]
+            if len(shades) > 1:
+                title.append(f"one line per {', '.join(shade_by)}; fainter: smaller")
+            fig.legend(handles=handles, loc="outside right upper", fontsize="small",
+                       title="\n".join(title) or None, title_fontsize="small")
         stem = f"objective_vs_{d.target}_{d.setting.replace(' ', '_')}"
         for ext in ("png", "svg"):
             path = folder / f"{stem}.{ext}"
-            replace_atomically(path, lambda tmp, ext=ext: fig.savefig(tmp, format=ext, dpi=110,
-                                                                     bbox_inches="tight"))
+            replace_atomically(path, lambda tmp, ext=ext: fig.savefig(tmp, format=ext, dpi=110))
             written.append(path)
     return written
+
+
+def _combinations(df: pd.DataFrame, columns: List[str]) -> List[tuple]:
+    """The distinct value tuples of ``columns`` in ``df``, sorted ([()] for no columns)."""
+    if not columns:
+        return [()]
+    return sorted(set(map(tuple, df[columns].itertuples(index=False, name=None))))
+
+
+def _label(columns: List[str], key: tuple) -> str:
+    return ", ".join(f"{c.removesuffix(' scenario')}: {v}" if c.endswith(" scenario") else f"{c} = {v:g}"
+                     for c, v in zip(columns, key))

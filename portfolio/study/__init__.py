@@ -12,14 +12,14 @@ from __future__ import annotations
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import List, Optional
-
-import pandas as pd
+from typing import TYPE_CHECKING, List, Optional
 
 from .. import model as M
 from .cases import Case, apply, case_key, cases
-from .results import table, write_plots, write_table
 from .run import StudyError, chunk_sizes, pick, run_serial, run_study, solve_case
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = ["run", "StudyResult", "StudyError", "Case", "apply", "case_key", "cases", "pick", "run_serial",
            "run_study", "solve_case", "chunk_sizes", "table"]
@@ -46,6 +46,7 @@ def run(p: M.Portfolio, name: Optional[str] = None, out=None, options=None, clie
     ``chunk``: cases a Dask task at most (None: the runner chooses, :func:`.run.chunk_sizes`;
     1: one case a task)."""
     from ..solve import SolveOptions
+    from .results import table, write_plots, write_table
     study = pick(p, name)
     options = options or SolveOptions(threads=1)
     if out is None:
@@ -61,3 +62,12 @@ def run(p: M.Portfolio, name: Optional[str] = None, out=None, options=None, clie
     if plots:
         files += write_plots(study, df, out)
     return StudyResult(study, df, got["solved"], got["skipped"], got["failed"], got["sent_bytes"], files)
+
+
+def __getattr__(name: str):
+    """``table`` (:func:`.results.table`) on first use: pandas is imported then, not by
+    ``import portfolio.study`` (the study command starts its fork server before it)."""
+    if name == "table":
+        from .results import table
+        return table
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -612,6 +612,27 @@ def test_plots_colour_each_scenario_and_name_at_most_twelve(tmp_path, monkeypatc
             assert f"{scenarios} colours, {LEGEND_MAX} named" in title
 
 
+def test_work_for_afterwards_runs_while_the_cases_do_and_is_done_on_return(tmp_path, monkeypatch):
+    """run_study's ``idle`` (the plots' imports, from portfolio.study.run) runs in a thread
+    of its own while the cluster solves the cases, and is finished when run_study returns
+    (never left running into the interpreter's exit); a study with nothing left to run
+    does not start it."""
+    from portfolio.study import run_study
+    monkeypatch.setattr(sys.modules["portfolio.study.run"], "small", lambda p: False)   # all on the cluster
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    seen = []
+
+    def work():
+        seen.append(threading.current_thread().name)
+        time.sleep(0.5)
+        seen.append("done")
+    got = run_study(p, p.studies["sizes"], tmp_path / "out", OPTIONS, workers=1, idle=work)
+    assert got["solved"] == 8 and seen == ["portfolio-study-meanwhile", "done"]
+    seen.clear()
+    again = run_study(p, p.studies["sizes"], tmp_path / "out", OPTIONS, workers=1, idle=work)
+    assert again["skipped"] == 8 and seen == []
+
+
 class _Sink:
     def __init__(self):
         self.text = ""

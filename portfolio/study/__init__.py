@@ -56,12 +56,24 @@ def run(p: M.Portfolio, name: Optional[str] = None, out=None, options=None, clie
             return got
     out = Path(out)
     got = run_study(p, study, out, options, client=client, scheduler=scheduler, workers=workers,
-                    schedules=schedules, progress=progress, chunk=chunk)
+                    schedules=schedules, progress=progress, chunk=chunk,
+                    idle=_ready_to_write if plots else None)
     df = table(study, cases(study), got["rows"])
     files = write_table(df, out)
     if plots:
         files += write_plots(study, df, out)
     return StudyResult(study, df, got["solved"], got["skipped"], got["failed"], got["sent_bytes"], files)
+
+
+def _ready_to_write() -> None:
+    """Import what the table and the plots need (matplotlib, pyarrow: about half a second)
+    while the cases run on the cluster and this process only waits for them."""
+    import matplotlib.figure  # noqa: F401
+    import matplotlib.lines  # noqa: F401
+    try:
+        import pyarrow.parquet  # noqa: F401
+    except ImportError:      # no parquet then (write_table)
+        pass
 
 
 def __getattr__(name: str):

@@ -253,9 +253,13 @@ def run_serial(p: M.Portfolio, study: M.Study, options) -> List[dict]:
 
 def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, scheduler: Optional[str] = None,
               workers: Optional[int] = None, schedules: bool = False,
-              progress: Optional[Progress] = None, chunk: Optional[int] = None) -> Dict[str, object]:
+              progress: Optional[Progress] = None, chunk: Optional[int] = None,
+              idle: Optional[Callable[[], None]] = None) -> Dict[str, object]:
     """Run the cases not yet done into ``out_dir``; returns ``{"rows": [...], "solved": n,
-    "skipped": n, "failed": n, "sent_bytes": n}`` (rows in case order, done before or now)."""
+    "skipped": n, "failed": n, "sent_bytes": n}`` (rows in case order, done before or now).
+    ``idle``: called in a thread of its own while the cases run on the cluster (this
+    process waits for them then), joined before the return: work for afterwards done
+    meanwhile (the plots' imports, :func:`portfolio.study.run`)."""
     out_dir = Path(out_dir)
     chunk_sizes(1, 1, chunk)          # a bad chunk is refused before anything starts
     if scheduler is not None:
@@ -277,14 +281,14 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
     starting = _start_local(workers) if local else None
     try:
         return _run_planned(p, study, out_dir, options, client, scheduler, workers, schedules,
-                            progress, chunk, starting)
+                            progress, chunk, starting, idle)
     finally:
         if starting is not None:
             starting.stop()
 
 
 def _run_planned(p, study, out_dir: Path, options, client, scheduler, workers, schedules, progress,
-                 chunk, starting: Optional["_Starting"]) -> Dict[str, object]:
+                 chunk, starting: Optional["_Starting"], idle=None) -> Dict[str, object]:
     """:func:`run_study` once its folder is checked (``starting``: the cluster's start, if
     already begun; stopped by the caller)."""
     planned = plan(p, study, options)
@@ -328,13 +332,32 @@ def _run_planned(p, study, out_dir: Path, options, client, scheduler, workers, s
             shared = replace(p, studies={})       # the study goes on its own: scenario series
             sent = _size(shared) + _size(study)
             if by_key:
-                _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
-                            chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
+                meanwhile = _in_thread(idle) if idle is not None else None
+                try:
+                    _run_chunks(client, shared, study, by_key, options, out_dir if schedules else None,
+                                chunk_sizes(len(by_key), _threads(client, workers), chunk), arrived)
+                finally:
+                    if meanwhile is not None:
+                        meanwhile.join()     # never left running into the interpreter's exit
         finally:
             if own is not None and own is not starting:
                 own.stop()
     return {"rows": [rows[pl.case.index] for pl in planned], "solved": done, "skipped": skipped,
             "failed": failed, "sent_bytes": sent, "ids": [pl.id for pl in planned]}
+
+
+def _in_thread(work: Callable[[], None]):
+    """``work()`` started in a daemon thread; its errors are its own (nothing needs it)."""
+    import threading
+
+    def quietly():
+        try:
+            work()
+        except Exception:        # what it prepares is done again, or fails, where it is used
+            pass
+    thread = threading.Thread(target=quietly, daemon=True, name="portfolio-study-meanwhile")
+    thread.start()
+    return thread
 
 
 def small(p: M.Portfolio) -> bool:

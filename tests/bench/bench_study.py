@@ -1,6 +1,6 @@
 """Benchmark: a study on the local Dask cluster against a serial loop of dispatch (not collected by pytest).
 
-    python tests/bench/bench_study.py [--cases 200] [--workers 2] [--rounds 2] [--method forkserver]
+    python tests/bench/bench_study.py [--cases 200] [--workers 2] [--rounds 2] [--method forkserver] [--commands N] [--hours 24]
 
 A study of small cases (an hourly day, five storages on two sites behind one
 connection, exclusive modes on two of them so each case is a small MILP):
@@ -23,6 +23,17 @@ four price scenarios.  Side by side in one process, in this order:
 
 ``--method`` picks how the local cluster's workers start (forkserver or spawn;
 default the runner's ``START_METHOD``).
+
+With ``--commands N``, also N rounds of two commands side by side, each a new
+process timed from its start to its exit (interpreter, imports, reading the
+file, the cases, the table and the plots, as a user waits for them):
+
+* ``portfolio study FILE --out DIR --quiet`` (its own local cluster; the fork
+  server starts before the file is read);
+* the same cases as a serial loop in one plain Python process: the file
+  loaded, every case dispatched (:func:`portfolio.study.run_serial`), the same
+  table and plots written (:func:`portfolio.study.results.write_table`,
+  ``write_plots``), no Dask.
 
 Then the traffic: the bytes scattered once (the model and the study, to each
 worker), the bytes of one task as submitted (its function, its case, the
@@ -95,21 +106,24 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--cases", type=int, default=200)
     ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--hours", type=int, default=24, help="each case's horizon (hourly steps; the target: 24)")
     ap.add_argument("--rounds", type=int, default=2, help="serial and study runs, alternating")
     ap.add_argument("--method", choices=("forkserver", "spawn"), default=None,
                     help="how the local cluster's workers start (default: the runner's, START_METHOD)")
+    ap.add_argument("--commands", type=int, default=0,
+                    help="also N rounds of the two commands (study vs a serial loop), each a new process")
     args = ap.parse_args()
     if args.method:
         sys.modules["portfolio.study.run"].START_METHOD = args.method   # the module (portfolio.study.run is a function)
     tmp = Path(tempfile.mkdtemp(prefix="bench-study-"))
     try:
         src = tmp / "bench_study.folio"
-        src.write_text(text(args.cases))
+        src.write_text(text(args.cases, hours=args.hours))
         p = portfolio.load(src).model
         study = p.studies["sweep"]
         every = cases(study)
         options = SolveOptions(threads=1)
-        print(f"{len(every)} cases: 5 storages (2 with exclusive modes) x 24 h; {args.workers} workers; "
+        print(f"{len(every)} cases: 5 storages (2 with exclusive modes) x {args.hours} h; {args.workers} workers; "
               f"{os.cpu_count()} cores; load average {os.getloadavg()[0]:.2f} at the start")
         dispatch(apply(p, study, every[0]), options)             # warm-up (imports, first solve)
         rounds = []
@@ -127,6 +141,10 @@ def main():
                   f"CPU {f['plain_cpu']:.2f} s) | "
                   f"tasks' own wall {f['task_wall']:.2f} s summed | same objectives {f['same']} | "
                   f"load {os.getloadavg()[0]:.2f}")
+        if not rounds:                      # --rounds 0: the commands alone
+            if args.commands:
+                _commands(src, tmp, args.commands)
+            return
         med = {k: float(np.median([f[k] for f in rounds])) for k in rounds[0] if k not in ("same", "seen", "transfers")}
         cpu = med["client_cpu"] + med["worker_cpu"]
         print(f"median of {len(rounds)}: CPU of the study with its own cluster (tool, fork server, workers) / serial "
@@ -136,6 +154,9 @@ def main():
               f"cluster up {med['warm'] / med['serial']:.2f}; CPU of the study's processes / serial CPU "
               f"{cpu / med['serial_cpu']:.2f} (on {args.workers} idle cores the cluster-up ratio could reach about "
               f"{cpu / args.workers / med['serial_cpu']:.2f})")
+
+        if args.commands:
+            _commands(src, tmp, args.commands)
 
         from distributed.protocol.pickle import dumps
         got = rounds[-1]
@@ -205,6 +226,55 @@ def _round(p, study, every, options, folder: Path, workers: int) -> dict:
     cluster.close()
     out["down"] = time.perf_counter() - t0
     return out
+
+
+SERIAL_COMMAND = """
+import sys
+from pathlib import Path
+import portfolio
+from portfolio.solve import SolveOptions
+from portfolio.study import cases, pick, run_serial
+from portfolio.study.results import table, write_plots, write_table
+p = portfolio.load(sys.argv[1]).model
+study = pick(p, None)
+rows = run_serial(p, study, SolveOptions(threads=1))
+df = table(study, cases(study), rows)
+out = Path(sys.argv[2])
+out.mkdir()
+write_table(df, out)
+write_plots(study, df, out)
+"""
+
+
+def _commands(src: Path, tmp: Path, rounds: int) -> None:
+    """The study command against a serial loop in a plain process, alternating; wall times
+    from each process's start to its exit."""
+    import subprocess
+    tool = str(Path(sys.executable).with_name("portfolio"))
+    times = {"study": [], "serial": []}
+    for r in range(rounds):
+        for what in ("serial", "study") if r % 2 == 0 else ("study", "serial"):
+            out = tmp / f"cmd-{what}-{r}"
+            cmd = ([tool, "study", str(src), "--out", str(out), "--quiet"] if what == "study" else
+                   [sys.executable, "-c", SERIAL_COMMAND, str(src), str(out)])
+            t0 = time.perf_counter()
+            done = subprocess.run(cmd, capture_output=True, text=True)
+            times[what].append(time.perf_counter() - t0)
+            if done.returncode != 0:
+                raise SystemExit(f"{what} command failed ({done.returncode}): {done.stderr[-2000:]}")
+        a, b = pd_read(tmp / f"cmd-study-{r}"), pd_read(tmp / f"cmd-serial-{r}")
+        same = bool(np.allclose(a, b, rtol=0, atol=1e-6))
+        print(f"commands, round {r + 1}: serial loop {times['serial'][-1]:.2f} s | study "
+              f"{times['study'][-1]:.2f} s (ratio {times['study'][-1] / times['serial'][-1]:.2f}) | "
+              f"same objectives {same} | load {os.getloadavg()[0]:.2f}", flush=True)
+    ratios = [x / y for x, y in zip(times["study"], times["serial"])]
+    print(f"commands, median of {rounds}: serial {np.median(times['serial']):.2f} s, study "
+          f"{np.median(times['study']):.2f} s, ratio (median of the rounds') {np.median(ratios):.2f}")
+
+
+def pd_read(folder: Path):
+    import pandas as pd
+    return pd.read_csv(folder / "cases.csv")["objective"].to_numpy(float)
 
 
 def _plain_processes(p, study, every, options, workers: int):

@@ -433,8 +433,27 @@ def test_the_study_report_figures_equal_cases_csv(study):
     assert page.charts == ["study/cells energy [MWh]", "study/grid import max [MW]"]
     figure = text.split('data-chart="study/cells energy [MWh]"', 1)[1].split("</figure>", 1)[0]
     assert "objective (EUR)" in figure and "cells energy [MWh]" in figure
-    assert "grid import max [MW] = 2, spot: low" in figure and "spot: high" in figure
+    # a colour per scenario; the other setting has one value with a schedule: no shades
+    assert "spot: low" in figure and "spot: high" in figure and "fainter" not in figure
     assert "<img" not in text and ".png" not in text.replace("plots/", "")
+
+
+def test_a_study_plot_names_at_most_twelve_colours_and_says_what_shades_mean():
+    """15 scenarios x 3 values of another setting: 45 lines, 15 colours of which 12 are
+    named beside the axes, the shades explained (a legend of 45 entries had squeezed the
+    axes to nothing and made matplotlib warn on the command's stderr)."""
+    import warnings
+
+    from portfolio.report import charts
+    xs = np.array([1.0, 2.0, 3.0])
+    lines = [(f"spot: s{k:02d}", shade, xs, xs * k + shade) for k in range(15) for shade in (0.0, 0.5, 1.0)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        svg = charts.study_lines("t", "x [MW]", lines, "objective (EUR)", "salt",
+                                 "one line per b energy [MWh]; fainter: smaller")
+    assert "15 colours, 12 named" in svg and "one line per b energy [MWh]; fainter: smaller" in svg
+    named = [f"spot: s{k:02d}" for k in range(15) if f"spot: s{k:02d}<" in svg]
+    assert len(named) == charts.LEGEND_MAX and named[0] == "spot: s00" and named[-1] == "spot: s14"
 
 
 def test_the_study_report_lists_failed_cases_provenance_and_cautions(study):

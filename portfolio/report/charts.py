@@ -62,7 +62,9 @@ def to_svg(fig, salt: str) -> str:
     import matplotlib
     plt = _plt()
     buf = io.StringIO()
-    with matplotlib.rc_context({"svg.hashsalt": salt, "svg.fonttype": "none"}):
+    import warnings
+    with matplotlib.rc_context({"svg.hashsalt": salt, "svg.fonttype": "none"}), warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)     # a layout that cannot fit: drawn all the same
         fig.savefig(buf, format="svg", bbox_inches="tight", metadata={"Date": None})
     plt.close(fig)
     text = buf.getvalue()
@@ -314,25 +316,44 @@ def money_by_period(title: str, labels: Sequence[str], series: Sequence[Tuple[st
         return to_svg(fig, salt)
 
 
-def study_lines(title: str, x_label: str, lines: Sequence[Tuple[str, np.ndarray, np.ndarray]],
-                y_label: str, salt: str) -> str:
-    """A study's plot: the objective against one varied value, one line (marker and dash
-    pattern as a second cue) per combination of the other dimensions."""
+LEGEND_MAX = 12    # colours a study plot's legend names at most (as portfolio.study.results)
+
+
+def study_lines(title: str, x_label: str, lines: Sequence[Tuple[str, float, np.ndarray, np.ndarray]],
+                y_label: str, salt: str, note: str = "") -> str:
+    """A study's plot: the objective against one varied value, one line per combination of
+    the other dimensions.  ``lines``: (colour label, shade from 0 to 1, x, y); each label
+    gets a colour and a marker (a second cue besides the colour), its lines fainter for
+    smaller shades (``note`` says what they stand for, the legend's title); the legend
+    names at most :data:`LEGEND_MAX` labels (more: a sequential map, named evenly)."""
     import matplotlib
+    from matplotlib import colormaps
+    from matplotlib.lines import Line2D
+    labels = list(dict.fromkeys(label for label, *_ in lines))
+    many = len(labels) > len(PALETTE)
+    cmap = colormaps["viridis"]
+    colour = {k: cmap(i / max(1, len(labels) - 1)) if many else PALETTE[i] for i, k in enumerate(labels)}
+    markers = ["o", "s", "^", "D", "v", "P", "X", "*"]
+    marker = {k: markers[i % len(markers)] for i, k in enumerate(labels)}
     with matplotlib.rc_context(_STYLE):
         fig, ax = _figure(3.4, 8.0)
-        styles = iter(["-", "--", ":", "-."] * 16)
-        markers = iter(["o", "s", "^", "D", "v", "P", "X", "*"] * 8)
-        for (label, xs, ys), colour in zip(lines, PALETTE * 8):
-            ax.plot(xs, ys, color=colour, linestyle=next(styles), marker=next(markers), linewidth=1.4,
-                    markersize=5, label=label)
+        for label, shade, xs, ys in lines:
+            ax.plot(xs, ys, color=colour[label], alpha=0.3 + 0.7 * shade, marker=marker[label],
+                    linewidth=1.4, markersize=4)
         if not lines:
             ax.text(0.5, 0.5, "no case with a schedule", transform=ax.transAxes, ha="center")
         ax.set_xlabel(x_label)
         ax.set_ylabel(y_label)
         ax.set_title(title)
-        if len(lines) > 1:       # below the axes: the labels name every other value, so they are long
-            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=2 if len(lines) > 3 else 1)
+        if len(labels) > 1 or note:
+            named = labels if len(labels) <= LEGEND_MAX else [
+                labels[round(i * (len(labels) - 1) / (LEGEND_MAX - 1))] for i in range(LEGEND_MAX)]
+            heading = ([f"{len(labels)} colours, {len(named)} named"] if len(named) < len(labels) else []) + \
+                ([note] if note else [])
+            handles = [Line2D([], [], color=colour[k], marker=marker[k], markersize=4, label=k) for k in named]
+            # beside the axes: the labels name other values, so they can be long
+            ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0,
+                      title="\n".join(heading) or None, title_fontsize=8)
         return to_svg(fig, salt)
 
 

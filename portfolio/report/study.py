@@ -169,19 +169,30 @@ def _cautions(pg: Page, sf: StudyFolder) -> None:
            f"compares those optima, not what operating under uncertainty would earn.</p>{more}</section>")
 
 
-def _lines(sf: StudyFolder, x: str) -> List[Tuple[str, np.ndarray, np.ndarray]]:
-    """One line per combination of the other varied columns: (label, x values, objectives)."""
+def _lines(sf: StudyFolder, x: str) -> Tuple[List[Tuple[str, float, np.ndarray, np.ndarray]], str]:
+    """One line per combination of the other varied columns, as ``portfolio.study.results``
+    draws them: ``([(colour label, shade from 0 to 1, x values, objectives), ...], what the
+    shades mean)``.  A colour per scenario (the scenario columns' values; without scenarios,
+    the other settings'); the other settings' values, when scenarios colour the lines, as
+    shades (1: the largest)."""
     ok = sf.cases[sf.ok & sf.cases["objective"].notna()]
     others = [c for c in sf.varied if c != x]
-    groups = ok.groupby(others, sort=True) if others else [((), ok)]
+    scenarios = [c for c in others if c.endswith(SCENARIO)]
+    colour_by = scenarios or others
+    shade_by = [c for c in others if c not in colour_by]
+    shades = sorted(set(map(tuple, ok[shade_by].itertuples(index=False, name=None)))) if shade_by else [()]
+    groups = ok.groupby(colour_by + shade_by, sort=True) if others else [((), ok)]
     out = []
     for key, part in groups:
         key = key if isinstance(key, tuple) else (key,)
+        colour, shade = key[:len(colour_by)], key[len(colour_by):]
         part = part.sort_values(x)
         label = ", ".join(f"{c[:-len(SCENARIO)]}: {v}" if c.endswith(SCENARIO) else f"{c} = {_value_text(v)}"
-                          for c, v in zip(others, key)) or "objective"
-        out.append((label, part[x].to_numpy(float), part["objective"].to_numpy(float)))
-    return out
+                          for c, v in zip(colour_by, colour)) or "objective"
+        rank = shades.index(shade) / (len(shades) - 1) if len(shades) > 1 else 1.0
+        out.append((label, rank, part[x].to_numpy(float), part["objective"].to_numpy(float)))
+    note = f"one line per {', '.join(shade_by)}; fainter: smaller" if len(shades) > 1 else ""
+    return out, note
 
 
 def _plots(pg: Page, sf: StudyFolder) -> None:
@@ -189,10 +200,13 @@ def _plots(pg: Page, sf: StudyFolder) -> None:
     y = f"objective ({sf.currency})"
     settings = sf.settings()
     for x in settings:
-        lines = _lines(sf, x)
-        svg = C.study_lines(f"objective against {x}", x, lines, y, pg.salt())
+        lines, note = _lines(sf, x)
+        svg = C.study_lines(f"objective against {x}", x, lines, y, pg.salt(), note)
+        shades = f" ({note})" if note else ""
         pg.figure(svg, f"The objective of each case with a schedule against {x}; one line per "
-                       f"combination of the other varied values ({len(lines)} here).", f"study/{x}")
+                       f"combination of the other varied values ({len(lines)} here), a colour and "
+                       f"marker per {'scenario' if any(c.endswith(SCENARIO) for c in sf.varied if c != x) else 'line'}"
+                       f"{shades}.", f"study/{x}")
     if not settings:
         ok = sf.cases[sf.ok]
         labels = [", ".join(_value_text(r[c]) for c in sf.varied) or r["case"] for _i, r in ok.iterrows()]

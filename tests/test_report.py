@@ -471,7 +471,7 @@ def test_the_study_report_lists_failed_cases_provenance_and_cautions(study):
     assert html.escape(C.CAUTION) in text and 'data-key="currency">EUR<' in text
     # only report.html was added to what the study wrote
     assert C.REPORT_FILE in os.listdir(study)
-    assert set(os.listdir(study)) <= {".portfolio-study", "cases", "cases.csv", "cases.parquet", "plots",
+    assert set(os.listdir(study)) <= {".portfolio-study", ".portfolio-study.lock", "cases", "cases.csv", "cases.parquet", "plots",
                                       C.REPORT_FILE}
 
 

@@ -633,6 +633,43 @@ def test_work_for_afterwards_runs_while_the_cases_do_and_is_done_on_return(tmp_p
     assert again["skipped"] == 8 and seen == []
 
 
+def test_a_second_run_into_a_folder_in_use_is_refused_and_a_killed_one_leaves_no_lock(tmp_path):
+    """Two runs into one folder at once would solve every case twice: the second is
+    refused while the first holds the folder's lock (flock), before it writes anything;
+    the lock goes with its holder (a process that ends, however it ends)."""
+    import fcntl
+
+    from portfolio.cli import main
+    from portfolio.study import StudyError
+    from portfolio.study.run import LOCK, MARKER
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    out = tmp_path / "out"
+    (out / "cases").mkdir(parents=True)
+    (out / MARKER).write_text("portfolio study of x\n")
+    holder = open(out / LOCK, "a")
+    fcntl.flock(holder.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)          # a run going on
+    try:
+        with pytest.raises(StudyError, match="another 'portfolio study' is writing into"):
+            run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False)
+        o, e = _Sink(), _Sink()
+        assert main(["study", str(tmp_path / "tiny.folio"), "--out", str(out), "--quiet"], o, e) == 2
+        assert "another 'portfolio study' is writing into" in e.text and "Traceback" not in e.text
+        assert (out / MARKER).read_text() == "portfolio study of x\n" and not any((out / "cases").iterdir())
+    finally:
+        holder.close()
+    held = subprocess.Popen([sys.executable, "-c", "import fcntl, sys, time; f = open(sys.argv[1], 'a'); "
+                             "fcntl.flock(f.fileno(), fcntl.LOCK_EX); print('held', flush=True); time.sleep(60)",
+                             str(out / LOCK)], stdout=subprocess.PIPE, text=True)
+    try:
+        assert held.stdout.readline().strip() == "held"
+        with pytest.raises(StudyError, match="another"):
+            run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False)
+    finally:
+        held.kill()
+        held.wait()
+    assert len(run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False).frame) == 8
+
+
 class _Sink:
     def __init__(self):
         self.text = ""

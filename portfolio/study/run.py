@@ -38,6 +38,7 @@ from .cases import Case, apply, case_key, cases, shared_parts
 
 MARKER = ".portfolio-study"  # names the study folder ours (its portfolio file and study inside)
 STUDY_LINE = "study"         # the marker's line naming the study: "study NAME of portfolio NAME"
+LOCK = ".portfolio-study.lock"  # held (flock) by the run writing into the folder; kept, empty
 CASES_DIR = "cases"
 CASE_FILE = "case.json"
 SCHEDULE_DIR = "schedule"
@@ -222,6 +223,27 @@ def fresh(out_dir) -> bool:
         return True
 
 
+def _lock(out_dir: Path):
+    """The folder's lock (an open file holding ``flock``), or None where the file system
+    has no locks; :class:`StudyError` when another run holds it.  The kernel lets go of
+    it when its process ends, however it ends (a killed study leaves no stale lock)."""
+    try:
+        import fcntl
+    except ImportError:        # no flock on this system: one run at a time is the user's
+        return None
+    f = open(Path(out_dir) / LOCK, "a")
+    try:
+        fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        f.close()
+        raise StudyError(f"another 'portfolio study' is writing into '{out_dir}' now; let it end "
+                         "(running it again afterwards resumes where it ended) or choose another "
+                         "folder") from None
+    except OSError:            # a file system without locks (some network ones): run unlocked
+        pass
+    return f
+
+
 def _mark(out_dir: Path, p: M.Portfolio, study: M.Study) -> None:
     text = f"portfolio study of {p.path}\n{STUDY_LINE} {study.name} of portfolio {p.name}\n"
     replace_atomically(out_dir / MARKER, lambda tmp: Path(tmp).write_text(text))
@@ -269,6 +291,22 @@ def run_study(p: M.Portfolio, study: M.Study, out_dir, options, client=None, sch
         raise StudyError(problem)
     try:
         (out_dir / CASES_DIR).mkdir(parents=True, exist_ok=True)
+        lock = _lock(out_dir)
+    except OSError as e:
+        raise StudyError(f"cannot write the study folder '{out_dir}': "
+                         f"{e.strerror or e}") from None
+    try:
+        return _run_locked(p, study, out_dir, options, client, scheduler, workers, schedules, progress,
+                           chunk, idle)
+    finally:
+        if lock is not None:
+            lock.close()             # and the lock with it
+
+
+def _run_locked(p, study, out_dir: Path, options, client, scheduler, workers, schedules, progress, chunk,
+                idle) -> Dict[str, object]:
+    """:func:`run_study` holding the folder's lock."""
+    try:
         _mark(out_dir, p, study)
     except OSError as e:
         raise StudyError(f"cannot write the study folder '{out_dir}': "

@@ -140,10 +140,16 @@ def draw(g: nx.MultiDiGraph, path: Path, title: str = "") -> None:
                       markersize=10, label=w) for m, c, w in NODE_STYLE.values()]
     handles += [Line2D([], [], color=c, linestyle=s, label=w) for c, s, w in EDGE_STYLE.values()]
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
-    ax.set_title(title or g.graph.get("name", ""), loc="left")
+    # the title may be a file's name (a portfolio that names none): '$' in it is text, not math
+    ax.set_title(title or g.graph.get("name", ""), loc="left", parse_math=False)
     ax.axis("off")
-    fig.tight_layout()
-    _atomic(path, lambda tmp: fig.savefig(tmp, format=path.suffix[1:].lower(), dpi=150))
+    import warnings
+    with warnings.catch_warnings():
+        # a glyph the font lacks (CJK, ...) is drawn as a box; matplotlib's warning would
+        # reach the command's stderr as if something had failed
+        warnings.simplefilter("ignore", UserWarning)
+        fig.tight_layout()
+        _atomic(path, lambda tmp: fig.savefig(tmp, format=path.suffix[1:].lower(), dpi=150))
     plt.close(fig)
 
 

@@ -67,3 +67,26 @@ def test_unknown_picture_kind_is_a_usage_error(tmp_path, name):
 
 def test_missing_folder_is_a_usage_error(tmp_path):
     assert main(["graph", str(EXAMPLE), "--out", str(tmp_path / "nope" / "net.svg")]) == 2
+
+
+@pytest.mark.parametrize("name", ["電池.folio", "p$\\foo$q.folio", "x$_$y.folio"])
+def test_a_file_named_in_any_script_or_with_dollars_draws_quietly(tmp_path, capsys, name):
+    """A file that names no portfolio is titled by its name: a glyph the font lacks is a
+    box, not a warning on stderr, and '$' is text, not matplotlib's math (which failed as
+    'cannot write')."""
+    import shutil
+    shutil.copytree(EXAMPLE.parent, tmp_path / "ex")        # its series files beside it
+    f = tmp_path / "ex" / name
+    f.write_text(EXAMPLE.read_text(encoding="utf-8").replace("portfolio ridge_and_river\n", ""),
+                 encoding="utf-8")
+    assert "portfolio ridge_and_river\n" in EXAMPLE.read_text(encoding="utf-8")
+    import warnings
+    for ext in ("svg", "png"):
+        out = tmp_path / f"net.{ext}"
+        with warnings.catch_warnings(record=True) as seen:    # what would reach stderr
+            warnings.simplefilter("always")
+            assert main(["graph", str(f), "--out", str(out)]) == 0
+        assert not seen, [str(w.message) for w in seen]
+        assert out.stat().st_size > 1000
+    captured = capsys.readouterr()
+    assert captured.err == "", captured.err

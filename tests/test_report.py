@@ -456,6 +456,61 @@ def test_a_study_plot_names_at_most_twelve_colours_and_says_what_shades_mean():
     assert len(named) == charts.LEGEND_MAX and named[0] == "spot: s00" and named[-1] == "spot: s14"
 
 
+def test_many_assets_are_drawn_not_a_stop_iteration(tmp_path):
+    """33 sites of one store each, and one site of 16 stores: the charts' colours ran out
+    after 32 (StopIteration, exit 1, after the schedule was written)."""
+    prices = " ".join(str(40 + 10 * (h % 3)) for h in range(4))
+    sites = "\n".join(f"site s{k} at grid {{ storage b{k} {{ kind battery energy 2 MWh charge max 1 MW "
+                      f"discharge max 1 MW }} }}" for k in range(33))
+    many = "\n".join(f"  storage c{k} {{ kind battery energy 2 MWh charge max 1 MW discharge max 1 MW }}"
+                     for k in range(16))
+    for name, body in (("sites", sites), ("stores", f"site one at grid {{\n{many}\n}}")):
+        f = tmp_path / f"{name}.folio"
+        f.write_text(f'portfolio {name}\nhorizon start 2027-06-01T00:00 length 4 h step 1 h zone "UTC"\n'
+                     f"price spot values [{prices}] per MWh\n"
+                     "connection grid { export max 100 MW import max 100 MW sell at spot buy at spot plus 1 per MWh }\n"
+                     f"{body}\n", encoding="utf-8")
+        code, text, err = run("dispatch", f, "--out", tmp_path / name, "--report", "-q")
+        assert code == 0 and "Traceback" not in err, err
+        assert (tmp_path / name / C.REPORT_FILE).is_file()
+
+
+def test_a_table_edited_by_hand_is_a_message_not_a_traceback(tmp_path):
+    """A cell that is no number, a row deleted, a value of 1e308 (a table opened and saved
+    in a spreadsheet): a message naming the folder, exit 2; the drawing libraries' numeric
+    warnings do not reach stderr."""
+    import shutil
+    import warnings
+    base = tmp_path / "base"
+    code, _, err = run("dispatch", DEMO, "--out", base, "-q")
+    assert code == 0, err
+    tables = sorted(p.name for p in base.glob("*.csv") if p.name not in ("periods.csv",))
+    some = next(n for n in tables if n not in ("summary.csv", "marginal_values.csv"))
+    for how in ("word", "row", "huge"):
+        folder = tmp_path / how
+        shutil.copytree(base, folder)
+        lines = (folder / some).read_text(encoding="utf-8").splitlines()
+        if how == "word":
+            cells = lines[2].split(",")
+            cells[-1] = "n/a"
+            lines[2] = ",".join(cells)
+        elif how == "row":
+            del lines[3]
+        else:
+            cells = lines[2].split(",")
+            cells[-1] = "1e308"
+            lines[2] = ",".join(cells)
+        (folder / some).write_text("\n".join(lines) + "\n", encoding="utf-8")
+        with warnings.catch_warnings(record=True) as seen:     # what would reach stderr
+            warnings.simplefilter("always")
+            code, text, err = run("report", folder)
+        assert not seen, (how, [str(w.message) for w in seen])
+        assert "Traceback" not in err, (how, err)
+        assert code in (0, 2), (how, code, err)
+        if code == 2:
+            assert "not as this tool writes them" in err or "cannot" in err, (how, err)
+
+
 def test_the_study_report_lists_failed_cases_provenance_and_cautions(study):
     import portfolio
     text, page = _page(study)

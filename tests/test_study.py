@@ -670,6 +670,22 @@ def test_a_second_run_into_a_folder_in_use_is_refused_and_a_killed_one_leaves_no
     assert len(run(loaded.model, "sizes", out, OPTIONS, workers=1, plots=False).frame) == 8
 
 
+def test_plots_with_long_names_warn_nothing(tmp_path):
+    """Scenario names of 200 characters: the legend cannot fit beside the axes, and
+    matplotlib's layout warning reached the command's stderr."""
+    import warnings
+
+    from portfolio.study.results import write_plots
+    p = _load(tmp_path, _text([2 * v for v in PRICES])).model
+    rows = [{"cells energy [MWh]": e, "grid export max [MW]": x, "spot scenario": f"s{k}_" + "x" * 198,
+             "status": "optimal", "objective": 10 * k + e + x}
+            for e in (2.0, 4.0) for x in (1.0, 2.0) for k in range(3)]
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        written = write_plots(p.studies["sizes"], pd.DataFrame(rows), tmp_path / "out")
+    assert len(written) == 4 and not seen, [str(w.message) for w in seen]
+
+
 class _Sink:
     def __init__(self):
         self.text = ""

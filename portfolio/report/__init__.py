@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import os
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -62,13 +63,32 @@ def _ours(page: Path) -> bool:
     return f'<meta name="generator" content="{GENERATOR}">'.encode() in head
 
 
+@contextmanager
+def _readable(folder: Path):
+    """Reading and drawing a folder's tables: what they hold that this tool never writes (a
+    cell no number, a row missing, a value beyond any plant, as after an edit in a
+    spreadsheet) is a :class:`ReportError` naming the folder, not a traceback; numeric
+    warnings of the drawing libraries are not shown (the page says what it drew)."""
+    import warnings
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.simplefilter("ignore", UserWarning)
+            yield
+    except (ValueError, TypeError, KeyError, IndexError, ArithmeticError) as exc:
+        raise ReportError(f"the tables in {folder} are not as this tool writes them (edited by hand "
+                          f"or by another program?): {type(exc).__name__}: {exc}; write the folder "
+                          f"again ('portfolio dispatch' or 'portfolio study') to report it") from None
+
+
 def _write_study_report(folder: Path) -> Report:
     page = folder / REPORT_FILE
     if os.path.lexists(page) and not _ours(page):
         raise ReportError(f"{folder} holds a {REPORT_FILE} this tool did not write; refusing to replace it "
                           f"(move it away to report this study)")
-    data = read_study(folder)
-    text, charts = render_study(data)
+    with _readable(folder):
+        data = read_study(folder)
+        text, charts = render_study(data)
     try:
         _atomic_text(page, text)
     except OSError as exc:
@@ -89,8 +109,9 @@ def write_report(out_dir) -> Report:
         with folder_turn(folder.parent, folder.name):   # a dispatch may not replace it meanwhile
             listed = check_folder(folder)
             _refuse_foreign(folder, listed)
-            data: Folder = read(folder)
-            page, charts = render(data)
+            with _readable(folder):
+                data: Folder = read(folder)
+                page, charts = render(data)
             if REPORT_FILE not in listed:
                 marker = json.loads((folder / MARKER).read_text(encoding="utf-8"))
                 marker["files"] = listed + [REPORT_FILE]

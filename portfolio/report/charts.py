@@ -18,6 +18,7 @@ figures in the report's tables are never averaged.
 from __future__ import annotations
 
 import io
+import itertools
 import math
 import re
 from typing import Optional, Sequence, Tuple
@@ -128,8 +129,8 @@ def site_power(title: str, index, zone: str, step_hours: float,
     k = blocks(len(index))
     with matplotlib.rc_context(_STYLE):
         fig, ax = _figure()
-        colours = iter(PALETTE * 4)
-        hatches = iter(["", "", "", "", "///", "\\\\\\", "...", "xx"] * 4)
+        colours = itertools.cycle(PALETTE)
+        hatches = itertools.cycle(["", "", "", "", "///", "\\\\\\", "...", "xx"])
         xs = None
         for sign, group in ((1.0, sources), (-1.0, uses)):
             base = None
@@ -147,7 +148,7 @@ def site_power(title: str, index, zone: str, step_hours: float,
         ax.set_title(title)
         if prices:
             ax2 = ax.twinx()
-            styles = iter(["-", "--", ":", "-."] * 4)
+            styles = itertools.cycle(["-", "--", ":", "-."])
             for label, vals in prices:
                 idx, v = _reduce(index, np.asarray(vals, float), k)
                 ax2.step(_step_x(idx, step_hours, k), _stairs(v), where="post", color=PRICE,
@@ -192,8 +193,8 @@ def lost(title: str, index, zone: str, step_hours: float, series: Sequence[Tuple
     k = blocks(len(index))
     with matplotlib.rc_context(_STYLE):
         fig, ax = _figure(2.6)
-        styles = iter(["-", "--", ":", "-."] * 8)
-        colours = iter(PALETTE * 4)
+        styles = itertools.cycle(["-", "--", ":", "-."])
+        colours = itertools.cycle(PALETTE)
         for label, vals in series:
             idx, v = _reduce(index, np.asarray(vals, float), k)
             ax.step(_step_x(idx, step_hours, k), _stairs(v), where="post", color=next(colours),
@@ -280,8 +281,8 @@ def _signed_stack(ax, x, series: Sequence[Tuple[str, np.ndarray]], width) -> Non
     (and hatch) per series."""
     up = np.zeros(len(x))
     down = np.zeros(len(x))
-    hatches = iter(["", "", "", "", "///", "\\\\\\", "...", "xx"] * 4)
-    for (label, vals), colour in zip(series, PALETTE * 4):
+    hatches = itertools.cycle(["", "", "", "", "///", "\\\\\\", "...", "xx"])
+    for (label, vals), colour in zip(series, itertools.cycle(PALETTE)):
         v = np.nan_to_num(np.asarray(vals, float))
         pos, neg = np.where(v > 0, v, 0.0), np.where(v < 0, v, 0.0)
         hatch = next(hatches)

@@ -13,6 +13,7 @@ atomically (:func:`portfolio.files.replace_atomically`).
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 from typing import List
 
@@ -134,7 +135,9 @@ def write_plots(study: M.Study, df: pd.DataFrame, out_dir: Path) -> List[Path]:
         stem = f"objective_vs_{d.target}_{d.setting.replace(' ', '_')}"
         for ext in ("png", "svg"):
             path = folder / f"{stem}.{ext}"
-            replace_atomically(path, lambda tmp, ext=ext: fig.savefig(tmp, format=ext, dpi=110))
+            with warnings.catch_warnings():   # a layout that cannot fit long names: drawn all the same
+                warnings.simplefilter("ignore", UserWarning)
+                replace_atomically(path, lambda tmp, ext=ext: fig.savefig(tmp, format=ext, dpi=110))
             written.append(path)
     return written
 

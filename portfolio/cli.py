@@ -571,6 +571,8 @@ def cmd_study(args, out, err) -> int:
         kw["time_limit"] = args.time_limit
     if args.gap is not None:
         kw["mip_gap"] = args.gap
+    if args.scheduler is not None:
+        _quiet_dask()
     bar = StudyProgress(err, quiet=args.quiet)
     try:
         got = run(r.portfolio, study.name, out_dir, SolveOptions(**kw), scheduler=args.scheduler,
@@ -616,6 +618,18 @@ def cmd_report(args, out, err) -> int:
             else f" (status {rep.status}: no schedule; the page says why)")
     print(printable(f"report written to {rep.path}{what}"), file=out)
     return EXIT_OK
+
+
+def _quiet_dask() -> None:
+    """Dask's own log lines off this command's stderr (a scheduler lost mid-study logged
+    its reconnection tracebacks there): what happens to the cases, the command says.  Our
+    local cluster silences its processes itself (study/run.py's local_cluster)."""
+    import logging
+
+    import distributed  # noqa: F401  (its logging is set up when it is imported)
+    for name in ["distributed", *logging.root.manager.loggerDict]:
+        if name == "distributed" or name.startswith("distributed."):
+            logging.getLogger(name).setLevel(logging.CRITICAL)
 
 
 def _print_windows(result, out) -> None:

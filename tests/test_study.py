@@ -448,6 +448,49 @@ def test_a_real_scheduler_and_worker_give_the_serial_table(tmp_path):
             pr.wait(timeout=30)
 
 
+def test_a_scheduler_without_workers_or_not_dask_is_a_message(tmp_path, monkeypatch):
+    """A real scheduler that no worker joined: the scatter's timeout was a traceback; an
+    address where something answers that is not Dask (an HTTP server): the command hung."""
+    import http.server
+
+    from portfolio.study import StudyError
+    runner = sys.modules["portfolio.study.run"]
+    monkeypatch.setattr(runner, "CONNECT_TIMEOUT", 2)
+    monkeypatch.setattr(runner, "small", lambda p: False)
+    loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
+    port = _free_port()
+    sched = subprocess.Popen([_tool("dask"), "scheduler", "--host", "127.0.0.1", "--port", str(port),
+                              "--dashboard-address", ":0", "--no-show"], stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        deadline = time.monotonic() + 60
+        while True:                  # until it listens
+            try:
+                socket.create_connection(("127.0.0.1", port), timeout=1).close()
+                break
+            except OSError:
+                assert time.monotonic() < deadline, "the scheduler did not start"
+                time.sleep(0.2)
+        with pytest.raises(StudyError, match="has no worker to run the cases"):
+            run(loaded.model, "sizes", tmp_path / "a", OPTIONS, scheduler=f"tcp://127.0.0.1:{port}", plots=False)
+    finally:
+        os.killpg(sched.pid, signal.SIGTERM)
+        sched.wait(timeout=30)
+    class Quiet(http.server.SimpleHTTPRequestHandler):
+        def log_message(self, *a):
+            pass
+    web = http.server.ThreadingHTTPServer(("127.0.0.1", 0), Quiet)
+    threading.Thread(target=web.serve_forever, daemon=True).start()
+    try:
+        t0 = time.monotonic()
+        with pytest.raises(StudyError, match="no Dask scheduler answered at"):
+            run(loaded.model, "sizes", tmp_path / "b", OPTIONS,
+                scheduler=f"tcp://127.0.0.1:{web.server_address[1]}", plots=False)
+        assert time.monotonic() - t0 < 30
+    finally:
+        web.shutdown()
+
+
 @pytest.mark.slow
 def test_a_killed_study_loses_no_case_and_resumes(tmp_path):
     """SIGKILL the `portfolio study` command (and its workers) once some cases are written;
@@ -684,6 +727,29 @@ def test_plots_with_long_names_warn_nothing(tmp_path):
         warnings.simplefilter("always")
         written = write_plots(p.studies["sizes"], pd.DataFrame(rows), tmp_path / "out")
     assert len(written) == 4 and not seen, [str(w.message) for w in seen]
+
+
+def test_the_command_with_a_scheduler_keeps_dasks_logs_off_stderr(tmp_path, monkeypatch):
+    """With --scheduler the client's own log lines (a scheduler lost mid-study logged its
+    reconnection tracebacks) are silenced; what happened, the command says."""
+    import logging
+
+    import distributed  # noqa: F401
+    from portfolio.cli import main
+    monkeypatch.setattr(sys.modules["portfolio.study.run"], "CONNECT_TIMEOUT", 2)
+    names = ("distributed", "distributed.client", "distributed.core", "distributed.comm")
+    before = {n: logging.getLogger(n).level for n in names}
+    _load(tmp_path, _text([2 * v for v in PRICES]))
+    o, e = _Sink(), _Sink()
+    try:
+        code = main(["study", str(tmp_path / "tiny.folio"), "--out", str(tmp_path / "out"), "--quiet",
+                     "--scheduler", f"tcp://127.0.0.1:{_free_port()}"], o, e)
+        assert code == 2 and "cannot reach the Dask scheduler" in e.text and "Traceback" not in e.text
+        for name in names:
+            assert logging.getLogger(name).getEffectiveLevel() == logging.CRITICAL, name
+    finally:
+        for n, level in before.items():
+            logging.getLogger(n).setLevel(level)
 
 
 class _Sink:

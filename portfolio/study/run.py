@@ -53,6 +53,7 @@ FORKSERVER_PRELOAD = ("distributed", "portfolio.study.worker", "portfolio.dispat
 # 20 ms tick and the 500 ms system monitor (docs/performance.md, "Studies on Dask")
 QUIET = {"distributed.worker.profile.enabled": False, "distributed.admin.tick.interval": "1s",
          "distributed.admin.system-monitor.interval": "2s"}
+CONNECT_TIMEOUT = 30       # s: reaching a scheduler (--scheduler), and its first worker
 PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
@@ -413,6 +414,11 @@ class _Starting:
         import threading
         self._got: tuple = ()
         self._error: Optional[BaseException] = None
+        self._scheduler = scheduler
+        # a scheduler's connection is waited for at most this long; our own cluster's start
+        # as long as it takes (it ends, or fails with its own error)
+        self._limit = 2 * CONNECT_TIMEOUT if scheduler else None
+        self._abandoned = False
         self._thread = threading.Thread(target=self._run, args=(scheduler, workers), daemon=True,
                                         name="portfolio-study-start")
         self._thread.start()
@@ -427,14 +433,22 @@ class _Starting:
         return not self._thread.is_alive()
 
     def client(self):
-        self._thread.join()
+        self._thread.join(self._limit)
+        if self._thread.is_alive():    # an address where something answers, but not Dask
+            self._abandoned = True
+            raise StudyError(f"no Dask scheduler answered at {self._scheduler} within "
+                             f"{self._limit:g} s (is it the address 'dask scheduler' printed?); "
+                             "no case was sent")
         if self._error is not None:
             raise self._error
         return self._got[1]
 
     def stop(self) -> None:
-        """Close what was started (once it has started: a start is not cut short)."""
-        self._thread.join()
+        """Close what was started (once it has started: a start is not cut short, but a
+        connection that never answered is left to its daemon thread)."""
+        if self._abandoned:
+            return
+        self._thread.join(self._limit)
         if self._got:
             _stop(self._got[1], self._got[0])
 
@@ -508,8 +522,13 @@ def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, L
     for k in sizes:
         groups.append(keys[at:at + k])
         at += k
-    pf = client.scatter(shared, broadcast=True)
-    sf = client.scatter(study, broadcast=True)
+    try:
+        pf = client.scatter(shared, broadcast=True, timeout=CONNECT_TIMEOUT)
+        sf = client.scatter(study, broadcast=True, timeout=CONNECT_TIMEOUT)
+    except TimeoutError as e:      # asyncio's is the builtin's since Python 3.11
+        raise StudyError(f"the Dask scheduler has no worker to run the cases ({e} within "
+                         f"{CONNECT_TIMEOUT:g} s): start one ('dask worker ADDRESS') and run the "
+                         "study again (the cases written so far stay)") from None
     topic = f"portfolio-study-{uuid.uuid4().hex}"
     inbox: "queue.SimpleQueue" = queue.SimpleQueue()
     client.subscribe_topic(topic, lambda event: inbox.put(("row", event[1])))
@@ -647,7 +666,7 @@ def _start(scheduler: Optional[str], workers: Optional[int]):
     from distributed import Client
     if scheduler:
         try:
-            client = Client(scheduler, timeout=30)
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
         except (OSError, TimeoutError, ValueError) as e:
             raise StudyError(f"cannot reach the Dask scheduler at {scheduler}: {e} (is a "
                              f"scheduler running there?)") from None

@@ -455,7 +455,7 @@ def test_a_scheduler_without_workers_or_not_dask_is_a_message(tmp_path, monkeypa
 
     from portfolio.study import StudyError
     runner = sys.modules["portfolio.study.run"]
-    monkeypatch.setattr(runner, "CONNECT_TIMEOUT", 2)
+    monkeypatch.setattr(runner, "WORKER_TIMEOUT", 2)      # the connection keeps its 30 s
     monkeypatch.setattr(runner, "small", lambda p: False)
     loaded = _load(tmp_path, _text([2 * v for v in PRICES]))
     port = _free_port()
@@ -479,6 +479,7 @@ def test_a_scheduler_without_workers_or_not_dask_is_a_message(tmp_path, monkeypa
     class Quiet(http.server.SimpleHTTPRequestHandler):
         def log_message(self, *a):
             pass
+    monkeypatch.setattr(runner, "CONNECT_TIMEOUT", 2)     # given up after twice that
     web = http.server.ThreadingHTTPServer(("127.0.0.1", 0), Quiet)
     threading.Thread(target=web.serve_forever, daemon=True).start()
     try:

@@ -53,7 +53,8 @@ FORKSERVER_PRELOAD = ("distributed", "portfolio.study.worker", "portfolio.dispat
 # 20 ms tick and the 500 ms system monitor (docs/performance.md, "Studies on Dask")
 QUIET = {"distributed.worker.profile.enabled": False, "distributed.admin.tick.interval": "1s",
          "distributed.admin.system-monitor.interval": "2s"}
-CONNECT_TIMEOUT = 30       # s: reaching a scheduler (--scheduler), and its first worker
+CONNECT_TIMEOUT = 30       # s: reaching a scheduler (--scheduler)
+WORKER_TIMEOUT = 30        # s: a scheduler's first worker, for the model to reach it
 PRELOAD = "portfolio.study.worker"   # our local cluster's workers: quiet on Ctrl-C, pipeline imported
 
 Progress = Callable[[int, int, int, int], None]   # (done, failed, skipped, total)
@@ -523,11 +524,11 @@ def _run_chunks(client, shared: M.Portfolio, study: M.Study, by_key: Dict[str, L
         groups.append(keys[at:at + k])
         at += k
     try:
-        pf = client.scatter(shared, broadcast=True, timeout=CONNECT_TIMEOUT)
-        sf = client.scatter(study, broadcast=True, timeout=CONNECT_TIMEOUT)
+        pf = client.scatter(shared, broadcast=True, timeout=WORKER_TIMEOUT)
+        sf = client.scatter(study, broadcast=True, timeout=WORKER_TIMEOUT)
     except TimeoutError as e:      # asyncio's is the builtin's since Python 3.11
         raise StudyError(f"the Dask scheduler has no worker to run the cases ({e} within "
-                         f"{CONNECT_TIMEOUT:g} s): start one ('dask worker ADDRESS') and run the "
+                         f"{WORKER_TIMEOUT:g} s): start one ('dask worker ADDRESS') and run the "
                          "study again (the cases written so far stay)") from None
     topic = f"portfolio-study-{uuid.uuid4().hex}"
     inbox: "queue.SimpleQueue" = queue.SimpleQueue()
